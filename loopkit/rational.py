@@ -1,0 +1,395 @@
+"""Factored rational transfer functions, vectorised over operating corners.
+
+A :class:`Rational` holds, for every corner, a real gain and two lists of
+first-order factors ``a0 + a1*s`` (numerator and denominator) plus an optional
+pure delay::
+
+    H(s) = gain * prod(a0_i + a1_i s) / prod(b0_j + b1_j s) * exp(-s * delay)
+
+``s`` is the Laplace variable in rad/s; ``a1`` is therefore in seconds.  A zero
+at the origin is the factor ``(0, 1)``; a missing factor (padding, so that
+corners with fewer roots fit one array) is ``(1, 0)``.  Complex roots appear as
+conjugate pairs of complex factors.  Every frequency exposed by this module is
+in hertz.
+
+Why factors and not polynomial coefficients: the response is exact at any
+frequency, and the phase is the sum of the factors' angles, which is continuous
+in frequency without unwrapping (each factor ``a0 + a1 j w`` moves along a
+straight line that never circles the origin).  That makes phase margins with
+right-half-plane zeros and integrators unambiguous.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["Rational", "poly_roots_inverse", "TWO_PI"]
+
+TWO_PI = 2.0 * np.pi
+
+_PAD = np.array([1.0 + 0j, 0.0 + 0j])
+
+
+def _as_factor_array(factors, n: int) -> np.ndarray:
+    """Shape ``factors`` into a complex array (n, k, 2)."""
+    arr = np.asarray(factors, dtype=complex)
+    if arr.size == 0:
+        return np.zeros((n, 0, 2), dtype=complex)
+    if arr.ndim == 2:  # (k, 2): the same for every corner
+        arr = np.broadcast_to(arr, (n,) + arr.shape)
+    if arr.ndim != 3 or arr.shape[-1] != 2:
+        raise ValueError(f"factor array must be (corners, k, 2), got shape {arr.shape}")
+    return np.broadcast_to(arr, (n,) + arr.shape[1:])
+
+
+def _normalise(gain: np.ndarray, factors: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Scale factors to ``(1, a1/a0)`` or ``(0, 1)``; return the moved gain and factors."""
+    a0 = factors[..., 0]
+    a1 = factors[..., 1]
+    origin = a0 == 0
+    lead = np.where(origin, a1, a0)
+    if np.any(lead == 0):
+        raise ValueError("a factor 0 + 0 s is not allowed")
+    out = np.empty_like(factors)
+    out[..., 0] = np.where(origin, 0.0, 1.0)
+    out[..., 1] = np.where(origin, 1.0, a1 / np.where(origin, 1.0, a0))
+    return gain * np.prod(lead, axis=-1), out
+
+
+def poly_roots_inverse(coeffs: np.ndarray) -> np.ndarray:
+    """Inverse roots of polynomials with a nonzero constant term, row by row.
+
+    Parameters
+    ----------
+    coeffs : ndarray, shape (n, m + 1)
+        Ascending coefficients ``c0 + c1 s + ... + cm s^m`` with ``c0 != 0``.
+        Trailing (highest-order) zeros are allowed: they give inverse roots 0.
+
+    Returns
+    -------
+    ndarray, shape (n, m), complex
+        ``w`` such that ``p(s) = c0 * prod(1 - w_i s)``.
+
+    Notes
+    -----
+    The ``w_i`` are the roots of the reversed polynomial
+    ``c0 x^m + c1 x^(m-1) + ... + cm``; they are found as the eigenvalues of its
+    companion matrix (one batched LAPACK call for all rows), after scaling ``s``
+    by ``|c0/c_deg|^(1/deg)`` so the coefficients are balanced.
+    """
+    c = np.asarray(coeffs, dtype=float)
+    n, m1 = c.shape
+    m = m1 - 1
+    if m == 0:
+        return np.zeros((n, 0), dtype=complex)
+    if np.any(c[:, 0] == 0):
+        raise ValueError("poly_roots_inverse needs a nonzero constant term")
+    nonzero = c != 0
+    deg = m - np.argmax(nonzero[:, ::-1], axis=1)
+    top = c[np.arange(n), deg]
+    with np.errstate(divide="ignore"):
+        w_ref = np.where(deg > 0, np.abs(c[:, 0] / top) ** (1.0 / np.maximum(deg, 1)), 1.0)
+    k = np.arange(m1)
+    scaled = c * w_ref[:, None] ** k[None, :]
+    companion = np.zeros((n, m, m))
+    companion[:, 0, :] = -scaled[:, 1:] / scaled[:, :1]
+    if m > 1:
+        companion[:, np.arange(1, m), np.arange(m - 1)] = 1.0
+    w_scaled = np.linalg.eigvals(companion)
+    w = w_scaled / w_ref[:, None]
+    # exact zeros where the degree is short (eigvals of a zero block can be ~1e-300)
+    order = np.argsort(-np.abs(w), axis=1)
+    w = np.take_along_axis(w, order, axis=1)
+    w[k[None, :m] >= deg[:, None]] = 0.0
+    return w
+
+
+def _roots_as_factors(coeffs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Gain and normalised factors of polynomials (n, m+1), origin roots included."""
+    c = np.asarray(coeffs, dtype=float)
+    n, m1 = c.shape
+    gain = np.empty(n)
+    factors = np.empty((n, m1 - 1, 2), dtype=complex)
+    zero_low = np.argmax(c != 0, axis=1)  # number of zero low-order coefficients
+    if np.any(np.all(c == 0, axis=1)):
+        raise ValueError("a polynomial is identically zero")
+    for k in np.unique(zero_low):
+        rows = np.nonzero(zero_low == k)[0]
+        w = poly_roots_inverse(c[rows, k:])
+        gain[rows] = c[rows, k]
+        factors[np.ix_(rows, np.arange(k), [0])] = 0.0
+        factors[np.ix_(rows, np.arange(k), [1])] = 1.0
+        factors[rows, k:, 0] = 1.0
+        factors[rows, k:, 1] = -w
+    return gain, factors
+
+
+def _poly_from_factors(gain: np.ndarray, factors: np.ndarray) -> np.ndarray:
+    """Ascending real coefficients (n, k+1) of ``gain * prod(a0 + a1 s)``."""
+    n, k, _ = factors.shape
+    p = np.zeros((n, k + 1), dtype=complex)
+    p[:, 0] = 1.0
+    for i in range(k):
+        a0 = factors[:, i, 0][:, None]
+        a1 = factors[:, i, 1][:, None]
+        shifted = np.zeros_like(p)
+        shifted[:, 1:] = p[:, :-1]
+        p = a0 * p + a1 * shifted
+    return (gain[:, None] * p).real
+
+
+@dataclass(frozen=True, eq=False)
+class Rational:
+    """A transfer function per corner, in factored form (see the module notes).
+
+    Attributes
+    ----------
+    gain : ndarray (n,)
+        Real gain multiplying the normalised factors.
+    num, den : ndarray (n, k, 2) complex
+        Factors ``a0 + a1 s`` normalised to ``(1, a1)`` or ``(0, 1)``.
+    delay_s : ndarray (n,)
+        Pure delay in seconds.
+    """
+
+    gain: np.ndarray
+    num: np.ndarray
+    den: np.ndarray
+    delay_s: np.ndarray
+
+    # ------------------------------------------------------------------ constructors
+    @classmethod
+    def from_factors(cls, gain, num=(), den=(), delay_s=0.0) -> "Rational":
+        """Build from a gain and factor lists ``[(a0, a1), ...]`` (any scaling).
+
+        ``gain`` may be a scalar or an array over corners; factor arrays may be
+        (k, 2) for all corners or (n, k, 2).
+        """
+        g = np.atleast_1d(np.asarray(gain, dtype=float))
+        shapes = [g.shape[0]]
+        for f in (num, den):
+            a = np.asarray(f, dtype=complex)
+            if a.ndim == 3:
+                shapes.append(a.shape[0])
+        d = np.atleast_1d(np.asarray(delay_s, dtype=float))
+        shapes.append(d.shape[0])
+        n = max(shapes)
+        g = np.broadcast_to(g, (n,)).astype(float)
+        nf = _as_factor_array(num, n)
+        df = _as_factor_array(den, n)
+        gn, nf = _normalise(np.ones(n, dtype=complex), nf)
+        gd, df = _normalise(np.ones(n, dtype=complex), df)
+        ratio = gn / gd
+        if np.any(np.abs(ratio.imag) > 1e-9 * np.abs(ratio)):
+            raise ValueError("complex factors must come in conjugate pairs")
+        return cls(g * ratio.real, nf, df, np.broadcast_to(d, (n,)).astype(float))
+
+    @classmethod
+    def from_roots_hz(cls, gain, zeros_hz=(), poles_hz=()) -> "Rational":
+        """Gain times ``prod(1 - s/z) / prod(1 - s/p)`` with roots given in Hz (s/2 pi).
+
+        A root at 0 becomes ``s/(2 pi)``-free factor ``s``; the gain is then the
+        coefficient of that power of s.  ``inf`` entries are padding.
+        """
+
+        def fac(r):
+            r = np.asarray(r, dtype=complex)
+            if r.size == 0:
+                return np.zeros(r.shape + (2,), dtype=complex)[..., :0, :] if r.ndim else ()
+            out = np.empty(r.shape + (2,), dtype=complex)
+            at_zero = r == 0
+            finite = np.isfinite(r)
+            safe = np.where(at_zero | ~finite, 1.0, r)
+            out[..., 0] = np.where(at_zero, 0.0, 1.0)
+            out[..., 1] = np.where(at_zero, 1.0, np.where(finite, -1.0 / (TWO_PI * safe), 0.0))
+            return out
+
+        return cls.from_factors(gain, fac(zeros_hz), fac(poles_hz))
+
+    @classmethod
+    def from_polys(cls, num, den, delay_s=0.0) -> "Rational":
+        """Build from ascending polynomial coefficients in s (rad/s), shape (n, k)."""
+        num = np.atleast_2d(np.asarray(num, dtype=float))
+        den = np.atleast_2d(np.asarray(den, dtype=float))
+        n = max(num.shape[0], den.shape[0])
+        num = np.broadcast_to(num, (n, num.shape[1]))
+        den = np.broadcast_to(den, (n, den.shape[1]))
+        gn, fn = _roots_as_factors(num)
+        gd, fd = _roots_as_factors(den)
+        return cls(gn / gd, fn, fd, np.broadcast_to(np.asarray(delay_s, float), (n,)).copy())
+
+    @classmethod
+    def constant(cls, value, n: int | None = None) -> "Rational":
+        v = np.atleast_1d(np.asarray(value, dtype=float))
+        if n is not None:
+            v = np.broadcast_to(v, (n,))
+        n = v.shape[0]
+        empty = np.zeros((n, 0, 2), dtype=complex)
+        return cls(v.astype(float), empty, empty.copy(), np.zeros(n))
+
+    # ------------------------------------------------------------------ algebra
+    @property
+    def n_corners(self) -> int:
+        return self.gain.shape[0]
+
+    def broadcast(self, n: int) -> "Rational":
+        if self.n_corners == n:
+            return self
+        if self.n_corners != 1:
+            raise ValueError(f"cannot broadcast {self.n_corners} corners to {n}")
+        return Rational(
+            np.broadcast_to(self.gain, (n,)).copy(),
+            np.broadcast_to(self.num, (n,) + self.num.shape[1:]).copy(),
+            np.broadcast_to(self.den, (n,) + self.den.shape[1:]).copy(),
+            np.broadcast_to(self.delay_s, (n,)).copy(),
+        )
+
+    def __mul__(self, other) -> "Rational":
+        if not isinstance(other, Rational):
+            return Rational(self.gain * np.asarray(other, dtype=float), self.num, self.den, self.delay_s)
+        n = max(self.n_corners, other.n_corners)
+        a, b = self.broadcast(n), other.broadcast(n)
+        return Rational(
+            a.gain * b.gain,
+            np.concatenate([a.num, b.num], axis=1),
+            np.concatenate([a.den, b.den], axis=1),
+            a.delay_s + b.delay_s,
+        )
+
+    __rmul__ = __mul__
+
+    def inverse(self) -> "Rational":
+        return Rational(1.0 / self.gain, self.den, self.num, -self.delay_s)
+
+    def __truediv__(self, other) -> "Rational":
+        if not isinstance(other, Rational):
+            return self * (1.0 / np.asarray(other, dtype=float))
+        return self * other.inverse()
+
+    def __neg__(self) -> "Rational":
+        return Rational(-self.gain, self.num, self.den, self.delay_s)
+
+    def take(self, index) -> "Rational":
+        """The corners selected by ``index`` (int, slice, mask or index array)."""
+        idx = np.atleast_1d(np.arange(self.n_corners)[index])
+        return Rational(self.gain[idx], self.num[idx], self.den[idx], self.delay_s[idx])
+
+    @staticmethod
+    def stack(parts: list["Rational"], order: np.ndarray | None = None) -> "Rational":
+        """Concatenate corners of several Rationals (padding factor lists)."""
+        kz = max(p.num.shape[1] for p in parts)
+        kp = max(p.den.shape[1] for p in parts)
+
+        def pad(f, k):
+            extra = k - f.shape[1]
+            if extra == 0:
+                return f
+            return np.concatenate([f, np.broadcast_to(_PAD, (f.shape[0], extra, 2))], axis=1)
+
+        out = Rational(
+            np.concatenate([p.gain for p in parts]),
+            np.concatenate([pad(p.num, kz) for p in parts]),
+            np.concatenate([pad(p.den, kp) for p in parts]),
+            np.concatenate([p.delay_s for p in parts]),
+        )
+        if order is not None:
+            inv = np.empty_like(order)
+            inv[order] = np.arange(order.size)
+            out = out.take(inv)
+        return out
+
+    # ------------------------------------------------------------------ evaluation
+    @staticmethod
+    def _s(f_hz) -> np.ndarray:
+        return 1j * TWO_PI * np.asarray(f_hz, dtype=float)
+
+    def _per_corner(self, f_hz) -> np.ndarray:
+        """Laplace variable shaped (n or 1, nf)."""
+        s = self._s(f_hz)
+        return s[None, :] if s.ndim == 1 else s
+
+    def response(self, f_hz) -> np.ndarray:
+        """Complex response, shape (corners, frequencies).
+
+        ``f_hz`` is (nf,) shared by all corners or (corners, nf).
+        """
+        s = self._per_corner(f_hz)[:, None, :]
+        num = np.prod(self.num[:, :, 0, None] + self.num[:, :, 1, None] * s, axis=1)
+        den = np.prod(self.den[:, :, 0, None] + self.den[:, :, 1, None] * s, axis=1)
+        out = self.gain[:, None] * num / den
+        if np.any(self.delay_s):
+            out = out * np.exp(-s[:, 0, :] * self.delay_s[:, None])
+        return out
+
+    def phase_deg(self, f_hz) -> np.ndarray:
+        """Continuous phase in degrees, (corners, frequencies): the sum of factor angles.
+
+        At low frequency a positive gain reads 0 deg and a negative gain -180 deg
+        (so an inverting stage reads -180 deg, never +180 deg), each origin zero
+        adds +90 deg and each origin pole -90 deg.
+        """
+        s = self._per_corner(f_hz)[:, None, :]
+        ang = np.sum(np.angle(self.num[:, :, 0, None] + self.num[:, :, 1, None] * s), axis=1)
+        ang = ang - np.sum(np.angle(self.den[:, :, 0, None] + self.den[:, :, 1, None] * s), axis=1)
+        ang = ang + np.where(self.gain < 0, -np.pi, 0.0)[:, None]
+        ang = ang - s[:, 0, :].imag * self.delay_s[:, None]
+        return np.degrees(ang)
+
+    def bode(self, f_hz) -> tuple[np.ndarray, np.ndarray]:
+        """Magnitude in dB and continuous phase in degrees, each (corners, frequencies)."""
+        return 20.0 * np.log10(np.abs(self.response(f_hz))), self.phase_deg(f_hz)
+
+    def dc_gain(self) -> np.ndarray:
+        """H(0) per corner (inf or 0 where there are origin poles or zeros)."""
+        with np.errstate(divide="ignore", invalid="ignore"):
+            nz = np.sum(self.num[:, :, 0] == 0, axis=1) - np.sum(self.den[:, :, 0] == 0, axis=1)
+        return np.where(nz == 0, self.gain, np.where(nz < 0, np.inf * np.sign(self.gain), 0.0))
+
+    # ------------------------------------------------------------------ roots
+    @staticmethod
+    def _roots(f: np.ndarray) -> np.ndarray:
+        a0, a1 = f[..., 0], f[..., 1]
+        pad = a1 == 0
+        r = -a0 / np.where(pad, 1.0, a1) / TWO_PI
+        r[pad] = np.inf
+        return r
+
+    def zeros_hz(self) -> np.ndarray:
+        """Zeros as s-plane roots divided by 2 pi (Hz), (corners, k); inf = padding."""
+        return self._roots(self.num)
+
+    def poles_hz(self) -> np.ndarray:
+        """Poles as s-plane roots divided by 2 pi (Hz), (corners, k); inf = padding."""
+        return self._roots(self.den)
+
+    # ------------------------------------------------------------------ polynomials
+    def polys(self) -> tuple[np.ndarray, np.ndarray]:
+        """Ascending real coefficients in s (rad/s) of numerator and denominator."""
+        n = self.n_corners
+        return _poly_from_factors(self.gain, self.num), _poly_from_factors(np.ones(n), self.den)
+
+    def closed_loop_poles_hz(self) -> np.ndarray:
+        """Roots of ``1 + H(s) = 0`` per corner in Hz (s/2 pi); the delay is ignored.
+
+        Returns (corners, k) complex with ``inf`` where the order is short.
+        """
+        num, den = self.polys()
+        k = max(num.shape[1], den.shape[1])
+        char = np.zeros((self.n_corners, k))
+        char[:, : num.shape[1]] += num
+        char[:, : den.shape[1]] += den
+        _, factors = _roots_as_factors(char)
+        return self._roots(factors)
+
+    def to_control(self, corner: int = 0):
+        """python-control TransferFunction of one corner (s in rad/s)."""
+        import control  # lazy: importing control costs ~2 s
+
+        num, den = self.take(corner).polys()
+        num = np.trim_zeros(num[0], "b")[::-1]
+        den = np.trim_zeros(den[0], "b")[::-1]
+        if self.delay_s[corner]:
+            raise ValueError("python-control has no exact delay: this corner has one")
+        return control.TransferFunction(num, den)
