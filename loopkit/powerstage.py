@@ -1,0 +1,238 @@
+"""Operating point and small-signal power-stage model at every corner.
+
+:func:`analyse_stage` is the first step of the one path from a design to its
+results: for every corner (input voltage x load) it gives the duty cycle with
+conduction losses, the inductor current and ripple, CCM or DCM (and the load at
+the boundary), and the control-to-output Gvd, line-to-output Gvg and open-loop
+output impedance Zout as :class:`~loopkit.rational.Rational` arrays, with the
+salient features read off them (dc gain, double pole and Q, ESR zeros, RHP
+zero, DCM poles).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .design import Design
+from .errors import DesignError, Finding
+from .rational import TWO_PI, Rational
+from .stages import groups, topology_module
+from .stages.base import ccm_transfer_functions, dcm_transfer_functions, hf_pole_hz
+from .units import format_value
+
+__all__ = ["StageResult", "analyse_stage", "corner_label"]
+
+
+@dataclass(frozen=True, eq=False)
+class StageResult:
+    """Power stage at every corner; arrays are shaped (corners,).
+
+    Attributes
+    ----------
+    vin, load : ndarray
+        Input voltage (V) and load current (A) of each corner.
+    duty : ndarray
+        Duty cycle of the controlled switch, conduction losses included.
+    dcm : ndarray of bool
+        True where the corner runs in discontinuous conduction.
+    submode : ndarray of str
+        Four-switch: "buck", "boost" or "transition"; "" otherwise.
+    i_l, ripple_pp, i_peak : ndarray
+        Average inductor current, its peak-to-peak ripple and peak, A
+        (flyback: magnetising current seen from the primary).
+    load_boundary : ndarray
+        Load current at the CCM/DCM boundary at this input voltage, A.
+    gd0 : ndarray
+        Gvd at dc, V per unit duty.
+    f0_hz, q : ndarray
+        Double-pole frequency and quality factor (CCM; NaN in DCM).
+    fp_hz, f_hf_hz : ndarray
+        DCM: dominant output pole and high-frequency pole (NaN in CCM).
+    f_esr_hz : ndarray (corners, banks)
+        ESR zero of each capacitor bank (NaN where ESR = 0).
+    f_rhp_hz : ndarray
+        Right-half-plane zero of Gvd (NaN where there is none).
+    gvd, gvg, zout : Rational
+        Control-to-output, line-to-output and output impedance (load included).
+    findings : tuple of Finding
+    """
+
+    vin: np.ndarray
+    load: np.ndarray
+    vout: float
+    duty: np.ndarray
+    dcm: np.ndarray
+    submode: np.ndarray
+    i_l: np.ndarray
+    ripple_pp: np.ndarray
+    i_peak: np.ndarray
+    load_boundary: np.ndarray
+    gd0: np.ndarray
+    f0_hz: np.ndarray
+    q: np.ndarray
+    fp_hz: np.ndarray
+    f_hf_hz: np.ndarray
+    f_esr_hz: np.ndarray
+    f_rhp_hz: np.ndarray
+    gvd: Rational
+    gvg: Rational
+    zout: Rational
+    findings: tuple
+
+    @property
+    def n_corners(self) -> int:
+        return self.vin.shape[0]
+
+    @property
+    def mode(self) -> np.ndarray:
+        return np.where(self.dcm, "DCM", "CCM")
+
+
+def corner_label(vin: float, load: float) -> str:
+    """Short name of a corner, e.g. ``"12V 1.5A"``."""
+    return f"{format_value(vin, 'V')} {format_value(load, 'A')}"
+
+
+def _range_check(design: Design, vin: np.ndarray) -> None:
+    stage, vout = design.stage, design.operating.vout
+    module = topology_module(stage.topology)
+    bad = module.range_problem(stage, np.asarray(design.operating.vin), vout)
+    if bad is not None:
+        v = design.operating.vin[bad]
+        raise DesignError(
+            f"operating.vin[{bad}]", format_value(v, "V"),
+            f"a {stage.topology} cannot make {format_value(vout, 'V')} from {format_value(v, 'V')}"
+            f" (a {stage.topology} needs vin {'above' if stage.topology == 'buck' else 'below'} vout)",
+        )
+
+
+def _double_pole(poles_hz: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """f0 and Q from the two lowest poles of each row (complex pair or two real)."""
+    p = np.where(np.isfinite(poles_hz), poles_hz, np.nan)
+    order = np.argsort(np.where(np.isnan(p), np.inf, np.abs(p)), axis=1)
+    p = np.take_along_axis(p, order, axis=1)
+    p1, p2 = p[:, 0], p[:, 1] if p.shape[1] > 1 else np.full(p.shape[0], np.nan)
+    f0 = np.sqrt(np.abs(p1 * p2))
+    q = f0 / np.abs(p1.real + p2.real)
+    return f0, q
+
+
+def analyse_stage(design: Design) -> StageResult:
+    """Operating point and small-signal model of the power stage at every corner.
+
+    Parameters
+    ----------
+    design : Design
+
+    Returns
+    -------
+    StageResult
+
+    Raises
+    ------
+    DesignError
+        If the stage cannot make the output at some corner (wrong conversion
+        direction, or conduction losses too high for any duty).
+
+    Notes
+    -----
+    A corner is in DCM when the stage may run so (``stage.light_load = "dcm"``)
+    and half the CCM ripple exceeds the average inductor current, which is the
+    condition K < Kcrit of Erickson & Maksimovic ch. 5 written with losses.
+    DCM corners use the DCM model, never the CCM one.
+    """
+    stage, op = design.stage, design.operating
+    vin, load = op.corners()
+    vout = op.vout
+    _range_check(design, vin)
+    n = vin.shape[0]
+    r_load = abs(vout) / load
+    out = {name: np.full(n, np.nan) for name in (
+        "duty", "i_l", "ripple_pp", "i_peak", "load_boundary", "f0_hz", "q", "fp_hz", "f_hf_hz", "f_rhp_hz")}
+    dcm_mask = np.zeros(n, bool)
+    submode = np.full(n, "", dtype=object)
+    parts_vd, parts_vg, parts_zo, order = [], [], [], []
+    findings: list[Finding] = []
+    for idx, st, module, label in groups(stage, vin, load, vout):
+        submode[idx] = label
+        cp = module.ccm(st, vin[idx], load[idx], vout)
+        if np.any(~np.isfinite(cp.duty) | (cp.duty >= 1.0) | (cp.duty <= 0.0)):
+            k = idx[np.nonzero(~np.isfinite(cp.duty) | (cp.duty >= 1.0) | (cp.duty <= 0.0))[0][0]]
+            raise DesignError(
+                "operating.load", format_value(load[k], "A"),
+                f"the {stage.topology} cannot deliver {format_value(vout, 'V')} at {format_value(vin[k], 'V')} in"
+                f" with this load: conduction losses need a duty of 100 % or more (lower the load or the resistances)",
+            )
+        in_dcm = (st.light_load == "dcm") & (cp.ripple / 2.0 > cp.i_l)
+        out["load_boundary"][idx] = cp.out_per_il * cp.ripple / 2.0
+        ccm_idx, dcm_idx = np.nonzero(~in_dcm)[0], np.nonzero(in_dcm)[0]
+        if ccm_idx.size:
+            sel = _select(cp, ccm_idx)
+            gvd, gvg, zo = ccm_transfer_functions(st, sel, r_load[idx][ccm_idx])
+            k = idx[ccm_idx]
+            out["duty"][k] = sel.duty
+            out["i_l"][k] = sel.i_l
+            out["ripple_pp"][k] = sel.ripple
+            out["i_peak"][k] = sel.i_l + sel.ripple / 2.0
+            out["f0_hz"][k], out["q"][k] = _double_pole(gvd.poles_hz())
+            with np.errstate(invalid="ignore", divide="ignore"):
+                rhp = -(sel.b_i * sel.e + sel.b_d * sel.r_series) / (sel.b_d * sel.l_h) / TWO_PI
+                out["f_rhp_hz"][k] = np.where((sel.b_d != 0) & (rhp > 0), rhp, np.nan)
+            parts_vd.append(gvd), parts_vg.append(gvg), parts_zo.append(zo), order.append(k)
+        if dcm_idx.size:
+            k = idx[dcm_idx]
+            dp = module.dcm(st, vin[k], load[k], vout)
+            gvd, gvg, zo = dcm_transfer_functions(st, dp, r_load[k])
+            out["duty"][k] = dp.duty
+            out["i_l"][k] = dp.i_peak * (dp.duty + dp.d2) / 2.0
+            out["ripple_pp"][k] = dp.i_peak
+            out["i_peak"][k] = dp.i_peak
+            out["f_hf_hz"][k] = hf_pole_hz(st, dp)
+            poles = zo.poles_hz()
+            finite = np.where(np.isfinite(poles), np.abs(poles), np.inf)
+            out["fp_hz"][k] = np.min(finite, axis=1)
+            dcm_mask[k] = True
+            parts_vd.append(gvd), parts_vg.append(gvg), parts_zo.append(zo), order.append(k)
+    order_all = np.concatenate(order)
+    gvd = Rational.stack(parts_vd, order_all)
+    gvg = Rational.stack(parts_vg, order_all)
+    zout = Rational.stack(parts_zo, order_all)
+    f_esr = np.array([1.0 / (TWO_PI * b.esr_total * b.c_total) if b.esr > 0 else np.nan for b in stage.output_caps])
+    findings.extend(_stage_findings(design, vin, load, out, dcm_mask, submode))
+    return StageResult(
+        vin=vin, load=load, vout=vout, duty=out["duty"], dcm=dcm_mask, submode=submode.astype(str),
+        i_l=out["i_l"], ripple_pp=out["ripple_pp"], i_peak=out["i_peak"], load_boundary=out["load_boundary"],
+        gd0=gvd.dc_gain(), f0_hz=out["f0_hz"], q=out["q"], fp_hz=out["fp_hz"], f_hf_hz=out["f_hf_hz"],
+        f_esr_hz=np.broadcast_to(f_esr, (n, f_esr.size)).copy(), f_rhp_hz=out["f_rhp_hz"],
+        gvd=gvd, gvg=gvg, zout=zout, findings=tuple(findings),
+    )
+
+
+def _select(cp, idx):
+    return type(cp)(**{k: np.asarray(v)[idx] for k, v in cp.__dict__.items()})
+
+
+def _stage_findings(design, vin, load, out, dcm_mask, submode) -> list[Finding]:
+    found = []
+    dmax = design.modulator.max_duty
+    for k in np.nonzero(out["duty"] > dmax)[0]:
+        found.append(Finding(
+            "duty-limit",
+            f"duty {out['duty'][k]:.1%} at {corner_label(vin[k], load[k])} exceeds modulator.max_duty {dmax:.0%}:"
+            " the output will fall out of regulation there", int(k)))
+    for k in np.nonzero(dcm_mask)[0]:
+        found.append(Finding(
+            "dcm",
+            f"{corner_label(vin[k], load[k])} runs in DCM (boundary at {format_value(out['load_boundary'][k], 'A')}):"
+            " modelled with the DCM averaged model (conduction losses other than the diode drop neglected)",
+            int(k), "note"))
+    for k in np.nonzero(submode == "transition")[0]:
+        found.append(Finding(
+            "transition-band",
+            f"{corner_label(vin[k], load[k])} is in the four-switch transition band (buck duty above "
+            f"{design.stage.buck_max_duty:.0%}, boost duty below {design.stage.boost_min_duty:.0%}): modelled in "
+            "the pure mode that can regulate; a real controller blends modes here, so verify on the bench",
+            int(k)))
+    return found

@@ -1,0 +1,180 @@
+"""What every topology module provides, and the small-signal algebra they share.
+
+A topology module turns (stage, vin, load, vout) arrays into
+
+* a :class:`CcmPoint`: the CCM operating point with conduction losses and the
+  coefficients of the two averaged small-signal equations every PWM converter
+  in this package reduces to (inductor loop and output node)::
+
+      (s L + r_series) i  = a_g vg + a_v v + e d                 (1)
+      Y_o(s) v            = b_i i  + b_d d + i_inj               (2)
+
+  where ``Y_o`` is the load conductance plus the output capacitor banks.
+  Eliminating ``i`` gives ``v (Y_o Z_s - a_v b_i) = b_i a_g vg + (b_i e + b_d Z_s) d
+  + Z_s i_inj`` with ``Z_s = s L + r_series``; so Gvd, Gvg and Zout follow
+  for any number of capacitor banks.  This is the averaged-circuit form of
+  Middlebrook and Cuk's state-space averaging (the two are the same first-order
+  average); with ideal parts it reduces to the canonical models of
+  Erickson & Maksimovic, Fundamentals of Power Electronics, 2nd ed., Table 8.2.
+
+* a :class:`DcmPoint`: the DCM operating point and the parameters of the
+  reduced-order averaged switch model of Erickson & Maksimovic ch. 11: the
+  output port is a current ``i2 = g2 vg + j2 d - v/r2`` into the output node,
+  plus the high-frequency pole ``w2 = 2 fsw / D2`` of the full-order model of
+  Sun, Mitchell, Greuel, Krein and Bass, "Averaged modeling of PWM converters
+  operating in discontinuous conduction mode", IEEE TPEL 16(4), 2001 (the
+  inductor-current dynamics left when ``d2`` is eliminated through the
+  current constraint; derived in the topology modules' notes).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..design import Stage
+from ..rational import Rational, TWO_PI, poly_roots_inverse
+
+__all__ = [
+    "CcmPoint",
+    "DcmPoint",
+    "output_admittance",
+    "ccm_transfer_functions",
+    "dcm_transfer_functions",
+    "solve_quadratic_dprime",
+]
+
+
+@dataclass(frozen=True)
+class CcmPoint:
+    """CCM operating point and small-signal coefficients, one entry per corner.
+
+    All arrays have the corners' shape.  ``i_l`` is the average inductor current
+    (flyback: magnetising current seen from the primary); ``ripple`` the
+    inductor current's peak-to-peak ripple; ``out_per_il`` the ratio of output
+    current to inductor current (1 for a buck, D' for a boost...), used for the
+    load at the CCM/DCM boundary.
+    """
+
+    duty: np.ndarray
+    i_l: np.ndarray
+    ripple: np.ndarray
+    out_per_il: np.ndarray
+    l_h: np.ndarray
+    r_series: np.ndarray
+    a_g: np.ndarray
+    a_v: np.ndarray
+    b_i: np.ndarray
+    b_d: np.ndarray
+    e: np.ndarray
+
+
+@dataclass(frozen=True)
+class DcmPoint:
+    """DCM operating point and averaged-switch parameters, one entry per corner.
+
+    ``sign`` is -1 for an inverting output (the switch network's current leaves
+    the output node).  ``d2`` is the rectifier conduction interval as a fraction
+    of the period; ``i_peak`` the inductor peak current.
+    """
+
+    duty: np.ndarray
+    d2: np.ndarray
+    i_peak: np.ndarray
+    j2: np.ndarray
+    g2: np.ndarray
+    r2: np.ndarray
+    sign: float
+
+
+def solve_quadratic_dprime(a: np.ndarray, b: np.ndarray, c: np.ndarray) -> np.ndarray:
+    """Physical root x = D' of ``-a x^2 + b x - c = 0`` (the larger one); NaN if none.
+
+    Boost, buck-boost and flyback steady state with conduction losses take this
+    form (derived in each topology module); with no losses ``c = 0`` and
+    ``x = b / a``, the ideal ratio.
+    """
+    disc = b * b - 4.0 * a * c
+    with np.errstate(invalid="ignore"):
+        return np.where(disc >= 0, (b + np.sqrt(np.maximum(disc, 0.0))) / (2.0 * a), np.nan)
+
+
+def output_admittance(stage: Stage, r_load: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Polynomials of ``Y_o(s) = 1/R + sum_k s C_k / (1 + s ESR_k C_k)``.
+
+    Returns ascending coefficients ``(num, den)`` in s (rad/s): ``num`` is
+    (corners, nb+1), ``den`` (1, nb+1), nb the number of banks.
+    """
+    taus = [b.esr_total * b.c_total for b in stage.output_caps]
+    den = np.array([1.0])
+    for tau in taus:
+        den = np.convolve(den, [1.0, tau])
+    caps = np.zeros_like(den)
+    for k, bank in enumerate(stage.output_caps):
+        term = np.array([0.0, bank.c_total])
+        for j, tau in enumerate(taus):
+            if j != k:
+                term = np.convolve(term, [1.0, tau])
+        caps[: term.size] += term
+    num = den[None, :] / np.asarray(r_load, float)[:, None] + caps[None, :]
+    return num, den[None, :]
+
+
+def _bank_factors(stage: Stage, n: int) -> np.ndarray:
+    """ESR-zero factors ``1 + s ESR C`` of every bank, (n, nb, 2)."""
+    f = np.array([[1.0, b.esr_total * b.c_total] for b in stage.output_caps], dtype=complex)
+    return np.broadcast_to(f, (n,) + f.shape)
+
+
+def _over_char(gain: np.ndarray, num_factors: np.ndarray, char: np.ndarray) -> Rational:
+    """``gain * prod(num factors) / char(s)`` with the characteristic polynomial's roots."""
+    w = poly_roots_inverse(char)
+    den = np.stack([np.ones_like(w), -w], axis=-1)
+    return Rational.from_factors(gain / char[:, 0], num_factors, den)
+
+
+def ccm_transfer_functions(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> tuple[Rational, Rational, Rational]:
+    """Gvd, Gvg and Zout of CCM corners from equations (1) and (2)."""
+    n = op.duty.shape[0]
+    ny, dy = output_admittance(stage, r_load)
+    zs = np.stack([op.r_series, op.l_h], axis=1)  # Req + s L
+    char = np.zeros((n, ny.shape[1] + 1))
+    for k in range(ny.shape[1]):
+        char[:, k] += ny[:, k] * zs[:, 0]
+        char[:, k + 1] += ny[:, k] * zs[:, 1]
+    char[:, : dy.shape[1]] -= (op.a_v * op.b_i)[:, None] * dy
+    banks = _bank_factors(stage, n)
+    # control: (b_i e + b_d Req) + s b_d L: carries the RHP zero of boost-type stages
+    lin = np.stack([op.b_i * op.e + op.b_d * op.r_series, op.b_d * op.l_h], axis=1).astype(complex)
+    lead = lin[:, 0].real
+    lin_norm = np.stack([np.ones(n), lin[:, 1] / lead], axis=1)[:, None, :]
+    gvd = _over_char(lead, np.concatenate([lin_norm, banks], axis=1), char)
+    gvg = _over_char(op.b_i * op.a_g, banks, char)
+    zs_f = np.stack([np.ones(n), op.l_h / op.r_series], axis=1) if np.all(op.r_series > 0) else None
+    if zs_f is not None:
+        zout = _over_char(op.r_series, np.concatenate([zs_f[:, None, :].astype(complex), banks], axis=1), char)
+    else:  # lossless inductor path: Zs = s L has a zero at the origin
+        zs_raw = np.stack([op.r_series, op.l_h], axis=1)[:, None, :].astype(complex)
+        zout = _over_char(np.ones(n), np.concatenate([zs_raw, banks], axis=1), char)
+    return gvd, gvg, zout
+
+
+def dcm_transfer_functions(stage: Stage, op: DcmPoint, r_load: np.ndarray) -> tuple[Rational, Rational, Rational]:
+    """Gvd, Gvg and Zout of DCM corners (averaged switch model plus HF pole)."""
+    n = op.duty.shape[0]
+    ny, dy = output_admittance(stage, r_load)
+    char = ny + dy / op.r2[:, None]
+    banks = _bank_factors(stage, n)
+    w2 = 2.0 * stage.fsw / op.d2  # rad/s
+    hf = np.stack([np.ones(n), 1.0 / w2], axis=1)[:, None, :].astype(complex)
+    base_gvd = _over_char(op.sign * op.j2, banks, char)
+    base_gvg = _over_char(op.sign * op.g2, banks, char)
+    zout = _over_char(np.ones(n), banks, char)
+    pole = Rational.from_factors(np.ones(n), (), hf)
+    return base_gvd * pole, base_gvg * pole, zout
+
+
+def hf_pole_hz(stage: Stage, op: DcmPoint) -> np.ndarray:
+    """The DCM high-frequency pole 2 fsw / D2 (rad/s) expressed in Hz."""
+    return 2.0 * stage.fsw / op.d2 / TWO_PI

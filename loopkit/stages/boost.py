@@ -1,0 +1,61 @@
+"""Boost (step-up), synchronous or with a diode rectifier.
+
+CCM steady state with conduction losses: ``Vg - I (DCR + D Ron + D' Rr) -
+D' (V + VD) = 0`` with ``I = Io / D'``; multiplied by D' it is the quadratic
+``-(V + VD) x^2 + (Vg + Io Ron - Io Rr) x - Io (DCR + Ron) = 0`` in x = D'.
+Small signal: ``a_g = 1``, ``a_v = -D'``, ``b_i = D'``, ``b_d = -I`` and
+``e = V + VD - I (Ron - Rr)``, so Gvd has the right-half-plane zero at
+``(D' e - I Req) / (I L)``, i.e. ``(D'^2 R - Req) / L`` to first order
+(ideal: D'^2 R / L, Erickson & Maksimovic, 2nd ed., Table 8.2).
+
+DCM (diode): on for D Ts at slope Vg/L, off for D2 Ts at (V' - Vg)/L with
+V' = V + VD; the diode current is ``i2 = D^2 Ts Vg^2 / (2 L (V' - Vg))``, which
+gives j2 = 2 Io/D, r2 = Re ((V' - Vg)/Vg)^2, g2 = Vg (2V' - Vg) / (Re (V' - Vg)^2)
+(Erickson & Maksimovic ch. 11, boost row).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..design import Stage
+from .base import CcmPoint, DcmPoint, solve_quadratic_dprime
+
+__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
+
+
+def ideal_ratio(duty):
+    return 1.0 / (1.0 - duty)
+
+
+def range_problem(stage: Stage, vin: np.ndarray, vout: float) -> int | None:
+    bad = np.nonzero(vin >= vout)[0]
+    return int(bad[0]) if bad.size else None
+
+
+def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
+    vg, io, v = np.asarray(vin, float), np.asarray(load, float), float(vout)
+    ron, rr, rl, vd = stage.r_switch, stage.r_rectifier, stage.dcr, stage.vf
+    dp = solve_quadratic_dprime(np.full_like(vg, v + vd), vg + io * ron - io * rr, io * (rl + ron))
+    duty = 1.0 - dp
+    i_l = io / dp
+    n = vg.shape[0]
+    return CcmPoint(
+        duty=duty, i_l=i_l, ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
+        out_per_il=dp, l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr,
+        a_g=np.ones(n), a_v=-dp, b_i=dp, b_d=-i_l, e=v + vd - i_l * (ron - rr),
+    )
+
+
+def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
+    vg = np.asarray(vin, float)
+    v1 = float(vout) + stage.vf
+    io = np.asarray(load, float)
+    ts, lh = 1.0 / stage.fsw, stage.inductance
+    duty = np.sqrt(2.0 * lh * io * (v1 - vg) / (ts * vg**2))
+    re = 2.0 * lh / (duty**2 * ts)
+    return DcmPoint(
+        duty=duty, d2=duty * vg / (v1 - vg), i_peak=vg * duty * ts / lh,
+        j2=2.0 * io / duty, g2=vg * (2.0 * v1 - vg) / (re * (v1 - vg) ** 2),
+        r2=re * ((v1 - vg) / vg) ** 2, sign=1.0,
+    )

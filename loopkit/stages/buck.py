@@ -1,0 +1,64 @@
+"""Buck (step-down), synchronous or with a diode rectifier.
+
+CCM steady state with conduction losses: the inductor loop averaged over a
+period, ``D (Vg - I Ron) - D' (VD + I Rr) - I DCR - V = 0`` with ``I = Io``,
+solved for D.  Small signal: ``a_g = D``, ``a_v = -1``, ``b_i = 1``, ``b_d = 0``
+and ``e = Vg - I (Ron - Rr) + VD`` in the equations of :mod:`.base`.  With
+ideal parts Gvd(0) = V/D and Gvg(0) = D (Erickson & Maksimovic, 2nd ed.,
+Table 8.2).
+
+DCM (diode): the inductor current rises at (Vg - V)/L for D Ts and falls at
+(V + VD)/L for D2 Ts; with Vg' = Vg + VD and V' = V + VD the average inductor
+(= output) current is ``i2 = D^2 Ts Vg' (Vg' - V') / (2 L V')``.  Its partial
+derivatives give j2 = 2 Io / D, r2 = Re (V'/Vg')^2 and g2 = (2 Vg' - V')/(Re V')
+with Re = 2 L / (D^2 Ts), the buck row of Erickson & Maksimovic ch. 11.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..design import Stage
+from .base import CcmPoint, DcmPoint
+
+__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
+
+
+def ideal_ratio(duty):
+    """V/Vg of the ideal stage in CCM."""
+    return duty
+
+
+def range_problem(stage: Stage, vin: np.ndarray, vout: float) -> int | None:
+    """Index of the first input voltage from which this stage cannot make vout."""
+    bad = np.nonzero(vin <= vout)[0]
+    return int(bad[0]) if bad.size else None
+
+
+def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
+    vg, io, v = np.asarray(vin, float), np.asarray(load, float), float(vout)
+    ron, rr, rl, vd = stage.r_switch, stage.r_rectifier, stage.dcr, stage.vf
+    duty = (v + io * (rl + rr) + vd) / (vg - io * (ron - rr) + vd)
+    i_l = io
+    dp = 1.0 - duty
+    ripple = (vg - i_l * (ron + rl) - v) * duty / (stage.inductance * stage.fsw)
+    n = vg.shape[0]
+    return CcmPoint(
+        duty=duty, i_l=i_l, ripple=ripple, out_per_il=np.ones(n),
+        l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr,
+        a_g=duty, a_v=-np.ones(n), b_i=np.ones(n), b_d=np.zeros(n),
+        e=vg - i_l * (ron - rr) + vd,
+    )
+
+
+def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
+    vg1 = np.asarray(vin, float) + stage.vf
+    v1 = float(vout) + stage.vf
+    io = np.asarray(load, float)
+    ts, lh = 1.0 / stage.fsw, stage.inductance
+    duty = np.sqrt(2.0 * lh * io * v1 / (ts * vg1 * (vg1 - v1)))
+    re = 2.0 * lh / (duty**2 * ts)
+    return DcmPoint(
+        duty=duty, d2=duty * (vg1 - v1) / v1, i_peak=(vg1 - v1) * duty * ts / lh,
+        j2=2.0 * io / duty, g2=(2.0 * vg1 - v1) / (re * v1), r2=re * (v1 / vg1) ** 2, sign=1.0,
+    )

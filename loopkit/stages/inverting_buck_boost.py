@@ -1,0 +1,64 @@
+"""Inverting buck-boost: negative output, |V| above or below Vg.
+
+Inductor from the switch node to ground; the switch connects it to Vg for D Ts,
+the rectifier to the (negative) output for D' Ts.  CCM steady state with
+losses, x = D', Io = |V|/R = D' I:
+``-(Vg + |V| + VD) x^2 + (Vg + Io Ron - Io Rr) x - Io (Ron + DCR) = 0``.
+Small signal: ``a_g = D``, ``a_v = D'``, ``b_i = -D'``, ``b_d = +I`` and
+``e = Vg + |V| + VD - I (Ron - Rr)``; Gvd(0) is negative (a rising duty makes
+the output more negative).  Ideal: |Gd0| = |V|/(D D'), RHP zero D'^2 R/(D L)
+(Erickson & Maksimovic, 2nd ed., Table 8.2).
+
+DCM (diode): energy per cycle Vg^2 D^2 Ts/(2L) delivered to V' = |V| + VD:
+``i2 = Vg^2 / (Re V')``; j2 = 2 Io/D, r2 = Re (V'/Vg)^2, g2 = 2 Vg/(Re V')
+(Erickson & Maksimovic ch. 11, buck-boost row); the current leaves the output
+node, so the model's sign is -1.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..design import Stage
+from .base import CcmPoint, DcmPoint, solve_quadratic_dprime
+
+__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
+
+
+def ideal_ratio(duty):
+    return -duty / (1.0 - duty)
+
+
+def range_problem(stage: Stage, vin: np.ndarray, vout: float) -> int | None:
+    return None
+
+
+def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
+    vg, io, vm = np.asarray(vin, float), np.asarray(load, float), abs(float(vout))
+    ron, rr, rl, vd = stage.r_switch, stage.r_rectifier, stage.dcr, stage.vf
+    dp = solve_quadratic_dprime(vg + vm + vd, vg + io * ron - io * rr, io * (ron + rl))
+    duty = 1.0 - dp
+    i_l = io / dp
+    n = vg.shape[0]
+    return CcmPoint(
+        duty=duty, i_l=i_l, ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
+        out_per_il=dp, l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr,
+        a_g=duty, a_v=dp, b_i=-dp, b_d=i_l, e=vg + vm + vd - i_l * (ron - rr),
+    )
+
+
+def energy_dcm(vg, v1, io, lh, ts, d2_per_d) -> DcmPoint:
+    """DCM point of a stage that stores Vg^2 D^2 Ts/(2L) and releases it all to V'."""
+    duty = np.sqrt(2.0 * lh * io * v1 / (ts * vg**2))
+    re = 2.0 * lh / (duty**2 * ts)
+    return DcmPoint(
+        duty=duty, d2=duty * d2_per_d, i_peak=vg * duty * ts / lh,
+        j2=2.0 * io / duty, g2=2.0 * vg / (re * v1), r2=re * (v1 / vg) ** 2, sign=1.0,
+    )
+
+
+def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
+    vg = np.asarray(vin, float)
+    v1 = abs(float(vout)) + stage.vf
+    point = energy_dcm(vg, v1, np.asarray(load, float), stage.inductance, 1.0 / stage.fsw, vg / v1)
+    return DcmPoint(**{**point.__dict__, "sign": -1.0})
