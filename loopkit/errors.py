@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-__all__ = ["DesignError", "DesignFileError", "Finding", "InfeasibleDesign"]
+__all__ = ["DesignError", "DesignFileError", "Finding", "InfeasibleDesign", "LoopkitWarning"]
 
 
 class DesignError(ValueError):
@@ -74,3 +74,7 @@ class Finding:
     message: str
     corner: int | None = None
     severity: str = "warning"
+
+
+class LoopkitWarning(UserWarning):
+    """Python warning category for loopkit's own runtime warnings (tests make them errors)."""

@@ -1,0 +1,28 @@
+"""Test set-up: Qt offscreen before anything imports Qt; shared fixtures."""
+
+import os
+import shutil
+from pathlib import Path
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+
+import pytest  # noqa: E402
+
+ROOT = Path(__file__).resolve().parents[1]
+SAMPLES = sorted((ROOT / "sample_designs").glob("*.toml"))
+
+
+def pytest_collection_modifyitems(config, items):
+    if shutil.which("ngspice"):
+        return
+    if os.environ.get("CI"):
+        return  # in CI a missing ngspice must fail, not skip
+    skip = pytest.mark.skip(reason="ngspice not installed (.ci/run installs it)")
+    for item in items:
+        if "ngspice" in item.keywords:
+            item.add_marker(skip)
+
+
+@pytest.fixture(params=SAMPLES, ids=[p.stem for p in SAMPLES])
+def sample_path(request):
+    return request.param
