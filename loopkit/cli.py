@@ -1,0 +1,432 @@
+"""The ``loopkit`` command line: tables, CSV and JSON from the one design path.
+
+Subcommands::
+
+    loopkit stage FILE                      power stage at every corner
+    loopkit bode FILE --plant|--loop|--compensator [--csv OUT]
+    loopkit design FILE [--fc 20k] [--pm 60] [--type 2|3] [--json] [--write]
+    loopkit export FILE [--bom OUT.csv] [--spice OUT.cir] [--json OUT.json]
+    loopkit gui [FILE]
+
+Every command calls the same library path as the app and the tests
+(:func:`loopkit.analyse_stage`, :func:`loopkit.loop.design_loop`).  Bad input
+ends with exit status 2 and one line on stderr naming the field, the value
+and what is allowed; never a traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import io
+import json
+import os
+import sys
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .design import NETWORKS, Design
+from .designfile import load_design, save_design
+from .errors import DesignError, DesignFileError
+from .powerstage import StageResult, analyse_stage
+from .tables import EMPTY, Column, format_table, wrap_note
+from .units import format_value, parse_value
+
+__all__ = ["main", "build_parser", "CAUTION", "stage_report", "bode_table", "corner_name"]
+
+#: One-line caution carried by every output that reports results.
+CAUTION = "Caution: design aid only; verify on the bench; mains/HV needs licensed review."
+
+SERIES = ("E6", "E12", "E24", "E48", "E96", "E192", "none")
+
+#: Exit status for bad input (argparse uses the same).
+EXIT_BAD_INPUT = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse, but a usage error is one line on stderr, not usage plus message."""
+
+    def error(self, message: str):  # noqa: D401 - argparse API
+        self.exit(EXIT_BAD_INPUT, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
+# ---------------------------------------------------------------------- formatting
+_ASCII = False  # set by main() when stdout cannot encode "µ"
+
+
+def _fmt(value: float, unit: str = "", digits: int = 3) -> str:
+    """Engineering notation for a table cell; ``-`` where the quantity does not apply."""
+    if value is None or not np.isfinite(value):
+        return EMPTY
+    return format_value(float(value), unit, digits=digits, ascii_only=_ASCII)
+
+
+def _plain(value: float, fmt: str) -> str:
+    return EMPTY if value is None or not np.isfinite(value) else format(float(value), fmt)
+
+
+def corner_name(vin: float, load: float) -> str:
+    """Corner name used in CSV headers: ``"vin=12V load=1.5A"`` (ASCII)."""
+    return f"vin={format_value(float(vin), 'V', 4, True)} load={format_value(float(load), 'A', 4, True)}"
+
+
+def _mode_text(stage: StageResult, k: int) -> str:
+    sub = stage.submode[k]
+    mode = str(stage.mode[k])
+    return f"{mode} {'trans' if sub == 'transition' else sub}" if sub else mode
+
+
+def _findings_text(findings, stage: StageResult) -> list[str]:
+    """Each finding once, with its corner."""
+    seen, lines = set(), []
+    for f in findings:
+        key = (f.code, f.message, f.corner)
+        if key in seen:
+            continue
+        seen.add(key)
+        where = f"#{f.corner}" if f.corner is not None else "all"
+        lines.append(wrap_note(f"{f.message} [{f.code}]", first=f"  {where:>4} {f.severity}: "))
+    return lines
+
+
+def _design_header(design: Design, path: str) -> list[str]:
+    st, op = design.stage, design.operating
+    caps = " + ".join(
+        f"{b.count}x{_fmt(b.capacitance, 'F')}" + (f" ESR {_fmt(b.esr, 'Ω' if not _ASCII else 'ohm')}" if b.esr else "")
+        for b in st.output_caps
+    )
+    lines = [design.title or Path(path).stem, f"file: {path}"]
+    extra = f", n = {st.turns_ratio:g}:1" if st.topology == "flyback" else ""
+    lines.append(wrap_note(
+        f"{st.topology}, Vout {_fmt(op.vout, 'V')}, fsw {_fmt(st.fsw, 'Hz')}, L {_fmt(st.inductance, 'H')}{extra}, "
+        f"Cout {caps}, {st.rectifier} rectifier, light load {st.light_load}"))
+    return lines
+
+
+def stage_report(design: Design, stage: StageResult, path: str = "") -> str:
+    """The ``loopkit stage`` text: one row per corner, legend, warnings, caution."""
+    n = stage.n_corners
+    warned = {f.corner for f in stage.findings if f.severity == "warning"}
+    any_ccm, any_dcm = bool(np.any(~stage.dcm)), bool(np.any(stage.dcm))
+    has_esr = bool(np.any(np.isfinite(stage.f_esr_hz)))
+    cols = [Column("#", "", "<"), Column("Vin", "V"), Column("Load", "A"), Column("Duty", "%"), Column("Mode", "", "<"),
+            Column("Ripple", "A pp")]
+    if any_ccm:
+        cols += [Column("f0", "Hz"), Column("Q")]
+    if any_dcm:
+        cols += [Column("fp", "Hz"), Column("fhf", "Hz")]
+    if has_esr:
+        cols.append(Column("ESR zero", "Hz"))
+    cols.append(Column("RHP zero", "Hz"))
+    rows = []
+    for k in range(n):
+        row = [f"{k:>{len(str(n - 1))}}{'!' if k in warned else ''}", _fmt(stage.vin[k]), _fmt(stage.load[k]),
+               _plain(100.0 * stage.duty[k], ".1f"), _mode_text(stage, k), _fmt(stage.ripple_pp[k])]
+        if any_ccm:
+            row += [_fmt(stage.f0_hz[k]), _plain(stage.q[k], ".3g")]
+        if any_dcm:
+            row += [_fmt(stage.fp_hz[k]), _fmt(stage.f_hf_hz[k])]
+        if has_esr:
+            zs = sorted(z for z in stage.f_esr_hz[k] if np.isfinite(z))
+            row.append(",".join(_fmt(z) for z in zs) or EMPTY)
+        row.append(_fmt(stage.f_rhp_hz[k]))
+        rows.append(row)
+    out = _design_header(design, path) + [""] if path or design.title else []
+    out.append(format_table(cols, rows))
+    legend = ["Ripple: inductor current peak to peak" + (" (DCM: its peak)" if any_dcm else "") + "."]
+    if design.stage.topology == "flyback":
+        legend.append("Flyback: Vin and ripple on the primary side (magnetising current).")
+    if design.stage.topology == "four-switch-buck-boost":
+        legend.append("Duty: of the leg that switches (buck leg in buck mode, boost leg in boost mode).")
+    if any_ccm:
+        legend.append("f0, Q: CCM double pole.")
+    if any_dcm:
+        legend.append("fp, fhf: DCM output pole and high-frequency pole.")
+    if has_esr:
+        legend.append("ESR zero: one per capacitor bank.")
+    legend.append("RHP zero: right-half-plane zero of Gvd.")
+    if np.any(stage.submode == "transition"):
+        legend.append("trans: four-switch transition band.")
+    legend.append(f"{EMPTY}: does not apply." + (" !: see warnings." if warned else ""))
+    out.append(wrap_note(" ".join(legend)))
+    notes = _findings_text(stage.findings, stage)
+    if notes:
+        out += ["", "Warnings and notes:"] + notes
+    out += ["", CAUTION]
+    return "\n".join(out)
+
+
+# ---------------------------------------------------------------------- bode
+def _grid(args, design: Design, default_fmax: float) -> np.ndarray:
+    fmin = parse_value(args.fmin, "--fmin", "Hz") if args.fmin is not None else 10.0
+    fmax = parse_value(args.fmax, "--fmax", "Hz") if args.fmax is not None else default_fmax
+    if not fmin > 0:
+        raise DesignError("--fmin", args.fmin, "must be > 0 Hz")
+    if not fmax > fmin:
+        raise DesignError("--fmax", args.fmax if args.fmax is not None else _fmt(fmax, "Hz"),
+                          f"must be above --fmin ({_fmt(fmin, 'Hz')})")
+    if not 2 <= args.points <= 100_000:
+        raise DesignError("--points", args.points, "must be a whole number from 2 to 100000")
+    return np.geomspace(fmin, fmax, args.points)
+
+
+def bode_table(f_hz: np.ndarray, curves: list[tuple[str, np.ndarray, np.ndarray]]) -> str:
+    """CSV text: ``f_hz`` then, per curve, ``<name> mag_db`` and ``<name> phase_deg``.
+
+    ``curves`` holds (name, mag_db (nf,), phase_deg (nf,)) per column set.
+    """
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    header = ["f_hz"]
+    for name, _, _ in curves:
+        header += [f"{name} mag_db", f"{name} phase_deg"]
+    writer.writerow(header)
+    for i, f in enumerate(f_hz):
+        row = [f"{f:.10g}"]
+        for _, mag, ph in curves:
+            row += [f"{mag[i]:.6g}", f"{ph[i]:.6g}"]
+        writer.writerow(row)
+    return buf.getvalue()
+
+
+def _corner_names(stage: StageResult) -> list[str]:
+    names = [corner_name(v, i) for v, i in zip(stage.vin, stage.load)]
+    if len(set(names)) < len(names):  # values too close to tell apart at 4 digits
+        names = [f"#{k} {name}" for k, name in enumerate(names)]
+    return names
+
+
+def _cmd_bode(args) -> int:
+    design = load_design(args.file)
+    kinds = [k for k in ("plant", "loop", "compensator") if getattr(args, k)] or ["plant"]
+    f_hz = _grid(args, design, design.stage.fsw / 2.0)
+    stage = analyse_stage(design)
+    names = _corner_names(stage)
+    curves = []
+    result = None
+    if "loop" in kinds or "compensator" in kinds:
+        result = _loop_result(design, args, f_hz)
+    for kind in kinds:
+        prefix = f"{kind} " if len(kinds) > 1 else ""
+        if kind == "compensator":
+            mag, ph = result.compensator.bode(f_hz)
+            curves.append((f"{prefix}compensator".strip(), mag[0], ph[0]))
+            continue
+        tf = stage.gvd if kind == "plant" else result.loop
+        mag, ph = tf.bode(f_hz)
+        curves += [(f"{prefix}{name}", mag[k], ph[k]) for k, name in enumerate(names)]
+    text = bode_table(f_hz, curves)
+    if args.csv in (None, "-"):
+        sys.stdout.write(text)
+        return 0
+    _write_text(args.csv, text)
+    what = " + ".join(kinds)
+    print(f"wrote {args.csv}: {what}, {len(curves)} column sets x {f_hz.size} frequencies "
+          f"({_fmt(f_hz[0], 'Hz')} to {_fmt(f_hz[-1], 'Hz')})")
+    print(CAUTION)
+    return 0
+
+
+def _write_text(path: str, text: str) -> None:
+    Path(path).write_text(text, encoding="utf-8")
+
+
+# ---------------------------------------------------------------------- loop (design, export)
+def _targets(design: Design, args):
+    """Targets from the design file with the command-line overrides; None when nothing is overridden."""
+    from .loop import Targets
+
+    changes = {}
+    if getattr(args, "fc", None) is not None:
+        changes["fc_hz"] = parse_value(args.fc, "--fc", "Hz")
+        if not changes["fc_hz"] > 0:
+            raise DesignError("--fc", args.fc, "must be > 0 Hz")
+    if getattr(args, "pm", None) is not None:
+        pm = parse_value(args.pm, "--pm", "deg")
+        if not 0 < pm < 180:
+            raise DesignError("--pm", args.pm, "must be between 0 and 180 deg")
+        changes["pm_deg"] = pm
+    if getattr(args, "network", None) is not None:
+        changes["network"] = args.network
+    elif getattr(args, "type", None) is not None:
+        changes["network"] = f"type{args.type}"
+    series = getattr(args, "series", None)
+    if series is not None:
+        changes["resistor_series"] = changes["capacitor_series"] = series
+    if getattr(args, "resistor_series", None) is not None:
+        changes["resistor_series"] = args.resistor_series
+    if getattr(args, "capacitor_series", None) is not None:
+        changes["capacitor_series"] = args.capacitor_series
+    if getattr(args, "corner", None) is not None:
+        if args.corner != "worst":
+            try:
+                corner = int(args.corner)
+            except ValueError:
+                raise DesignError("--corner", args.corner, "must be 'worst' or a corner index") from None
+            if not 0 <= corner < design.operating.n_corners:
+                raise DesignError("--corner", args.corner, f"must be from 0 to {design.operating.n_corners - 1}")
+            changes["design_corner"] = corner
+        else:
+            changes["design_corner"] = None
+    if not changes and not getattr(args, "synthesise", False):
+        return None
+    return replace(Targets.from_design(design), **changes)
+
+
+def _loop_result(design: Design, args, f_hz=None):
+    from .loop import design_loop
+
+    return design_loop(design, _targets(design, args), f_hz=f_hz)
+
+
+def _add_target_options(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group("targets (default: the design file's [compensator] table)")
+    g.add_argument("--fc", help="target crossover frequency, e.g. 20k (Hz)")
+    g.add_argument("--pm", help="target phase margin, deg, e.g. 60")
+    g.add_argument("--type", choices=("1", "2", "3"), help="op-amp network Type I, II or III")
+    g.add_argument("--network", choices=NETWORKS, help="network by name (overrides --type)")
+    g.add_argument("--series", choices=SERIES, help="E-series for resistors and capacitors")
+    g.add_argument("--resistor-series", choices=SERIES, help="E-series for resistors (default E96)")
+    g.add_argument("--capacitor-series", choices=SERIES, help="E-series for capacitors (default E12)")
+    g.add_argument("--corner", help="corner index to design at, or 'worst' (default)")
+    g.add_argument("--synthesise", action="store_true",
+                   help="synthesise new parts even when the design file gives [compensator.parts]")
+
+
+def _cmd_design(args) -> int:
+    from .report import design_document, design_text
+
+    design = load_design(args.file)
+    result = _loop_result(design, args)
+    if args.json:
+        print(json.dumps(design_document(result, args.file), indent=2, allow_nan=False))
+    else:
+        print(design_text(result, args.file))
+    if args.write:
+        if not result.feasible:
+            raise DesignError("--write", args.file, "no parts to write: the targets are not feasible (see warnings)")
+        from .loop import apply_parts
+
+        save_design(apply_parts(design, result), args.file)
+        print(f"saved the parts and targets to {args.file}", file=sys.stderr if args.json else sys.stdout)
+    return 0
+
+
+def _cmd_export(args) -> int:
+    from . import export
+
+    if not (args.bom or args.spice or args.json):
+        raise DesignError("export", "(nothing chosen)", "give --bom, --spice and/or --json with a file name")
+    design = load_design(args.file)
+    result = _loop_result(design, args)
+    if not result.feasible:
+        raise DesignError("export", args.file, "no parts to export: the targets are not feasible "
+                          "(run loopkit design to see why)")
+    written = []
+    for path, writer in ((args.bom, export.bom_csv), (args.spice, export.spice_netlist),
+                         (args.json, export.results_json)):
+        if path:
+            _write_text(path, writer(result))
+            written.append(path)
+    print(f"wrote {', '.join(written)}")
+    print(CAUTION)
+    return 0
+
+
+def _cmd_stage(args) -> int:
+    design = load_design(args.file)
+    print(stage_report(design, analyse_stage(design), args.file))
+    return 0
+
+
+def _cmd_gui(args) -> int:
+    try:
+        from app.main import main as app_main  # lazy: Qt only for this command
+    except ImportError as exc:
+        raise DesignError("gui", "app", f"the desktop app cannot start: {exc}") from None
+    sys.argv = ["loopkit-gui"] + ([args.file] if args.file else [])
+    return int(app_main() or 0)
+
+
+# ---------------------------------------------------------------------- parser
+def build_parser() -> argparse.ArgumentParser:
+    """The argparse parser of the ``loopkit`` command."""
+    parser = _Parser(prog="loopkit", description="Design and verify the feedback loop of a switching "
+                     "DC-DC converter at every operating corner. " + CAUTION)
+    parser.add_argument("--version", action="version", version=f"loopkit {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    p = sub.add_parser("stage", help="power stage at every corner: duty, mode, ripple, poles, zeros")
+    p.add_argument("file", metavar="FILE", help="design file (TOML)")
+    p.set_defaults(run=_cmd_stage)
+
+    p = sub.add_parser("bode", help="Bode data (Hz, dB, deg) per corner as CSV")
+    p.add_argument("file", metavar="FILE", help="design file (TOML)")
+    p.add_argument("--plant", action="store_true", help="control-to-output Gvd of the power stage (the default)")
+    p.add_argument("--loop", action="store_true", help="loop gain T with the snapped parts")
+    p.add_argument("--compensator", action="store_true", help="the compensator network (snapped parts)")
+    p.add_argument("--csv", metavar="OUT", help="CSV file to write ('-' or none: standard output)")
+    p.add_argument("--points", type=int, default=1000, help="number of log-spaced frequencies (default 1000)")
+    p.add_argument("--fmin", help="lowest frequency, e.g. 10 (Hz, default 10)")
+    p.add_argument("--fmax", help="highest frequency, e.g. 1M (Hz, default fsw/2)")
+    _add_target_options(p)
+    p.set_defaults(run=_cmd_bode)
+
+    p = sub.add_parser("design", help="synthesise the compensator; parts, margins at every corner")
+    p.add_argument("file", metavar="FILE", help="design file (TOML)")
+    _add_target_options(p)
+    p.add_argument("--json", action="store_true", help="print one JSON document instead of tables")
+    p.add_argument("--write", action="store_true", help="save the parts and targets back into FILE")
+    p.set_defaults(run=_cmd_design)
+
+    p = sub.add_parser("export", help="hand-off files: BOM (CSV), SPICE netlist, results (JSON)")
+    p.add_argument("file", metavar="FILE", help="design file (TOML)")
+    p.add_argument("--bom", metavar="OUT.csv", help="bill of materials")
+    p.add_argument("--spice", metavar="OUT.cir", help="ngspice netlist of the network (nodes in, out)")
+    p.add_argument("--json", metavar="OUT.json", help="results document")
+    _add_target_options(p)
+    p.set_defaults(run=_cmd_export)
+
+    p = sub.add_parser("gui", help="open the desktop app")
+    p.add_argument("file", metavar="FILE", nargs="?", help="design file to open")
+    p.set_defaults(run=_cmd_gui)
+    return parser
+
+
+def _stdout_can(text: str) -> bool:
+    try:
+        text.encode(sys.stdout.encoding or "ascii")
+    except (UnicodeEncodeError, LookupError):
+        return False
+    return True
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the command line; returns the exit status (0 success, 2 bad input)."""
+    global _ASCII
+    _ASCII = not _stdout_can("µΩ")
+    args = build_parser().parse_args(argv)
+    try:
+        return args.run(args)
+    except DesignFileError as exc:
+        print(f"loopkit {args.command}: error: {exc}", file=sys.stderr)
+    except DesignError as exc:  # found after loading (e.g. a corner the stage cannot reach): name the file
+        where = "" if exc.field.startswith("--") or not getattr(args, "file", None) else f"{args.file}: "
+        print(f"loopkit {args.command}: error: {where}{exc}", file=sys.stderr)
+    except BrokenPipeError:  # e.g. piped into head: stop quietly
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
+    except OSError as exc:
+        where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
+        print(f"loopkit {args.command}: error: {where}{exc.strerror or exc}", file=sys.stderr)
+    except KeyboardInterrupt:
+        return 130
+    return EXIT_BAD_INPUT
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,217 @@
+"""The command line: tables, CSV and JSON agree with the library; bad input is one line.
+
+What is checked here is presentation: that each printed number is the
+library's own number (the library's numbers are checked against outside
+references in the other test files), that the layout fits 80 columns, that
+the CSV has the promised header and shape, and that bad input ends with a
+non-zero exit and one line naming the field.  One check goes outside the
+project: the Bode CSV against python-control's frequency response of the
+same transfer functions.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from loopkit import analyse_stage, format_value, load_design
+from loopkit.cli import CAUTION, main
+
+ROOT = Path(__file__).resolve().parents[1]
+BUCK = ROOT / "sample_designs" / "buck_24v_3v3.toml"
+
+
+def run(capsys, *argv) -> tuple[int, str, str]:
+    code = main([str(a) for a in argv])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def _table_rows(text: str) -> tuple[list[str], list[list[str]]]:
+    """Header titles and whitespace-split rows of the first table in ``text``."""
+    lines = text.splitlines()
+    start = next(i for i, line in enumerate(lines) if line.startswith("#"))
+    titles = lines[start].split()
+    rows = []
+    for line in lines[start + 2:]:
+        if not line.strip() or not line.lstrip()[0].isdigit():
+            break
+        rows.append(line.split())
+    return titles, rows
+
+
+def _fmt(x: float) -> str:
+    return format_value(float(x)) if np.isfinite(x) else "-"
+
+
+# ---------------------------------------------------------------------- stage
+def test_stage_table_matches_analyse_stage(capsys, sample_path):
+    code, out, err = run(capsys, "stage", sample_path)
+    assert code == 0 and err == ""
+    stage = analyse_stage(load_design(sample_path))
+    titles, rows = _table_rows(out)
+    assert titles[:5] == ["#", "Vin", "Load", "Duty", "Mode"]
+    assert len(rows) == stage.n_corners
+    for k, cells in enumerate(rows):
+        assert cells[0].rstrip("!") == str(k)
+        assert cells[1] == format_value(stage.vin[k])
+        assert cells[2] == format_value(stage.load[k])
+        assert cells[3] == f"{100 * stage.duty[k]:.1f}"
+        mode = [str(stage.mode[k])]
+        if stage.submode[k]:
+            mode.append("trans" if stage.submode[k] == "transition" else str(stage.submode[k]))
+        assert cells[4:4 + len(mode)] == mode
+        rest = cells[4 + len(mode):]
+        assert rest[0] == _fmt(stage.ripple_pp[k])
+        assert rest[-1] == _fmt(stage.f_rhp_hz[k])  # RHP zero is the last column
+        col = dict(zip(titles[6:], rest[1:]))  # titles after Ripple; "ESR zero", "RHP zero" are two words
+        if "f0" in col:
+            assert col["f0"] == _fmt(stage.f0_hz[k])
+            assert col["Q"] == (f"{stage.q[k]:.3g}" if np.isfinite(stage.q[k]) else "-")
+        if "fp" in col:
+            assert col["fp"] == _fmt(stage.fp_hz[k])
+            assert col["fhf"] == _fmt(stage.f_hf_hz[k])
+        esr = sorted(z for z in stage.f_esr_hz[k] if np.isfinite(z))
+        if esr:
+            assert ",".join(format_value(z) for z in esr) in rest
+    # every finding once, with its corner; rows with a warning carry "!"
+    for f in stage.findings:
+        assert out.count(f"[{f.code}]") >= 1
+        assert f"#{f.corner} {f.severity}:" in out
+    warned = {f.corner for f in stage.findings if f.severity == "warning"}
+    assert {k for k, cells in enumerate(rows) if cells[0].endswith("!")} == warned
+    assert out.rstrip().splitlines()[-1] == CAUTION
+    assert max(len(line) for line in out.splitlines()) <= 80
+
+
+def test_stage_findings_printed_once(capsys):
+    path = ROOT / "sample_designs" / "fourswitch_automotive_9v.toml"
+    stage = analyse_stage(load_design(path))
+    assert stage.findings, "this sample has duty-limit and transition-band warnings"
+    _, out, _ = run(capsys, "stage", path)
+    notes = out.split("Warnings and notes:")[1]
+    assert notes.count("[duty-limit]") == sum(f.code == "duty-limit" for f in stage.findings)
+    assert notes.count("[transition-band]") == sum(f.code == "transition-band" for f in stage.findings)
+
+
+# ---------------------------------------------------------------------- bode
+def _read_csv(text: str) -> tuple[list[str], np.ndarray]:
+    rows = list(csv.reader(io.StringIO(text)))
+    return rows[0], np.array(rows[1:], dtype=float)
+
+
+def test_bode_plant_csv_header_shape_and_values(capsys, sample_path, tmp_path):
+    out_csv = tmp_path / "plant.csv"
+    code, out, err = run(capsys, "bode", sample_path, "--plant", "--csv", out_csv, "--points", 200,
+                         "--fmin", "20", "--fmax", "200k")
+    assert code == 0 and err == ""
+    assert CAUTION in out
+    header, data = _read_csv(out_csv.read_text())
+    stage = analyse_stage(load_design(sample_path))
+    n = stage.n_corners
+    assert len(header) == 1 + 2 * n and data.shape == (200, 1 + 2 * n)
+    assert header[0] == "f_hz"
+    for k in range(n):
+        name = f"vin={format_value(stage.vin[k], 'V', 4, True)} load={format_value(stage.load[k], 'A', 4, True)}"
+        assert header[1 + 2 * k] == f"{name} mag_db"
+        assert header[2 + 2 * k] == f"{name} phase_deg"
+    f = data[:, 0]
+    np.testing.assert_allclose(f, np.geomspace(20.0, 200e3, 200), rtol=1e-5)
+    mag, ph = stage.gvd.bode(f)
+    np.testing.assert_allclose(data[:, 1::2].T, mag, rtol=1e-5, atol=1e-4)
+    np.testing.assert_allclose(data[:, 2::2].T, ph, rtol=1e-5, atol=1e-3)
+    # continuous phase: no wrap jumps between neighbouring points
+    assert np.max(np.abs(np.diff(data[:, 2::2], axis=0))) < 90.0
+
+
+def test_bode_csv_against_python_control(capsys):
+    """python-control's frequency_response of the converted Gvd gives the same dB and degrees (mod 360)."""
+    import control
+
+    code, out, _ = run(capsys, "bode", BUCK, "--plant", "--points", 60, "--fmin", "100", "--fmax", "100k")
+    assert code == 0
+    header, data = _read_csv(out)
+    stage = analyse_stage(load_design(BUCK))
+    f = data[:, 0]
+    for k in range(stage.n_corners):
+        resp = control.frequency_response(stage.gvd.to_control(k), 2 * np.pi * f)
+        mag_db = 20 * np.log10(np.abs(resp.complex))
+        np.testing.assert_allclose(data[:, 1 + 2 * k], mag_db, atol=1e-3)
+        diff = (data[:, 2 + 2 * k] - np.degrees(np.angle(resp.complex)) + 180.0) % 360.0 - 180.0
+        np.testing.assert_allclose(diff, 0.0, atol=1e-3)
+
+
+def test_bode_defaults_to_plant_and_stdout(capsys):
+    code, out, _ = run(capsys, "bode", BUCK, "--points", 7)
+    assert code == 0
+    header, data = _read_csv(out)
+    assert data.shape == (7, 1 + 2 * 12)
+    fsw = load_design(BUCK).stage.fsw
+    np.testing.assert_allclose(data[[0, -1], 0], [10.0, fsw / 2], rtol=1e-5)
+
+
+# ---------------------------------------------------------------------- bad input
+def _bad_design(tmp_path, old: str, new: str) -> Path:
+    path = tmp_path / "bad.toml"
+    path.write_text(BUCK.read_text().replace(old, new, 1))
+    return path
+
+
+@pytest.mark.parametrize("case, argv, expected", [
+    ("missing file", ["stage", "no/such/design.toml"], ["no/such/design.toml", "cannot be read"]),
+    ("bad frequency", ["bode", str(BUCK), "--fmin", "abc"], ["--fmin", "abc"]),
+    ("fmax below fmin", ["bode", str(BUCK), "--fmin", "10k", "--fmax", "1k"], ["--fmax", "1k", "above"]),
+    ("too few points", ["bode", str(BUCK), "--points", "1"], ["--points", "1"]),
+    ("unknown command", ["nonsense"], ["nonsense"]),
+    ("no file", ["stage"], ["FILE"]),
+])
+def test_bad_arguments_one_line(capsys, case, argv, expected):
+    try:
+        code = main(argv)
+    except SystemExit as exc:  # argparse's own errors
+        code = exc.code
+    out, err = capsys.readouterr()
+    assert code == 2, case
+    assert out == ""
+    assert err.count("\n") == 1 and "Traceback" not in err, err
+    for word in expected:
+        assert word in err, (case, err)
+
+
+@pytest.mark.parametrize("case, old, new, expected", [
+    ("bad value", 'inductance = "4.7u"', 'inductance = "-4.7u"', ["stage.inductance", "-4.7", "> 0"]),
+    ("not a number", 'fsw = "400k"', 'fsw = "fast"', ["stage.fsw", "fast"]),
+    ("unknown key", 'dcr = "14m"', 'dcr = "14m"\ncolour = "blue"', ["stage.colour", "unknown key", "allowed"]),
+    ("bad topology", 'topology = "buck"', 'topology = "bucky"', ["stage.topology", "bucky", "buck"]),
+    ("wrong direction", 'vin_min = "18"', 'vin_min = "2"', ["operating.vin", "cannot make"]),
+])
+def test_bad_design_file_one_line(capsys, tmp_path, case, old, new, expected):
+    path = _bad_design(tmp_path, old, new)
+    for command in ("stage", "bode"):
+        code, out, err = run(capsys, command, path)
+        assert code == 2, case
+        assert out == ""
+        assert err.count("\n") == 1 and "Traceback" not in err, err
+        assert str(path) in err
+        for word in expected:
+            assert word in err, (case, err)
+
+
+def test_console_script_path_has_no_traceback(tmp_path):
+    """Through a real interpreter: exit status and stderr as a shell sees them."""
+    path = _bad_design(tmp_path, 'r_switch = "25m"', 'r_switch = "25 parsecs"')
+    proc = subprocess.run([sys.executable, "-m", "loopkit.cli", "stage", str(path)], capture_output=True,
+                          text=True, timeout=60)
+    assert proc.returncode == 2
+    assert proc.stdout == ""
+    assert "Traceback" not in proc.stderr and proc.stderr.count("\n") == 1
+    assert "stage.r_switch" in proc.stderr
+    ok = subprocess.run([sys.executable, "-m", "loopkit.cli", "stage", str(BUCK)], capture_output=True,
+                        text=True, timeout=60)
+    assert ok.returncode == 0 and "Duty" in ok.stdout
