@@ -12,10 +12,21 @@ A topology module turns (stage, vin, load, vout) arrays into
   where ``Y_o`` is the load conductance plus the output capacitor banks.
   Eliminating ``i`` gives ``v (Y_o Z_s - a_v b_i) = b_i a_g vg + (b_i e + b_d Z_s) d
   + Z_s i_inj`` with ``Z_s = s L + r_series``; so Gvd, Gvg and Zout follow
-  for any number of capacitor banks.  This is the averaged-circuit form of
-  Middlebrook and Cuk's state-space averaging (the two are the same first-order
-  average); with ideal parts it reduces to the canonical models of
-  Erickson & Maksimovic, Fundamentals of Power Electronics, 2nd ed., Table 8.2.
+  for any number of capacitor banks.  With ideal parts it reduces to the
+  canonical models of Erickson & Maksimovic, Fundamentals of Power
+  Electronics, 2nd ed., Table 8.2.
+
+  Equation (1) is the state-space average of Middlebrook and Cuk, "A general
+  unified approach to modelling switching-converter power stages", IEEE PESC
+  1976, not the naive average of the switched circuit: where the output node
+  receives a pulsed current (boost, buck-boost, flyback: ``delta i`` in one
+  interval, nothing in the other) and every capacitor bank has ESR, the
+  output-node voltage the inductor sees jumps by ``delta i Rp`` between the
+  intervals, with ``Rp = R || ESR_1 || ESR_2 ...``.  Averaging the switched
+  equations exactly gives the extra series resistance ``D D' k^2 Rp`` in (1)
+  (k the current ratio: 1, or n for the flyback) and, because it depends on
+  the duty, ``-(1 - 2D) k^2 Rp I`` in ``e``; see :func:`pulsed_esr_resistance`.
+  The buck's output current is not pulsed, so it has no such term.
 
 * a :class:`DcmPoint`: the DCM operating point and the parameters of the
   reduced-order averaged switch model of Erickson & Maksimovic ch. 11: the
@@ -40,6 +51,7 @@ __all__ = [
     "CcmPoint",
     "DcmPoint",
     "output_admittance",
+    "pulsed_esr_resistance",
     "ccm_transfer_functions",
     "dcm_transfer_functions",
     "solve_quadratic_dprime",
@@ -98,6 +110,21 @@ def solve_quadratic_dprime(a: np.ndarray, b: np.ndarray, c: np.ndarray) -> np.nd
     disc = b * b - 4.0 * a * c
     with np.errstate(invalid="ignore"):
         return np.where(disc >= 0, (b + np.sqrt(np.maximum(disc, 0.0))) / (2.0 * a), np.nan)
+
+
+def pulsed_esr_resistance(stage: Stage, r_load: np.ndarray) -> np.ndarray:
+    """``Rp = R || ESR_1 || ESR_2 ...``: what a pulsed output-node current sees, ohm.
+
+    Zero when any bank has no ESR (that bank holds the node voltage).  A stage
+    that feeds the output node ``k i`` during D' Ts only adds ``D D' k^2 Rp`` to
+    its averaged series resistance (Middlebrook and Cuk, 1976: the boost with
+    capacitor ESR; derived in the notes of this module).
+    """
+    r_load = np.asarray(r_load, float)
+    if any(b.esr_total == 0 for b in stage.output_caps):
+        return np.zeros_like(r_load)
+    g = 1.0 / r_load + sum(1.0 / b.esr_total for b in stage.output_caps)
+    return 1.0 / g
 
 
 def output_admittance(stage: Stage, r_load: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

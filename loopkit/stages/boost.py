@@ -1,11 +1,14 @@
 """Boost (step-up), synchronous or with a diode rectifier.
 
-CCM steady state with conduction losses: ``Vg - I (DCR + D Ron + D' Rr) -
-D' (V + VD) = 0`` with ``I = Io / D'``; multiplied by D' it is the quadratic
-``-(V + VD) x^2 + (Vg + Io Ron - Io Rr) x - Io (DCR + Ron) = 0`` in x = D'.
-Small signal: ``a_g = 1``, ``a_v = -D'``, ``b_i = D'``, ``b_d = -I`` and
-``e = V + VD - I (Ron - Rr)``, so Gvd has the right-half-plane zero at
-``(D' e - I Req) / (I L)``, i.e. ``(D'^2 R - Req) / L`` to first order
+CCM steady state with conduction losses: ``Vg - I (DCR + D Ron + D' Rr +
+D D' Rp) - D' (V + VD) = 0`` with ``I = Io / D'`` and ``Rp = R || ESR ...`` (the
+pulsed diode current through the capacitor ESR, Middlebrook and Cuk 1976; see
+:mod:`.base`); multiplied by D' it is the quadratic
+``-(V + VD - Io Rp) x^2 + (Vg + Io (Ron - Rr - Rp)) x - Io (DCR + Ron) = 0`` in
+x = D'.  Small signal: ``a_g = 1``, ``a_v = -D'``, ``b_i = D'``, ``b_d = -I``,
+``Req = DCR + D Ron + D' Rr + D D' Rp`` and
+``e = V + VD - I (Ron - Rr) - (1 - 2D) Rp I``, so Gvd has the right-half-plane
+zero at ``(D' e - I Req) / (I L)``, i.e. ``(D'^2 R - Req) / L`` to first order
 (ideal: D'^2 R / L, Erickson & Maksimovic, 2nd ed., Table 8.2).
 
 DCM (diode): on for D Ts at slope Vg/L, off for D2 Ts at (V' - Vg)/L with
@@ -19,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..design import Stage
-from .base import CcmPoint, DcmPoint, solve_quadratic_dprime
+from .base import CcmPoint, DcmPoint, pulsed_esr_resistance, solve_quadratic_dprime
 
 __all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
 
@@ -36,14 +39,15 @@ def range_problem(stage: Stage, vin: np.ndarray, vout: float) -> int | None:
 def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
     vg, io, v = np.asarray(vin, float), np.asarray(load, float), float(vout)
     ron, rr, rl, vd = stage.r_switch, stage.r_rectifier, stage.dcr, stage.vf
-    dp = solve_quadratic_dprime(np.full_like(vg, v + vd), vg + io * ron - io * rr, io * (rl + ron))
+    rp = pulsed_esr_resistance(stage, v / io)
+    dp = solve_quadratic_dprime(v + vd - io * rp, vg + io * (ron - rr - rp), io * (rl + ron))
     duty = 1.0 - dp
     i_l = io / dp
     n = vg.shape[0]
     return CcmPoint(
         duty=duty, i_l=i_l, ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
-        out_per_il=dp, l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr,
-        a_g=np.ones(n), a_v=-dp, b_i=dp, b_d=-i_l, e=v + vd - i_l * (ron - rr),
+        out_per_il=dp, l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr + duty * dp * rp,
+        a_g=np.ones(n), a_v=-dp, b_i=dp, b_d=-i_l, e=v + vd - i_l * (ron - rr) - (1.0 - 2.0 * duty) * rp * i_l,
     )
 
 

@@ -2,10 +2,13 @@
 
 Inductor from the switch node to ground; the switch connects it to Vg for D Ts,
 the rectifier to the (negative) output for D' Ts.  CCM steady state with
-losses, x = D', Io = |V|/R = D' I:
-``-(Vg + |V| + VD) x^2 + (Vg + Io Ron - Io Rr) x - Io (Ron + DCR) = 0``.
+losses, x = D', Io = |V|/R = D' I, the series resistance
+``Req = DCR + D Ron + D' Rr + D D' Rp`` (``Rp = R || ESR ...``: the pulsed
+rectifier current through the capacitor ESR, Middlebrook and Cuk 1976; see
+:mod:`.base`):
+``-(Vg + |V| + VD - Io Rp) x^2 + (Vg + Io (Ron - Rr - Rp)) x - Io (Ron + DCR) = 0``.
 Small signal: ``a_g = D``, ``a_v = D'``, ``b_i = -D'``, ``b_d = +I`` and
-``e = Vg + |V| + VD - I (Ron - Rr)``; Gvd(0) is negative (a rising duty makes
+``e = Vg + |V| + VD - I (Ron - Rr) - (1 - 2D) Rp I``; Gvd(0) is negative (a rising duty makes
 the output more negative).  Ideal: |Gd0| = |V|/(D D'), RHP zero D'^2 R/(D L)
 (Erickson & Maksimovic, 2nd ed., Table 8.2).
 
@@ -20,7 +23,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..design import Stage
-from .base import CcmPoint, DcmPoint, solve_quadratic_dprime
+from .base import CcmPoint, DcmPoint, pulsed_esr_resistance, solve_quadratic_dprime
 
 __all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
 
@@ -36,14 +39,15 @@ def range_problem(stage: Stage, vin: np.ndarray, vout: float) -> int | None:
 def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
     vg, io, vm = np.asarray(vin, float), np.asarray(load, float), abs(float(vout))
     ron, rr, rl, vd = stage.r_switch, stage.r_rectifier, stage.dcr, stage.vf
-    dp = solve_quadratic_dprime(vg + vm + vd, vg + io * ron - io * rr, io * (ron + rl))
+    rp = pulsed_esr_resistance(stage, vm / io)
+    dp = solve_quadratic_dprime(vg + vm + vd - io * rp, vg + io * (ron - rr - rp), io * (ron + rl))
     duty = 1.0 - dp
     i_l = io / dp
     n = vg.shape[0]
     return CcmPoint(
         duty=duty, i_l=i_l, ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
-        out_per_il=dp, l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr,
-        a_g=duty, a_v=dp, b_i=-dp, b_d=i_l, e=vg + vm + vd - i_l * (ron - rr),
+        out_per_il=dp, l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr + duty * dp * rp,
+        a_g=duty, a_v=dp, b_i=-dp, b_d=i_l, e=vg + vm + vd - i_l * (ron - rr) - (1.0 - 2.0 * duty) * rp * i_l,
     )
 
 

@@ -1,0 +1,1 @@
+"""Independent reference models for the tests (never call the code under test)."""
