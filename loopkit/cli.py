@@ -19,7 +19,6 @@ from __future__ import annotations
 import argparse
 import csv
 import io
-import json
 import os
 import sys
 from dataclasses import replace
@@ -35,7 +34,7 @@ from .powerstage import StageResult, analyse_stage
 from .tables import EMPTY, Column, format_table, wrap_note
 from .units import format_value, parse_value
 
-__all__ = ["main", "build_parser", "CAUTION", "stage_report", "bode_table", "corner_name"]
+__all__ = ["main", "build_parser", "CAUTION", "stage_report", "design_text", "bode_table", "corner_name"]
 
 #: One-line caution carried by every output that reports results.
 CAUTION = "Caution: design aid only; verify on the bench; mains/HV needs licensed review."
@@ -44,6 +43,8 @@ SERIES = ("E6", "E12", "E24", "E48", "E96", "E192", "none")
 
 #: Exit status for bad input (argparse uses the same).
 EXIT_BAD_INPUT = 2
+#: Exit status of ``design`` when the targets cannot be met (the report says why).
+EXIT_INFEASIBLE = 1
 
 
 class _Parser(argparse.ArgumentParser):
@@ -87,7 +88,7 @@ def _findings_text(findings, stage: StageResult) -> list[str]:
         if key in seen:
             continue
         seen.add(key)
-        where = f"#{f.corner}" if f.corner is not None else "all"
+        where = f"#{f.corner}" if f.corner is not None else "-"
         lines.append(wrap_note(f"{f.message} [{f.code}]", first=f"  {where:>4} {f.severity}: "))
     return lines
 
@@ -153,6 +154,108 @@ def stage_report(design: Design, stage: StageResult, path: str = "") -> str:
     legend.append(f"{EMPTY}: does not apply." + (" !: see warnings." if warned else ""))
     out.append(wrap_note(" ".join(legend)))
     notes = _findings_text(stage.findings, stage)
+    if notes:
+        out += ["", "Warnings and notes:"] + notes
+    out += ["", CAUTION]
+    return "\n".join(out)
+
+
+# ---------------------------------------------------------------------- design
+NETWORK_TITLES = {
+    "type1": "Type I (integrator), op-amp",
+    "type2": "Type II, op-amp",
+    "type3": "Type III, op-amp",
+    "gm-type2": "Type II, transconductance amplifier",
+    "opto-type2": "Type II, shunt reference and optocoupler",
+}
+
+
+def _part_unit(designator: str) -> str:
+    if designator.startswith("R"):
+        return "ohm" if _ASCII else "Ω"
+    return "F" if designator.startswith("C") else ""
+
+
+def _angle(value: float) -> str:
+    return _plain(value, ".1f")
+
+
+def _targets_lines(result) -> list[str]:
+    t, st = result.targets, result.stage
+    given = result.feasible and result.placement is None
+    lines = [f"Network: {NETWORK_TITLES.get(result.network, result.network)} [{result.network}]"]
+    if given:
+        lines.append("Parts: as given in the design file's [compensator.parts] (no synthesis; use --synthesise"
+                     " or a target option to design new ones)")
+    else:
+        k = result.design_corner
+        at = ""
+        if k >= 0:
+            why = ", the worst for phase at fc" if t.design_corner is None else ""
+            at = f", designed at corner #{k} ({_fmt(st.vin[k], 'V')} in, {_fmt(st.load[k], 'A')}{why})"
+        lines.append(f"Targets: fc {_fmt(t.fc_hz, 'Hz')}, phase margin {t.pm_deg:g} deg, {t.method} method{at}")
+        p = result.placement
+        if p is not None:
+            kf = f", K = {p.k_factor:.3g}" if np.isfinite(p.k_factor) else ""
+            lines.append(f"Plant phase at fc {_angle(p.plant_phase_deg)} deg; boost {_angle(p.boost_deg)} deg"
+                         f" (needed {_angle(p.required_boost_deg)} deg){kf}")
+    return [wrap_note(line) for line in lines]
+
+
+def _parts_table(result) -> str:
+    t = result.targets
+    rows = []
+    for name, value in result.parts.items():
+        exact = result.parts_exact.get(name, value)
+        unit = _part_unit(name)
+        series = t.resistor_series if name.startswith("R") else t.capacitor_series if name.startswith("C") else ""
+        change = 100.0 * (value / exact - 1.0) if exact else float("nan")
+        rows.append([name, _fmt(exact, unit, 4), _fmt(value, unit), series, _plain(change, "+.1f")])
+    cols = [Column("Part", "", "<"), Column("computed"), Column("to build"), Column("series", "", "<"),
+            Column("change", "%")]
+    return format_table(cols, rows)
+
+
+def _roots_text(label: str, roots) -> str:
+    shown = ["0 Hz (integrator)" if r == 0 else _fmt(r, "Hz") for r in sorted(roots)]
+    return f"{label} {', '.join(shown) if shown else 'none'}"
+
+
+def _margins_table(result) -> str:
+    st, m, mx = result.stage, result.margins, result.margins_exact
+    warned = {f.corner for f in result.findings if f.severity == "warning" and f.corner is not None}
+    width = len(str(st.n_corners - 1))
+    rows = []
+    for k in range(st.n_corners):
+        mark = ("*" if k == result.worst_corner else "") + ("!" if k in warned else "")
+        rows.append([
+            f"{k:>{width}}{mark}", _fmt(st.vin[k]), _fmt(st.load[k]), _mode_text(st, k),
+            _fmt(m.fc_hz[k]), _angle(m.pm_deg[k]), _plain(m.gm_db[k], ".1f"), _fmt(m.delay_margin_s[k]),
+            "yes" if m.stable[k] else "NO",
+            _fmt(mx.fc_hz[k]), _angle(mx.pm_deg[k]), _plain(mx.gm_db[k], ".1f"),
+        ])
+    cols = [Column("#", "", "<"), Column("Vin", "V"), Column("Load", "A"), Column("Mode", "", "<"),
+            Column("fc", "Hz"), Column("PM", "deg"), Column("GM", "dB"), Column("Delay", "s"),
+            Column("Stable", "", "<"), Column("fc", "Hz"), Column("PM", "deg"), Column("GM", "dB")]
+    return format_table(cols, rows, groups=[("parts to build", 4, 8), ("computed parts", 9, 11)])
+
+
+def design_text(result, path: str = "") -> str:
+    """The ``loopkit design`` text: targets, parts, poles and zeros, margins per corner, warnings."""
+    out = _design_header(result.design, path) + [""] + _targets_lines(result) + [""]
+    if not result.feasible:
+        out.append("No parts: the targets cannot be met with this network.")
+    else:
+        out += [_parts_table(result), "",
+                wrap_note("Network with the parts to build: " + _roots_text("zeros", result.zeros_hz) + "; "
+                          + _roots_text("poles", result.poles_hz)), "",
+                "Loop gain at every corner:", _margins_table(result),
+                wrap_note("fc: gain crossover (the lowest if several). PM, GM: phase and gain margin"
+                          f" (GM {EMPTY}: the phase never reaches -180 deg). Delay: delay margin."
+                          " Stable: from the closed-loop poles. *: worst corner (lowest phase margin with the"
+                          " parts to build)." + (" !: see warnings." if any(
+                              f.severity == "warning" and f.corner is not None for f in result.findings) else ""))]
+    notes = _findings_text(result.findings, result.stage)
     if notes:
         out += ["", "Warnings and notes:"] + notes
     out += ["", CAUTION]
@@ -297,12 +400,12 @@ def _add_target_options(p: argparse.ArgumentParser) -> None:
 
 
 def _cmd_design(args) -> int:
-    from .report import design_document, design_text
+    from .export import results_json
 
     design = load_design(args.file)
     result = _loop_result(design, args)
     if args.json:
-        print(json.dumps(design_document(result, args.file), indent=2, allow_nan=False))
+        sys.stdout.write(results_json(result))
     else:
         print(design_text(result, args.file))
     if args.write:
@@ -312,6 +415,9 @@ def _cmd_design(args) -> int:
 
         save_design(apply_parts(design, result), args.file)
         print(f"saved the parts and targets to {args.file}", file=sys.stderr if args.json else sys.stdout)
+    if not result.feasible:
+        print(f"loopkit design: {args.file}: the targets cannot be met (the report says why)", file=sys.stderr)
+        return EXIT_INFEASIBLE
     return 0
 
 
@@ -319,7 +425,7 @@ def _cmd_export(args) -> int:
     from . import export
 
     if not (args.bom or args.spice or args.json):
-        raise DesignError("export", "(nothing chosen)", "give --bom, --spice and/or --json with a file name")
+        raise DesignError("--bom/--spice/--json", "(none given)", "give at least one output file")
     design = load_design(args.file)
     result = _loop_result(design, args)
     if not result.feasible:

@@ -39,7 +39,8 @@ class Column:
     align: str = ">"
 
 
-def format_table(columns: list[Column], rows: list[list[str]], width: int = WIDTH, indent: str = "") -> str:
+def format_table(columns: list[Column], rows: list[list[str]], width: int = WIDTH, indent: str = "",
+                 groups: list[tuple[str, int, int]] = ()) -> str:
     """Lay out ``rows`` under two header lines (titles, then units).
 
     Parameters
@@ -52,6 +53,9 @@ def format_table(columns: list[Column], rows: list[list[str]], width: int = WIDT
         when two would not fit.
     indent : str
         Prefix of every line.
+    groups : list of (title, first, last)
+        Optional headings spanning columns ``first`` to ``last`` (inclusive),
+        centred on a line above the titles, e.g. ``("before snapping", 7, 9)``.
 
     Returns
     -------
@@ -74,7 +78,16 @@ def format_table(columns: list[Column], rows: list[list[str]], width: int = WIDT
             out.append(text.rjust(w) if col.align == ">" else text.ljust(w))
         return (indent + gap.join(out)).rstrip()
 
-    lines = [line([c.title for c in columns])]
+    lines = []
+    if groups:
+        starts = [len(indent) + sum(widths[:i]) + len(gap) * i for i in range(len(widths))]
+        text = ""
+        for title, first, last in groups:
+            left, right = starts[first], starts[last] + widths[last]
+            span = f" {title} ".center(right - left, "-") if len(title) + 4 <= right - left else title
+            text = text.ljust(left) + span
+        lines.append(text.rstrip())
+    lines.append(line([c.title for c in columns]))
     if any(c.unit for c in columns):
         lines.append(line([c.unit for c in columns]))
     lines.extend(line(r) for r in rows)
