@@ -1,0 +1,128 @@
+"""Hand-off files: bill of materials (CSV), network netlist (SPICE), results (JSON).
+
+All three are made from one :class:`~loopkit.loop.LoopResult`, so they agree
+with each other and with what the CLI and the app show.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+
+
+from . import __version__, eseries
+from .loop import CAUTION, LoopResult
+from .networks import network_module
+from .units import format_value
+
+__all__ = ["bom_csv", "spice_netlist", "results_document", "results_json"]
+
+
+def _num(x):
+    """JSON-safe float: NaN and infinities become null."""
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _kind(designator: str) -> tuple[str, str]:
+    if designator.startswith("R"):
+        return "resistor", "ohm"
+    if designator.startswith("C"):
+        return "capacitor", "F"
+    return "other", ""
+
+
+def bom_csv(result: LoopResult) -> str:
+    """Bill of materials of the network: one row per part, snapped values.
+
+    Columns: designator, value (engineering text), value_si, unit, series,
+    tolerance (the series' usual tolerance), kind, computed (the exact value
+    before snapping).
+    """
+    t = result.targets
+    buf = io.StringIO()
+    buf.write(f"# loopkit {__version__} bill of materials, {result.network} network. {CAUTION}\n")
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(["designator", "value", "value_si", "unit", "series", "tolerance", "kind", "computed"])
+    for name in sorted(result.parts, key=_designator_order):
+        kind, unit = _kind(name)
+        series = t.resistor_series if kind == "resistor" else t.capacitor_series if kind == "capacitor" else ""
+        tol = eseries.TOLERANCE.get(series)
+        value = result.parts[name]
+        writer.writerow([
+            name, format_value(value, "Ω" if unit == "ohm" else unit, digits=4), repr(float(value)), unit, series,
+            f"{tol:.1%}" if tol else "", kind, repr(float(result.parts_exact.get(name, value))),
+        ])
+    return buf.getvalue()
+
+
+def _designator_order(name: str):
+    letters = "".join(ch for ch in name if not ch.isdigit())
+    digits = "".join(ch for ch in name if ch.isdigit())
+    return (letters, int(digits) if digits else 0)
+
+
+def spice_netlist(result: LoopResult) -> str:
+    """ngspice deck of the network with its snapped parts: AC source at ``in``, output ``out``."""
+    from .loop import network_context
+
+    module = network_module(result.network)
+    title = f"loopkit {result.network} network: {result.design.title or 'design'}"
+    deck = module.netlist(result.parts, network_context(result.design), title)
+    header = f"* {CAUTION}\n* V(out)/V(in) is the network's transfer function, sign included.\n"
+    first, _, rest = deck.partition("\n")
+    return f"{first}\n{header}{rest}"
+
+
+def results_document(result: LoopResult) -> dict:
+    """The machine-readable results (the ``loopkit design --json`` document)."""
+    t = result.targets
+    st = result.stage
+    doc = {
+        "loopkit_version": __version__,
+        "caution": CAUTION,
+        "title": result.design.title,
+        "topology": result.design.stage.topology,
+        "network": result.network,
+        "feasible": result.feasible,
+        "targets": {
+            "fc_hz": t.fc_hz, "pm_deg": t.pm_deg, "boost_split": t.boost_split,
+            "design_corner": "worst" if t.design_corner is None else t.design_corner,
+            "resistor_series": t.resistor_series, "capacitor_series": t.capacitor_series, "method": t.method,
+        },
+        "parts": {k: float(v) for k, v in result.parts.items()},
+        "parts_exact": {k: float(v) for k, v in result.parts_exact.items()},
+        "zeros_hz": [_num(z) for z in result.zeros_hz],
+        "poles_hz": [_num(p) for p in result.poles_hz],
+        "design_corner": result.design_corner,
+        "worst_corner": result.worst_corner,
+        "corners": [],
+        "warnings": [
+            {"code": f.code, "message": f.message, "corner": f.corner, "severity": f.severity}
+            for f in result.findings
+        ],
+    }
+    m, mx = result.margins, result.margins_exact
+    for k in range(st.n_corners):
+        corner = {
+            "index": k, "vin": float(st.vin[k]), "load": float(st.load[k]), "mode": str(st.mode[k]),
+            "submode": str(st.submode[k]), "duty": _num(st.duty[k]),
+        }
+        if m is not None:
+            corner.update({
+                "fc_hz": _num(m.fc_hz[k]), "pm_deg": _num(m.pm_deg[k]), "gm_db": _num(m.gm_db[k]),
+                "delay_margin_s": _num(m.delay_margin_s[k]), "stable": bool(m.stable[k]),
+                "crossovers_hz": [float(x) for x in m.crossovers_hz[k]], "conditional": bool(m.conditional[k]),
+                "exact_parts": {"fc_hz": _num(mx.fc_hz[k]), "pm_deg": _num(mx.pm_deg[k]), "gm_db": _num(mx.gm_db[k])},
+            })
+        doc["corners"].append(corner)
+    return doc
+
+
+def results_json(result: LoopResult) -> str:
+    """:func:`results_document` as JSON text (NaN and inf written as null)."""
+    return json.dumps(results_document(result), indent=2, allow_nan=False) + "\n"
+
+

@@ -1,0 +1,425 @@
+"""The loop at every corner: T(s) = sensing x compensator x modulator x Gvd.
+
+:class:`LoopSession` holds what does not change while the targets move (the
+power stage at every corner, the uncompensated loop on the frequency grid);
+:meth:`LoopSession.run` synthesises the network for a set of targets, snaps the
+parts to the E-series, and gives the margins at every corner before and after
+snapping.  CLI, app and tests all go through it.
+
+Sign convention: the uncompensated loop is ``Tu = H Fm Gvd`` (sensing,
+modulator, plant) and the loop gain ``T = -Tu Gc``, where the error-amplifier
+network ``Gc`` is inverting (negative at low frequency).  A correctly wired
+loop therefore has T(0) > 0 and is analysed in the form 1 + T.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from . import eseries
+from .design import Design
+from .errors import Finding, InfeasibleDesign
+from .margins import Margins, loop_margins
+from .networks import NetworkContext, network_module
+from .networks.sensing import sensing_transfer
+from .powerstage import StageResult, analyse_stage, corner_label
+from .rational import Rational
+from .synthesis import Placement, place
+from .units import format_value
+
+__all__ = ["Targets", "LoopSession", "LoopResult", "design_loop", "apply_parts", "frequency_grid",
+           "network_context", "modulator_transfer", "CAUTION"]
+
+CAUTION = ("loopkit is a design aid: verify every loop on the bench (measured loop gain, load steps) before use."
+           " Converters store energy and may carry hazardous voltages; follow local codes and licensed practice.")
+
+#: Common practice, no source: phase margin below this is flagged.
+PM_WARN_DEG = 45.0
+#: Common practice, no source: gain margin below this is flagged.
+GM_WARN_DB = 6.0
+
+
+@dataclass(frozen=True)
+class Targets:
+    """What the designer asks of the loop (see :class:`loopkit.design.Compensator`)."""
+
+    network: str
+    fc_hz: float
+    pm_deg: float
+    boost_split: float = 0.5
+    design_corner: int | None = None
+    resistor_series: str = "E96"
+    capacitor_series: str = "E12"
+    method: str = "k-factor"
+
+    @classmethod
+    def from_design(cls, design: Design) -> "Targets":
+        c = design.compensator
+        return cls(c.network, c.fc, c.pm, c.boost_split, c.design_corner, c.resistor_series,
+                   c.capacitor_series, c.method)
+
+
+@dataclass(frozen=True, eq=False)
+class LoopResult:
+    """Everything the designer sees about the loop; see /DEVELOPERS.md.
+
+    ``feasible`` False means no parts were produced: ``findings`` say why and
+    the part, transfer-function and margin fields are empty or None.
+    """
+
+    design: Design
+    stage: StageResult
+    targets: Targets
+    f_hz: np.ndarray
+    feasible: bool
+    network: str
+    parts_exact: dict
+    parts: dict
+    zeros_hz: tuple
+    poles_hz: tuple
+    placement: Placement | None
+    compensator: Rational | None
+    compensator_exact: Rational | None
+    loop: Rational | None
+    loop_exact: Rational | None
+    plant_resp: np.ndarray
+    comp_resp: np.ndarray | None
+    loop_resp: np.ndarray | None
+    loop_phase_deg: np.ndarray | None
+    loop_resp_exact: np.ndarray | None
+    margins: Margins | None
+    margins_exact: Margins | None
+    worst_corner: int
+    design_corner: int
+    findings: tuple = field(default_factory=tuple)
+
+    @property
+    def corner_labels(self) -> list[str]:
+        return [corner_label(v, i) for v, i in zip(self.stage.vin, self.stage.load)]
+
+
+def frequency_grid(stage: StageResult, fsw: float, points: int = 1000) -> np.ndarray:
+    """Log-spaced analysis grid, Hz: from below the lowest plant pole to the switching frequency."""
+    lows = [10.0]
+    for arr in (stage.f0_hz, stage.fp_hz):
+        finite = arr[np.isfinite(arr)]
+        if finite.size:
+            lows.append(0.05 * finite.min())
+    return np.geomspace(max(min(lows), 0.1), fsw, points)
+
+
+def network_context(design: Design) -> NetworkContext:
+    """What the network needs from the design besides its parts."""
+    sensing = design.sensing
+    v_sensed = abs(design.operating.vout) if sensing.kind == "divider" else sensing.reference
+    return NetworkContext(opamp=design.compensator.opamp, vref=sensing.reference, v_sensed=v_sensed,
+                          opto=dict(design.compensator.opto))
+
+
+def modulator_transfer(design: Design, vin: np.ndarray) -> Rational:
+    """PWM gain 1/Vramp per corner; with feed-forward the ramp scales with vin."""
+    mod = design.modulator
+    ramp = np.full(vin.shape, mod.ramp)
+    if mod.feedforward:
+        nominal = design.operating.vin_nominal or float(np.median(design.operating.vin))
+        ramp = mod.ramp * vin / nominal
+    return Rational.constant(1.0 / ramp)
+
+
+def _default_r1(design: Design, ctx: NetworkContext) -> float:
+    s = design.sensing
+    if s.r_top > 0:
+        return s.r_top
+    if ctx.v_sensed > ctx.vref:
+        return (ctx.v_sensed - ctx.vref) / s.divider_current
+    return 10e3  # differential sensing: no divider current to set it (common practice, no source)
+
+
+class LoopSession:
+    """The stage and uncompensated loop of a design, cached for fast re-synthesis.
+
+    Parameters
+    ----------
+    design : Design
+    f_hz : ndarray, optional
+        Analysis grid; default :func:`frequency_grid` (1000 points).
+    """
+
+    def __init__(self, design: Design, f_hz: np.ndarray | None = None):
+        self.design = design
+        self.stage = analyse_stage(design)
+        self.f_hz = frequency_grid(self.stage, design.stage.fsw) if f_hz is None else np.asarray(f_hz, float)
+        self.ctx = network_context(design)
+        self.sensing = sensing_transfer(design)
+        self.uncompensated = self.sensing * modulator_transfer(design, self.stage.vin) * self.stage.gvd
+        self.tu_resp = self.uncompensated.response(self.f_hz)
+        self.tu_phase = self.uncompensated.phase_deg(self.f_hz)
+        self.plant_resp = self.stage.gvd.response(self.f_hz)
+        self.r1 = _default_r1(design, self.ctx)
+        self._rhp_min = np.nanmin(self.stage.f_rhp_hz) if np.any(np.isfinite(self.stage.f_rhp_hz)) else np.nan
+
+    # ------------------------------------------------------------------ public
+    def run(self, targets: Targets | None = None) -> LoopResult:
+        """Synthesise (or analyse the design's given parts) and analyse every corner.
+
+        With ``targets`` None and parts in the design, those parts are analysed
+        as given; otherwise the network is synthesised for the targets (the
+        design's own by default).
+        """
+        comp = self.design.compensator
+        if targets is None and comp.parts:
+            return self._analyse_given(Targets.from_design(self.design))
+        targets = targets or Targets.from_design(self.design)
+        return self._synthesise(targets)
+
+    # ------------------------------------------------------------------ corners
+    def design_corner(self, targets: Targets) -> int:
+        """The corner to design at: the given one, or the one needing the most boost at fc."""
+        if targets.design_corner is not None:
+            return int(targets.design_corner)
+        phase = self.uncompensated.phase_deg(np.array([targets.fc_hz]))[:, 0]
+        mag = np.abs(self.uncompensated.response(np.array([targets.fc_hz]))[:, 0])
+        order = np.lexsort((mag, phase))  # lowest phase first, then lowest gain
+        return int(order[0])
+
+    # ------------------------------------------------------------------ synthesis
+    def _synthesise(self, targets: Targets) -> LoopResult:
+        findings = list(self.stage.findings)
+        findings.extend(self._target_findings(targets))
+        if targets.fc_hz <= 0:
+            return self._infeasible(targets, findings, "compensator.fc", targets.fc_hz, "give a crossover target > 0 Hz")
+        fsw = self.design.stage.fsw
+        if targets.fc_hz >= fsw / 2:
+            return self._infeasible(targets, findings, "compensator.fc", format_value(targets.fc_hz, "Hz"),
+                                    f"must be below half the switching frequency ({format_value(fsw / 2, 'Hz')}):"
+                                    " the averaged model ends there")
+        corner = self.design_corner(targets)
+        module = network_module(targets.network)
+        try:
+            parts, placement = self._solve(module, targets, corner)
+        except InfeasibleDesign as exc:
+            return self._infeasible(targets, findings, exc.field, exc.value, exc.allowed, exc.reasons)
+        findings.extend(placement.notes)
+        return self._assemble(targets, parts, placement, corner, findings)
+
+    def _solve(self, module, targets: Targets, corner: int) -> tuple[dict, Placement]:
+        """Parts meeting fc and PM at the design corner, on the network's real transfer.
+
+        The placement is exact for the ideal network; with a finite op-amp the
+        gain and boost are corrected by a few fixed-point steps until the loop
+        at the design corner meets the targets (|T(fc)| within 1e-6, PM within
+        0.001 deg).
+        """
+        f = np.array([targets.fc_hz])
+        tu = self.uncompensated.take(corner)
+        tu_fc = complex(tu.response(f)[0, 0])
+        tu_ph = float(tu.phase_deg(f)[0, 0])
+        defaults = self._placement_defaults(corner)
+        pm_goal, gain_scale = targets.pm_deg, 1.0
+        fixed = {"R1": self.r1} if "R1" in module.DESIGNATORS else {}
+        for _ in range(8):
+            placement = place(targets.network, targets.method, targets.fc_hz, pm_goal, tu_fc * gain_scale, tu_ph,
+                              corner, targets.boost_split, self.design.compensator.placement, defaults)
+            parts = module.synthesise(targets.fc_hz, placement.gain_at_fc, placement.zeros_hz, placement.poles_hz,
+                                      self.ctx, fixed)
+            gc = module.transfer(parts, self.ctx)
+            mag = abs(tu_fc * complex(gc.response(f)[0, 0]))
+            pm_now = (tu_ph + float(gc.phase_deg(f)[0, 0]) + 360.0 + 180.0) % 360.0 - 180.0
+            pm_free = (targets.method == "k-factor" and targets.network != "type1"
+                       and abs(placement.boost_deg - placement.required_boost_deg) < 1e-6)
+            if abs(mag - 1.0) < 1e-7 and (not pm_free or abs(pm_now - targets.pm_deg) < 1e-4):
+                break
+            gain_scale *= mag
+            if pm_free:
+                pm_goal += targets.pm_deg - pm_now
+        return parts, placement
+
+    def _placement_defaults(self, corner: int) -> dict:
+        st = self.stage
+        f_zero = st.f0_hz[corner] if np.isfinite(st.f0_hz[corner]) else st.fp_hz[corner]
+        candidates = [x for x in list(st.f_esr_hz[corner]) + [self._rhp_min] if np.isfinite(x)]
+        fsw_half = self.design.stage.fsw / 2
+        return {"f_zero": float(f_zero), "f_pole1": float(min(candidates + [fsw_half])), "f_pole2": float(fsw_half)}
+
+    # ------------------------------------------------------------------ analysis
+    def _analyse_given(self, targets: Targets) -> LoopResult:
+        module = network_module(targets.network)
+        parts = dict(self.design.compensator.parts)
+        missing = [d for d in module.DESIGNATORS if d not in parts]
+        findings = list(self.stage.findings)
+        if missing:
+            return self._infeasible(targets, findings, "compensator.parts", ", ".join(missing),
+                                    f"the {targets.network} network needs {', '.join(module.DESIGNATORS)}")
+        corner = targets.design_corner if targets.design_corner is not None else self.design_corner(targets)
+        return self._assemble(targets, parts, None, int(corner), findings, snap=False)
+
+    def _loop_on_grid(self, gc: Rational) -> tuple[Rational, np.ndarray, np.ndarray, np.ndarray]:
+        loop = -(self.uncompensated * gc)
+        comp_resp = gc.response(self.f_hz)
+        resp = -self.tu_resp * comp_resp
+        # continuous phase of the product: sum of the parts' factor angles, sign of the product's gain
+        phase = (self.tu_phase + gc.phase_deg(self.f_hz)
+                 - np.where(self.uncompensated.gain < 0, -180.0, 0.0)[:, None]
+                 - np.where(gc.gain < 0, -180.0, 0.0)[:, None]
+                 + np.where(loop.gain < 0, -180.0, 0.0)[:, None])
+        return loop, comp_resp, resp, phase
+
+    def _assemble(self, targets: Targets, parts_exact: dict, placement: Placement | None, corner: int,
+                  findings: list, snap: bool = True) -> LoopResult:
+        module = network_module(targets.network)
+        parts = (eseries.snap_parts(parts_exact, targets.resistor_series, targets.capacitor_series)
+                 if snap else dict(parts_exact))
+        gc_exact = module.transfer(parts_exact, self.ctx)
+        gc = module.transfer(parts, self.ctx) if snap else gc_exact
+        loop_x, _, resp_x, phase_x = self._loop_on_grid(gc_exact)
+        margins_x = loop_margins(loop_x, self.f_hz, resp_x, phase_x)
+        if placement is not None and (margins_x.n_crossovers[corner] != 1 or not margins_x.stable[corner]):
+            return self._infeasible(targets, findings, "compensator.fc", format_value(targets.fc_hz, "Hz"),
+                                    _why_not_single_crossover(self.stage, corner, margins_x))
+        if snap:
+            loop, comp_resp, resp, phase = self._loop_on_grid(gc)
+            margins = loop_margins(loop, self.f_hz, resp, phase)
+        else:
+            loop, comp_resp, resp, phase, margins = loop_x, gc.response(self.f_hz), resp_x, phase_x, margins_x
+        zeros, poles = module.poles_zeros(parts, self.ctx)
+        worst = _worst_corner(margins)
+        findings.extend(eseries.part_warnings(parts))
+        findings.extend(self._loop_findings(margins, targets))
+        findings.extend(self._opamp_findings(module, parts))
+        return LoopResult(
+            design=self.design, stage=self.stage, targets=targets, f_hz=self.f_hz, feasible=True,
+            network=targets.network, parts_exact=dict(parts_exact), parts=parts, zeros_hz=tuple(zeros),
+            poles_hz=tuple(poles), placement=placement, compensator=gc, compensator_exact=gc_exact, loop=loop,
+            loop_exact=loop_x, plant_resp=self.plant_resp, comp_resp=comp_resp, loop_resp=resp,
+            loop_phase_deg=phase, loop_resp_exact=resp_x, margins=margins, margins_exact=margins_x,
+            worst_corner=worst, design_corner=corner, findings=tuple(_unique(findings)),
+        )
+
+    def _infeasible(self, targets, findings, field_name, value, allowed, reasons=()) -> LoopResult:
+        message = f"no parts: {field_name} = {value}: {allowed}"
+        if reasons:
+            message += " (" + "; ".join(reasons) + ")"
+        findings = list(findings) + [Finding("infeasible", message, None)]
+        return LoopResult(
+            design=self.design, stage=self.stage, targets=targets, f_hz=self.f_hz, feasible=False,
+            network=targets.network, parts_exact={}, parts={}, zeros_hz=(), poles_hz=(), placement=None,
+            compensator=None, compensator_exact=None, loop=None, loop_exact=None, plant_resp=self.plant_resp,
+            comp_resp=None, loop_resp=None, loop_phase_deg=None, loop_resp_exact=None, margins=None,
+            margins_exact=None, worst_corner=-1, design_corner=-1, findings=tuple(_unique(findings)),
+        )
+
+    # ------------------------------------------------------------------ findings
+    def _target_findings(self, targets: Targets) -> list[Finding]:
+        out = []
+        fc, fsw = targets.fc_hz, self.design.stage.fsw
+        st = self.stage
+        if fc > fsw / 5:
+            out.append(Finding("fc-fsw", f"crossover {format_value(fc, 'Hz')} is above fsw/5"
+                               f" ({format_value(fsw / 5, 'Hz')}; common practice): the averaged model and the"
+                               " modulator's sampling delay lose accuracy there; lower fc"))
+        if np.isfinite(self._rhp_min) and fc > self._rhp_min / 3:
+            k = int(np.nanargmin(st.f_rhp_hz))
+            out.append(Finding("rhp-zero", f"crossover {format_value(fc, 'Hz')} is above one third of the RHP zero"
+                               f" ({format_value(self._rhp_min, 'Hz')} at {corner_label(st.vin[k], st.load[k])};"
+                               " common practice): lower fc or raise the RHP zero (less inductance)", k))
+        if targets.network in ("type2", "gm-type2", "opto-type2"):
+            f0 = st.f0_hz
+            no_esr = ~np.any(st.f_esr_hz < fc, axis=1)
+            below = np.isfinite(f0) & (fc < f0) & no_esr
+            if np.any(below):
+                k = int(np.nonzero(below)[0][0])
+                out.append(Finding("type2-below-f0", f"crossover {format_value(fc, 'Hz')} is below the double pole"
+                                   f" ({format_value(f0[k], 'Hz')} at {corner_label(st.vin[k], st.load[k])}) and no ESR"
+                                   " zero lies below fc: the LC resonance can cross 0 dB again; use Type III with"
+                                   " fc above the double pole, or more damping", k))
+        return out
+
+    def _loop_findings(self, m: Margins, targets: Targets) -> list[Finding]:
+        st = self.stage
+        out = []
+        for k in range(st.n_corners):
+            where = corner_label(st.vin[k], st.load[k])
+            if not m.stable[k]:
+                out.append(Finding("unstable", f"{where}: the closed loop is UNSTABLE (a root of 1+T lies in the"
+                                   " right half plane)", k))
+            if m.n_crossovers[k] == 0:
+                out.append(Finding("no-crossover", f"{where}: the loop gain never crosses 0 dB on the grid", k))
+            elif m.n_crossovers[k] > 1:
+                shown = ", ".join(format_value(x, "Hz") for x in m.crossovers_hz[k])
+                out.append(Finding("multiple-crossovers", f"{where}: {m.n_crossovers[k]} gain crossovers ({shown})", k))
+            if m.conditional[k]:
+                out.append(Finding("conditional", f"{where}: conditionally stable: a gain drop of"
+                                   f" {m.gm_low_db[k]:.1f} dB makes it unstable (saturation or soft start may)", k))
+            if np.isfinite(m.pm_deg[k]) and m.pm_deg[k] < PM_WARN_DEG and m.stable[k]:
+                out.append(Finding("low-pm", f"{where}: phase margin {m.pm_deg[k]:.1f} deg is below"
+                                   f" {PM_WARN_DEG:.0f} deg (common practice)", k))
+            if np.isfinite(m.gm_db[k]) and m.gm_db[k] < GM_WARN_DB and m.stable[k]:
+                out.append(Finding("low-gm", f"{where}: gain margin {m.gm_db[k]:.1f} dB is below"
+                                   f" {GM_WARN_DB:.0f} dB (common practice)", k))
+            if m.beyond_grid[k]:
+                out.append(Finding("gain-at-fsw", f"{where}: |T| is still above 0 dB at the switching frequency", k))
+        return out
+
+    def _opamp_findings(self, module, parts: dict) -> list[Finding]:
+        check = getattr(module, "gain_shortfall", None)
+        if check is None or self.ctx.opamp.ideal:
+            return []
+        short = check(parts, self.ctx, self.f_hz)
+        if short is None:
+            return []
+        return [Finding("opamp-gain", f"the network needs more gain than the op-amp has above"
+                        f" {format_value(short, 'Hz')}: choose an op-amp with more gain-bandwidth", None)]
+
+
+def _why_not_single_crossover(stage: StageResult, corner: int, m: Margins) -> str:
+    crossings = ", ".join(format_value(x, "Hz") for x in m.crossovers_hz[corner])
+    where = corner_label(stage.vin[corner], stage.load[corner])
+    text = (f"the network puts a crossover at the target, but at {where} the loop gain crosses 0 dB"
+            f" {m.n_crossovers[corner]} times ({crossings})")
+    if not m.stable[corner]:
+        text += " and the closed loop is unstable"
+    if np.isfinite(stage.f0_hz[corner]):
+        text += (f"; the double pole at {format_value(stage.f0_hz[corner], 'Hz')} (Q {stage.q[corner]:.1f})"
+                 " peaks above 0 dB: cross over above it with Type III, or lower fc well below it")
+    return text
+
+
+def _worst_corner(m: Margins) -> int:
+    """Lowest phase margin; an unstable corner or one without crossover is worse still."""
+    score = np.where(np.isfinite(m.pm_deg), m.pm_deg, -1e3)
+    score = np.where(m.stable, score, -1e6 + np.nan_to_num(m.pm_deg, nan=0.0))
+    return int(np.argmin(score))
+
+
+def _unique(findings: list) -> list:
+    seen, out = set(), []
+    for f in findings:
+        key = (f.code, f.message, f.corner)
+        if key not in seen:
+            seen.add(key)
+            out.append(f)
+    return out
+
+
+def design_loop(design: Design, targets: Targets | None = None, f_hz=None) -> LoopResult:
+    """Synthesise and analyse in one call: ``LoopSession(design, f_hz).run(targets)``."""
+    return LoopSession(design, f_hz).run(targets)
+
+
+def apply_parts(design: Design, result: LoopResult) -> Design:
+    """The design with the result's targets and snapped parts written back."""
+    t = result.targets
+    comp = replace(design.compensator, network=t.network, fc=t.fc_hz, pm=t.pm_deg, boost_split=t.boost_split,
+                   design_corner=t.design_corner, resistor_series=t.resistor_series,
+                   capacitor_series=t.capacitor_series, method=t.method,
+                   parts={k: float(v) for k, v in result.parts.items()})
+    return replace(design, compensator=comp)
+
+
+def targets_with(targets: Targets, **changes) -> Targets:
+    """A copy of ``targets`` with some fields changed."""
+    return replace(targets, **changes)
+
+

@@ -1,0 +1,69 @@
+"""Benchmark: the slider path (synthesis + margins for every corner) vs python-control.
+
+21 corners (7 Vin x 3 loads) x 1000 frequencies.  loopkit: ``LoopSession.run``
+(synthesis at the design corner, snapping, loop gain and refined margins at
+every corner, closed-loop poles).  Reference, in the same run: python-control
+0.10 ``frequency_response`` plus ``stability_margins`` corner by corner on the
+same loop transfer functions.  Reported as a ratio (extra_info), never asserted
+as a time.  Run: pytest tests/benchmarks --benchmark-enable
+"""
+
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+control = pytest.importorskip("control")
+
+from loopkit import load_design  # noqa: E402
+from loopkit.design import Operating  # noqa: E402
+from loopkit.loop import LoopSession, Targets  # noqa: E402
+from loopkit.rational import TWO_PI  # noqa: E402
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def _session():
+    design = load_design(ROOT / "sample_designs" / "buck_24v_3v3.toml")
+    op = Operating(3.3, tuple(np.linspace(18, 32, 7)), (0.3, 1.5, 3.0))
+    from dataclasses import replace
+
+    design = replace(design, operating=op)
+    return LoopSession(design)
+
+
+def _median(fn, repeat):
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times))
+
+
+def test_bench_slider_path_vs_python_control(benchmark):
+    session = _session()
+    targets = Targets("type3", 40e3, 60.0)
+    result = session.run(targets)
+    assert result.feasible and session.stage.n_corners == 21 and session.f_hz.size == 1000
+    tfs = [result.loop.to_control(i) for i in range(21)]
+    w = TWO_PI * session.f_hz
+
+    def reference():
+        for tf in tfs:
+            control.frequency_response(tf, w)
+            control.stability_margins(tf)
+
+    fcs = iter(np.geomspace(30e3, 50e3, 10_000))
+    ours = benchmark(lambda: session.run(Targets("type3", next(fcs), 60.0)))
+    assert ours.feasible
+    t_ours = _median(lambda: session.run(targets), 30)
+    t_ref = _median(reference, 5)
+    benchmark.extra_info.update({"loopkit_median_ms": t_ours * 1e3, "python_control_median_ms": t_ref * 1e3,
+                                 "ratio": t_ref / t_ours})
+    print(f"\nslider path: loopkit {t_ours * 1e3:.2f} ms, python-control {t_ref * 1e3:.2f} ms,"
+          f" ratio {t_ref / t_ours:.1f}x")
+    # the reference gives the same margins (checked here so the comparison is like for like)
+    gm, pm, _, _, wgc, _ = control.stability_margins(tfs[0])
+    np.testing.assert_allclose(result.margins.pm_deg[0], pm, atol=1e-3)
