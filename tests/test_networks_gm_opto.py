@@ -104,13 +104,12 @@ def mna_gain(f_hz, elements, out: str) -> np.ndarray:
 def gm_circuit(parts, gm, ro):
     """The gm Type II as drawn: divider, OTA current gm (vref - V(fb)) into out (vref = AC ground)."""
     els = [
-        ("R", "in", "fb", parts["R1"]), ("R", "fb", "0", parts["Rb"]),
-        ("G", "out", "0", "0", "fb", gm),  # leaves out = gm (0 - V(fb))... see below
+        ("R", "in", "fb", parts["R1"]),
+        ("G", "0", "out", "0", "fb", gm),  # current gm (0 - V(fb)) leaves ground, enters out
         ("R", "out", "nc", parts["Rc"]), ("C", "nc", "0", parts["Cc"]), ("C", "out", "0", parts["Chf"]),
     ]
-    # ("G", "out", "0", "0", "fb", gm) takes gm (0 - V(fb)) out of node out, which is the
-    # wrong sign; inject it instead: current gm (0 - V(fb)) leaving ground into out.
-    els[2] = ("G", "0", "out", "0", "fb", gm)
+    if "Rb" in parts:
+        els.append(("R", "fb", "0", parts["Rb"]))
     if ro:
         els.append(("R", "out", "0", ro))
     return els
@@ -118,7 +117,9 @@ def gm_circuit(parts, gm, ro):
 
 def opto_circuit(parts, opto, amp=None):
     """Shunt regulator + optocoupler: LED current (V(in) - V(k))/R_LED, CTR times it sunk from out."""
-    els = [("R", "in", "fb", parts["R1"]), ("R", "fb", "0", parts["Rb"])]
+    els = [("R", "in", "fb", parts["R1"])]
+    if "Rb" in parts:
+        els.append(("R", "fb", "0", parts["Rb"]))
     if amp is None:
         els.append(("NULLOR", "0", "fb", "k"))  # reference = AC ground
     else:
@@ -190,7 +191,8 @@ def test_registered_and_contract(name, module):
     assert network_module(name) is module
     for attr in ("transfer", "synthesise", "poles_zeros", "netlist", "DESIGNATORS", "ZEROS", "POLES"):
         assert hasattr(module, attr)
-    assert all(d[0] in "RC" for d in module.DESIGNATORS)
+    assert all(d[0] in "RC" for d in module.DESIGNATORS + module.OPTIONAL_DESIGNATORS)
+    assert "Rb" in module.OPTIONAL_DESIGNATORS and "R1" in module.DESIGNATORS
     assert (module.ZEROS, module.POLES) == (1, 1)
 
 
@@ -310,7 +312,7 @@ SYNTH_GM = [  # (fc, gain at fc, fz, fp, R1, Ro)
 def test_gm_synthesis_round_trip(fc, g, fz, fp, r1, ro):
     ctx = gm_ctx(ro)
     parts = gm_type2.synthesise(fc, g, [fz], [fp], ctx, {"R1": r1})
-    assert set(parts) == set(gm_type2.DESIGNATORS)
+    assert set(parts) == set(gm_type2.DESIGNATORS + gm_type2.OPTIONAL_DESIGNATORS)
     assert parts["R1"] == r1
     # the divider sets the dc output: vout Rb/(R1+Rb) = vref
     assert ctx.v_sensed * parts["Rb"] / (parts["R1"] + parts["Rb"]) == pytest.approx(ctx.vref, rel=1e-12)
@@ -334,7 +336,7 @@ SYNTH_OPTO = [  # (fc, gain at fc, fz, fp, R1, c_opto)
 def test_opto_synthesis_round_trip(fc, g, fz, fp, r1, c_opto):
     _, ctx = opto_case({}, {"c_opto": c_opto}, OpAmp())
     parts = opto_type2.synthesise(fc, g, [fz], [fp], ctx, {"R1": r1})
-    assert set(parts) == set(opto_type2.DESIGNATORS)
+    assert set(parts) == set(opto_type2.DESIGNATORS + opto_type2.OPTIONAL_DESIGNATORS)
     assert all(v > 0 for v in parts.values())
     assert ctx.v_sensed * parts["Rb"] / (parts["R1"] + parts["Rb"]) == pytest.approx(ctx.vref, rel=1e-12)
     zeros, poles = opto_type2.poles_zeros(parts, ctx)
@@ -382,6 +384,23 @@ def test_opto_synthesis_property(log_fc, log_boost, log_g):
     parts = opto_type2.synthesise(fc, g, [fz], [fp], ctx, {"R1": 47e3})
     ref = mna_gain([fc], opto_circuit(parts, ctx.opto), "out")[0]
     assert abs(ref) == pytest.approx(g, rel=1e-8)
+
+
+def test_no_divider_when_sensed_voltage_equals_vref():
+    """Behind a differential amplifier (v_sensed = vref) there is no Rb and the gm network's Hdiv is 1."""
+    ctx = NetworkContext(opamp=OpAmp(gm=1e-3, r_out=10e6), vref=1.2, v_sensed=1.2)
+    parts = gm_type2.synthesise(5e3, 2.0, [1e3], [25e3], ctx, {"R1": 10e3})
+    assert "Rb" not in parts
+    ref = mna_gain(F_HZ, gm_circuit(parts, 1e-3, 10e6), "out")
+    np.testing.assert_allclose(gm_type2.transfer(parts, ctx).response(F_HZ)[0], ref, rtol=1e-9)
+    assert abs(mna_gain([5e3], gm_circuit(parts, 1e-3, 10e6), "out")[0]) == pytest.approx(2.0, rel=1e-9)
+    assert gm_type2.transfer(parts, ctx).dc_gain()[0] == pytest.approx(-1e-3 * 10e6, rel=1e-12)  # Hdiv = 1
+    assert "Rb" not in gm_type2.netlist(parts, ctx)
+    octx = NetworkContext(opamp=OpAmp(gain_db=50, gbw=1e6), vref=2.5, v_sensed=2.5, opto=OPTO)
+    oparts = opto_type2.synthesise(2e3, 10.0, [500], [8e3], octx, {"R1": 47e3})
+    assert "Rb" not in oparts
+    ref = mna_gain(F_HZ, opto_circuit(oparts, OPTO, finite_amp(50, 1e6)), "out")
+    np.testing.assert_allclose(opto_type2.transfer(oparts, octx).response(F_HZ)[0], ref, rtol=1e-9)
 
 
 # --------------------------------------------------------------------------- infeasible / bad input

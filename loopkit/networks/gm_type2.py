@@ -37,9 +37,14 @@ from ..units import format_value
 from . import NetworkContext
 from .spice import ac_deck, spice_number
 
-__all__ = ["DESIGNATORS", "ZEROS", "POLES", "transfer", "synthesise", "poles_zeros", "netlist", "divider_bottom"]
+__all__ = ["DESIGNATORS", "OPTIONAL_DESIGNATORS", "ZEROS", "POLES", "transfer", "synthesise", "poles_zeros", "netlist", "divider_bottom"]
 
-DESIGNATORS = ("R1", "Rb", "Rc", "Cc", "Chf")
+#: Parts the transfer function needs.  The divider's bottom resistor ``Rb``
+#: (``R1 vref / (v_sensed - vref)``) is returned by :func:`synthesise` whenever the
+#: sensed voltage is above vref; a part list without it gets it from R1 and the
+#: context.  It is absent when the sensed voltage equals vref (no divider).
+OPTIONAL_DESIGNATORS = ("Rb",)
+DESIGNATORS = ("R1", "Rc", "Cc", "Chf")
 ZEROS = 1
 POLES = 1
 
@@ -47,17 +52,22 @@ POLES = 1
 def divider_bottom(r1: float, ctx: NetworkContext) -> float:
     """Bottom divider resistor ``Rb = R1 vref / (v_sensed - vref)``, ohm.
 
+    Returns ``inf`` (no bottom resistor: ``Hdiv = 1``) when the sensed voltage
+    equals the reference, e.g. behind a differential amplifier.
+
     Raises
     ------
     DesignError
-        When the sensed voltage is not above the reference (no divider can do it).
+        When the sensed voltage is below the reference (no divider can do it).
     """
-    if not (ctx.v_sensed > ctx.vref > 0):
+    if not (ctx.vref > 0 and ctx.v_sensed >= ctx.vref * (1 - 1e-9)):
         raise DesignError(
             "sensing.reference",
             format_value(ctx.vref, "V"),
-            f"must be > 0 and below the sensed voltage {format_value(ctx.v_sensed, 'V')} for a divider",
+            f"must be > 0 and not above the sensed voltage {format_value(ctx.v_sensed, 'V')}",
         )
+    if ctx.v_sensed - ctx.vref <= 1e-9 * ctx.vref:
+        return math.inf
     return r1 * ctx.vref / (ctx.v_sensed - ctx.vref)
 
 
@@ -80,9 +90,17 @@ def _part(parts: dict, name: str) -> float:
 def _values(parts: dict, ctx: NetworkContext) -> tuple[float, float, float, float, float]:
     """(Hdiv, Rc, Cc, Chf, Ro) with Ro = inf for an ideal amplifier; Rb defaults to the dc divider."""
     r1 = _part(parts, "R1")
-    rb = _part(parts, "Rb") if "Rb" in parts else divider_bottom(r1, ctx)
+    rb = _rb(parts, r1, ctx)
     ro = ctx.opamp.r_out if ctx.opamp.r_out > 0 else math.inf
-    return rb / (r1 + rb), _part(parts, "Rc"), _part(parts, "Cc"), _part(parts, "Chf"), ro
+    return _hdiv(r1, rb), _part(parts, "Rc"), _part(parts, "Cc"), _part(parts, "Chf"), ro
+
+
+def _rb(parts: dict, r1: float, ctx: NetworkContext) -> float:
+    return _part(parts, "Rb") if "Rb" in parts else divider_bottom(r1, ctx)
+
+
+def _hdiv(r1: float, rb: float) -> float:
+    return 1.0 if math.isinf(rb) else rb / (r1 + rb)
 
 
 def transfer(parts: dict, ctx: NetworkContext) -> Rational:
@@ -91,7 +109,8 @@ def transfer(parts: dict, ctx: NetworkContext) -> Rational:
     Parameters
     ----------
     parts : dict
-        ``R1``, ``Rb`` (ohm; ``Rb`` defaults to ``R1 vref/(v_sensed - vref)``),
+        ``R1``, ``Rb`` (ohm; ``Rb`` defaults to ``R1 vref/(v_sensed - vref)``,
+        none when the sensed voltage equals vref),
         ``Rc`` (ohm), ``Cc``, ``Chf`` (F).
     ctx : NetworkContext
         ``ctx.opamp.gm`` (S, required) and ``ctx.opamp.r_out`` (ohm, 0 = infinite).
@@ -149,12 +168,13 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
     ctx : NetworkContext
         Amplifier gm and Ro, reference and sensed voltage.
     fixed : dict
-        Must hold ``R1`` (ohm); ``Rb`` is always ``R1 vref/(v_sensed - vref)``.
+        Must hold ``R1`` (ohm); ``Rb`` is always ``R1 vref/(v_sensed - vref)``
+        (left out when the sensed voltage equals vref).
 
     Returns
     -------
     dict
-        ``R1``, ``Rb``, ``Rc``, ``Cc``, ``Chf`` (ohm, F).
+        ``R1``, ``Rb`` (when there is a divider), ``Rc``, ``Cc``, ``Chf`` (ohm, F).
 
     Notes
     -----
@@ -190,7 +210,7 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
     if not (r1 > 0):
         raise DesignError("compensator.parts.R1", r1, "must be > 0")
     rb = divider_bottom(r1, ctx)
-    hdiv = rb / (r1 + rb)
+    hdiv = _hdiv(r1, rb)
     gm = _gm(ctx)
     ro = ctx.opamp.r_out if ctx.opamp.r_out > 0 else math.inf
     if gain_at_fc >= hdiv * gm * ro:
@@ -212,7 +232,10 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
     y_target = hdiv * gm / gain_at_fc  # |1/Ro + k Y0| must equal this
     mag2 = a * a + b * b
     k = (-a * g + math.sqrt(a * a * g * g - mag2 * (g * g - y_target * y_target))) / mag2
-    return {"R1": r1, "Rb": rb, "Rc": rc0 / k, "Cc": cc0 * k, "Chf": chf0 * k}
+    parts = {"R1": r1, "Rb": rb, "Rc": rc0 / k, "Cc": cc0 * k, "Chf": chf0 * k}
+    if math.isinf(rb):
+        del parts["Rb"]
+    return parts
 
 
 def netlist(parts: dict, ctx: NetworkContext, title: str = "gm-type2 compensator") -> str:
@@ -226,12 +249,12 @@ def netlist(parts: dict, ctx: NetworkContext, title: str = "gm-type2 compensator
     _, rc, cc, chf, ro = _values(parts, ctx)
     gm = _gm(ctx)
     r1 = _part(parts, "R1")
-    rb = _part(parts, "Rb") if "Rb" in parts else divider_bottom(r1, ctx)
+    rb = _rb(parts, r1, ctx)
     ro_deck = 1e15 if math.isinf(ro) else ro
     elements = [
         f"Vref vref 0 DC {spice_number(ctx.vref)}",
         f"R1 in fb {spice_number(r1)}",
-        f"Rb fb 0 {spice_number(rb)}",
+        *([] if math.isinf(rb) else [f"Rb fb 0 {spice_number(rb)}"]),
         f"Gea out 0 fb vref {spice_number(gm)}",
         f"Ro out 0 {spice_number(ro_deck)}",
         f"Rc out nc {spice_number(rc)}",

@@ -58,9 +58,14 @@ from ..units import format_value
 from . import NetworkContext
 from .spice import OPAMP_SUBCKT, ac_deck, opamp_subcircuit, spice_number
 
-__all__ = ["DESIGNATORS", "ZEROS", "POLES", "OPTO_KEYS", "transfer", "synthesise", "poles_zeros", "netlist"]
+__all__ = ["DESIGNATORS", "OPTIONAL_DESIGNATORS", "ZEROS", "POLES", "OPTO_KEYS", "transfer", "synthesise", "poles_zeros", "netlist"]
 
-DESIGNATORS = ("R1", "Rb", "Rz", "Cz", "Cpole")
+#: Parts the transfer function needs.  ``Rb`` (divider bottom, ``R1 vref /
+#: (v_sensed - vref)``; it matters only with a finite-gain shunt) and ``Rz`` (zero
+#: resistor; absent = a short) are returned by :func:`synthesise` but may be left
+#: out of a part list: ``Rb`` is then computed from R1 and the context.
+OPTIONAL_DESIGNATORS = ("Rb", "Rz")
+DESIGNATORS = ("R1", "Cz", "Cpole")
 ZEROS = 1
 POLES = 1
 
@@ -88,12 +93,15 @@ def _opto(ctx: NetworkContext) -> tuple[float, float, float, float]:
 
 
 def _divider_bottom(r1: float, ctx: NetworkContext) -> float:
-    if not (ctx.v_sensed > ctx.vref > 0):
+    """``R1 vref / (v_sensed - vref)``; inf (no bottom resistor) when the sensed voltage equals vref."""
+    if not (ctx.vref > 0 and ctx.v_sensed >= ctx.vref * (1 - 1e-9)):
         raise DesignError(
             "sensing.reference",
             format_value(ctx.vref, "V"),
-            f"must be > 0 and below the sensed voltage {format_value(ctx.v_sensed, 'V')} for a divider",
+            f"must be > 0 and not above the sensed voltage {format_value(ctx.v_sensed, 'V')}",
         )
+    if ctx.v_sensed - ctx.vref <= 1e-9 * ctx.vref:
+        return math.inf
     return r1 * ctx.vref / (ctx.v_sensed - ctx.vref)
 
 
@@ -169,7 +177,7 @@ def transfer(parts: dict, ctx: NetworkContext) -> Rational:
     if amp is None:
         return Rational.from_factors(-k_mid / (r1 * cz), [(1.0, (r1 + rz) * cz)], [(0.0, 1.0), pole])
     na, da = amp
-    g1, gb = 1.0 / r1, 1.0 / rb
+    g1, gb = 1.0 / r1, 0.0 if math.isinf(rb) else 1.0 / rb
     nz, dz = [0.0, cz], [1.0, rz * cz]
     d = npoly.polyadd(npoly.polymul([g1 + gb], npoly.polymul(dz, da)), npoly.polymul(nz, npoly.polyadd(da, na)))
     n = npoly.polyadd(d, npoly.polymul([g1], npoly.polymul(na, dz)))
@@ -208,7 +216,7 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
     Returns
     -------
     dict
-        ``R1``, ``Rb``, ``Rz``, ``Cz``, ``Cpole`` (ohm, F).
+        ``R1``, ``Rb`` (when there is a divider), ``Rz``, ``Cz``, ``Cpole`` (ohm, F).
 
     Notes
     -----
@@ -282,7 +290,10 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
         )
     rz = r1 * (ratio - 1.0)
     cz = 1.0 / (wz * (r1 + rz))
-    return {"R1": r1, "Rb": rb, "Rz": rz, "Cz": cz, "Cpole": cpole}
+    parts = {"R1": r1, "Rb": rb, "Rz": rz, "Cz": cz, "Cpole": cpole}
+    if math.isinf(rb):
+        del parts["Rb"]
+    return parts
 
 
 def netlist(parts: dict, ctx: NetworkContext, title: str = "opto-type2 compensator") -> str:
@@ -299,7 +310,7 @@ def netlist(parts: dict, ctx: NetworkContext, title: str = "opto-type2 compensat
     elements = [
         f"Vref vref 0 DC {spice_number(ctx.vref)}",
         f"R1 in fb {spice_number(r1)}",
-        f"Rb fb 0 {spice_number(rb)}",
+        *([] if math.isinf(rb) else [f"Rb fb 0 {spice_number(rb)}"]),
         f"XU1 vref fb k {OPAMP_SUBCKT}",
     ]
     if rz > 0:
