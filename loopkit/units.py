@@ -7,11 +7,12 @@ where text becomes a number and back.
 from __future__ import annotations
 
 import math
+import numbers
 import re
 
 from .errors import DesignError
 
-__all__ = ["parse_value", "format_value", "PREFIXES"]
+__all__ = ["PREFIXES", "format_value", "parse_value"]
 
 #: SI prefixes accepted on input (``µ`` and ``μ`` are both micro; ``meg`` as in SPICE).
 PREFIXES = {
@@ -21,26 +22,31 @@ PREFIXES = {
 
 # Unit words accepted after the number/prefix (lower case) and the unit each means.
 _UNIT_WORDS = {
-    "ohm": "ohm", "ohms": "ohm", "ω": "ohm", "r": "ohm", "hz": "hz", "h": "h", "f": "f",
+    "ohm": "ohm", "ohms": "ohm", "ω": "ohm", "\u2126": "ohm", "r": "ohm", "hz": "hz", "h": "h", "f": "f",
     "v": "v", "a": "a", "s": "s", "w": "w", "%": "%", "deg": "deg", "db": "db",
 }
 
 _NUMBER = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
 _PREFIX = r"(?:meg|MEG|Meg|[fpnuµμmkKMG])?"
-_PLAIN = re.compile(rf"^({_NUMBER})\s*({_PREFIX})\s*([A-Za-zΩ%]*)$")
-# "2m2" = 2.2 m, "4k7" = 4.7 k, "1R5" = 1.5
-_INFIX = re.compile(r"^([+-]?\d+)([fpnuµμmkKMGR])(\d+)\s*([A-Za-zΩ%]*)$")
+_UNIT_CHARS = "A-Za-zΩ\u2126%"
+_PLAIN = re.compile(rf"^({_NUMBER})\s*({_PREFIX})\s*([{_UNIT_CHARS}]*)$")
+# "2m2" = 2.2 m, "4k7" = 4.7 k, "1R5" = 1.5 ohm (IEC 60062 letter code: R only for ohms)
+_INFIX = re.compile(rf"^([+-]?\d+)([fpnuµμmkKMGR])(\d+)\s*([{_UNIT_CHARS}]*)$")
 
 
-def _check_unit(text: str, unit_text: str, field: str, unit: str | None) -> None:
+def _meaning(unit: str) -> str:
+    return _UNIT_WORDS.get(unit.lower(), unit.lower())
+
+
+def _check_unit(text: str, unit_text: str, field: str, unit: str | None, prefix: str = "") -> None:
     if not unit_text:
         return
     meaning = _UNIT_WORDS.get(unit_text.lower())
     if meaning is None:
         raise DesignError(
-            field, text, f"unknown unit '{unit_text}' (use a number with an SI prefix, e.g. 22u, 4.7k, 400kHz)"
+            field, text, f"unknown unit '{prefix}{unit_text}' (use a number with an SI prefix, e.g. 22u, 4.7k, 400kHz)"
         )
-    if unit is not None and meaning != _UNIT_WORDS.get(unit.lower(), unit.lower()):
+    if unit is not None and meaning != _meaning(unit):
         raise DesignError(field, text, f"expected a value in {unit}, not '{unit_text}'")
 
 
@@ -77,20 +83,23 @@ def parse_value(text: object, field: str = "", unit: str | None = None) -> float
     """
     if isinstance(text, bool):
         raise DesignError(field, text, "expected a number, not true/false")
-    if isinstance(text, (int, float)):
+    if isinstance(text, numbers.Real):  # int, float and numpy scalars
         value = float(text)
         if not math.isfinite(value):
             raise DesignError(field, text, "must be a finite number")
         return value
     if not isinstance(text, str):
         raise DesignError(field, text, "expected a number such as 22u or 4.7k")
-    s = text.strip().replace(" ", "")
+    s = text.strip()  # blanks inside are allowed only between number, prefix and unit
     if not s:
         raise DesignError(field, text, "is empty; expected a number such as 22u or 4.7k")
     m = _INFIX.match(s)
     if m:
         whole, prefix, frac, unit_text = m.groups()
         scale = 1.0 if prefix == "R" else PREFIXES[prefix]
+        if prefix == "R" and unit is not None and _meaning(unit) != "ohm":
+            # "1R5" on an inductor usually means 1.5 uH; never guess: R is ohms only.
+            raise DesignError(field, text, f"'R' as a decimal mark is for ohms only; give the value in {unit} with an SI prefix (e.g. 1.5u)")
         _check_unit(text, unit_text, field, unit)
         return _scaled(f"{whole}.{frac}", scale)
     m = _PLAIN.match(s)
@@ -100,15 +109,14 @@ def parse_value(text: object, field: str = "", unit: str | None = None) -> float
     # "m" is milli and "M" mega; "10f" is femto, as in SPICE; a unit letter that is
     # not a prefix (H, V, A, Hz) is taken as the unit.
     scale = 1e6 if prefix.lower() == "meg" else PREFIXES[prefix]
-    _check_unit(text, unit_text, field, unit)
+    _check_unit(text, unit_text, field, unit, prefix)
     value = _scaled(number, scale)
     if not math.isfinite(value):
         raise DesignError(field, text, "must be a finite number")
     return value
 
 
-_OUT_PREFIXES = [(1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"),
-                 (1e-6, "µ"), (1e-9, "n"), (1e-12, "p"), (1e-15, "f")]
+_OUT_PREFIXES = {9: "G", 6: "M", 3: "k", 0: "", -3: "m", -6: "µ", -9: "n", -12: "p", -15: "f"}
 
 
 def format_value(value: float, unit: str = "", digits: int = 3, ascii_only: bool = False) -> str:
@@ -121,36 +129,41 @@ def format_value(value: float, unit: str = "", digits: int = 3, ascii_only: bool
     unit : str
         Unit appended after the prefix (``"H"``, ``"Hz"``, ``"Ω"``...).
     digits : int
-        Significant digits (trailing zeros are dropped).
+        Significant digits, >= 1 (trailing zeros are dropped).
     ascii_only : bool
         Write ``u`` instead of ``µ`` (for files and netlists).
 
     Returns
     -------
     str
-        e.g. ``format_value(2.2e-5, "H") == "22µH"``; the text parses back with
-        :func:`parse_value` to the value rounded to ``digits`` digits.
+        e.g. ``format_value(2.2e-5, "H") == "22µH"``.  The text is the decimal
+        ``f"{value:.{digits}g}"`` with its point moved to a prefix from f to G, so
+        :func:`parse_value` reads it back as exactly ``float(f"{value:.{digits}g}")``.
+        Magnitudes below 1f or from 1000G are written as ``1.5e-18``.  NaN and
+        infinity give ``"—"`` (``"-"`` with ``ascii_only``).
     """
+    if digits < 1:
+        raise ValueError(f"digits must be >= 1, not {digits}")
     if value is None or not math.isfinite(value):
         return "—" if not ascii_only else "-"
     if value == 0:
         return f"0{unit}"
     sign = "-" if value < 0 else ""
-    mag = abs(value)
-    rounded = float(f"{mag:.{digits}g}")
-    for scale, prefix in _OUT_PREFIXES:
-        if rounded >= scale * 0.9999999999:
-            break
-    else:
-        scale, prefix = _OUT_PREFIXES[-1]
-    mantissa = float(f"{rounded / scale:.{digits}g}")
-    if mantissa >= 1000 and scale < 1e9:
-        idx = [s for s, _ in _OUT_PREFIXES].index(scale)
-        scale, prefix = _OUT_PREFIXES[idx - 1]
-        mantissa = float(f"{rounded / scale:.{digits}g}")
-    text = f"{mantissa:.{digits}g}"
-    if "e" in text:
-        text = f"{mantissa:f}".rstrip("0").rstrip(".")
+    mag = abs(float(value))
+    mant, exp_text = f"{mag:.{digits - 1}e}".split("e")  # correctly rounded: "4.70", "+03"
+    exp = int(exp_text)
+    figures = mant.replace(".", "")
+    eng = 3 * (exp // 3)
+    if eng not in _OUT_PREFIXES:
+        if math.isinf(float(f"{mant}e{exp}")):  # rounded past the largest double: keep every digit
+            return f"{sign}{mag!r}{unit}".replace("e+", "e")
+        whole, _, frac = mant.partition(".")
+        frac = frac.rstrip("0")
+        return f"{sign}{whole}{'.' + frac if frac else ''}e{exp}{unit}"
+    shift = exp - eng + 1  # figures before the decimal point: 1, 2 or 3
+    whole = figures[:shift].ljust(shift, "0")
+    frac = figures[shift:].rstrip("0")
+    prefix = _OUT_PREFIXES[eng]
     if ascii_only and prefix == "µ":
         prefix = "u"
-    return f"{sign}{text}{prefix}{unit}"
+    return f"{sign}{whole}{'.' + frac if frac else ''}{prefix}{unit}"
