@@ -316,7 +316,7 @@ def _cmd_bode(args) -> int:
         prefix = f"{kind} " if len(kinds) > 1 else ""
         if kind == "compensator":
             mag, ph = result.compensator.bode(f_hz)
-            curves.append((f"{prefix}compensator".strip(), mag[0], ph[0]))
+            curves.append(("compensator", mag[0], ph[0]))
             continue
         tf = stage.gvd if kind == "plant" else result.loop
         mag, ph = tf.bode(f_hz)
