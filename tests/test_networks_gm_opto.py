@@ -26,8 +26,7 @@ from hypothesis import strategies as st
 
 from loopkit.design import OpAmp
 from loopkit.errors import DesignError, InfeasibleDesign
-from loopkit.networks import NetworkContext, network_module
-from loopkit.networks import gm_type2, opto_type2
+from loopkit.networks import NetworkContext, gm_type2, network_module, opto_type2
 
 F_HZ = np.logspace(1, 6, 201)  # 10 Hz .. 1 MHz
 
@@ -49,27 +48,27 @@ def mna_gain(f_hz, elements, out: str) -> np.ndarray:
     n_extra = 1 + sum(e[0] in ("E", "NULLOR") for e in elements)  # the source at "in" + one per branch
     size = len(nodes) + n_extra
     result = np.empty(len(f_hz), dtype=complex)
+
+    def add(a, r, c, v):
+        if r != "0" and c != "0":
+            a[idx[r], idx[c]] += v
+
+    def add_row(a, row, node, v):
+        if node != "0":
+            a[row, idx[node]] += v
+
+    def add_col(a, node, col, v):
+        if node != "0":
+            a[idx[node], col] += v
+
     for fi, f in enumerate(f_hz):
         s = 2j * np.pi * f
         a = np.zeros((size, size), dtype=complex)
         z = np.zeros(size, dtype=complex)
-
-        def add(r, c, v):
-            if r != "0" and c != "0":
-                a[idx[r], idx[c]] += v
-
-        def add_row(row, node, v):
-            if node != "0":
-                a[row, idx[node]] += v
-
-        def add_col(node, col, v):
-            if node != "0":
-                a[idx[node], col] += v
-
         branch = len(nodes)
         # 1 V at "in": branch current unknown
-        add_col("in", branch, 1.0)
-        add_row(branch, "in", 1.0)
+        add_col(a, "in", branch, 1.0)
+        add_row(a, branch, "in", 1.0)
         z[branch] = 1.0
         branch += 1
         for e in elements:
@@ -77,22 +76,22 @@ def mna_gain(f_hz, elements, out: str) -> np.ndarray:
             if kind in ("R", "C"):
                 _, p, q, v = e
                 y = 1.0 / v if kind == "R" else s * v
-                add(p, p, y), add(q, q, y), add(p, q, -y), add(q, p, -y)
+                add(a, p, p, y), add(a, q, q, y), add(a, p, q, -y), add(a, q, p, -y)
             elif kind == "G":
                 _, p, q, c, d, gm = e
                 # current gm (Vc - Vd) leaves p, enters q
-                add(p, c, gm), add(p, d, -gm), add(q, c, -gm), add(q, d, gm)
+                add(a, p, c, gm), add(a, p, d, -gm), add(a, q, c, -gm), add(a, q, d, gm)
             elif kind == "E":
                 _, p, q, c, d, gain = e
                 g = gain(s) if callable(gain) else gain
-                add_col(p, branch, 1.0), add_col(q, branch, -1.0)
-                add_row(branch, p, 1.0), add_row(branch, q, -1.0)
-                add_row(branch, c, -g), add_row(branch, d, g)
+                add_col(a, p, branch, 1.0), add_col(a, q, branch, -1.0)
+                add_row(a, branch, p, 1.0), add_row(a, branch, q, -1.0)
+                add_row(a, branch, c, -g), add_row(a, branch, d, g)
                 branch += 1
             elif kind == "NULLOR":
                 _, inp, inn, o = e
-                add_col(o, branch, 1.0)  # the output supplies whatever current is needed
-                add_row(branch, inp, 1.0), add_row(branch, inn, -1.0)
+                add_col(a, o, branch, 1.0)  # the output supplies whatever current is needed
+                add_row(a, branch, inp, 1.0), add_row(a, branch, inn, -1.0)
                 branch += 1
             else:
                 raise ValueError(kind)

@@ -37,7 +37,17 @@ from ..units import format_value
 from . import NetworkContext
 from .spice import ac_deck, spice_number
 
-__all__ = ["DESIGNATORS", "OPTIONAL_DESIGNATORS", "ZEROS", "POLES", "transfer", "synthesise", "poles_zeros", "netlist", "divider_bottom"]
+__all__ = [
+    "DESIGNATORS",
+    "OPTIONAL_DESIGNATORS",
+    "POLES",
+    "ZEROS",
+    "divider_bottom",
+    "netlist",
+    "poles_zeros",
+    "synthesise",
+    "transfer",
+]
 
 #: Parts the transfer function needs.  The divider's bottom resistor ``Rb``
 #: (``R1 vref / (v_sensed - vref)``) is returned by :func:`synthesise` whenever the
@@ -221,7 +231,7 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
             f"{20 * math.log10(gain_at_fc):.1f} dB needed at fc",
             reasons=("use an amplifier with more gm or Ro, a lower crossover, or more output capacitance",),
         )
-    wc, wz, wp = TWO_PI * fc_hz, TWO_PI * fz, TWO_PI * fp
+    wc, wz = TWO_PI * fc_hz, TWO_PI * fz
     # unit design, Ct = 1 F: Y0 = j wc Chf + j wc Cc / (1 + j wc Rc Cc)
     chf0 = fz / fp
     cc0 = 1.0 - chf0

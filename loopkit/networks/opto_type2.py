@@ -58,7 +58,17 @@ from ..units import format_value
 from . import NetworkContext
 from .spice import OPAMP_SUBCKT, ac_deck, opamp_subcircuit, spice_number
 
-__all__ = ["DESIGNATORS", "OPTIONAL_DESIGNATORS", "ZEROS", "POLES", "OPTO_KEYS", "transfer", "synthesise", "poles_zeros", "netlist"]
+__all__ = [
+    "DESIGNATORS",
+    "OPTIONAL_DESIGNATORS",
+    "OPTO_KEYS",
+    "POLES",
+    "ZEROS",
+    "netlist",
+    "poles_zeros",
+    "synthesise",
+    "transfer",
+]
 
 #: Parts the transfer function needs.  ``Rb`` (divider bottom, ``R1 vref /
 #: (v_sensed - vref)``; it matters only with a finite-gain shunt) and ``Rz`` (zero
@@ -263,8 +273,8 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
             f"below the wanted pole {format_value(fp, 'Hz')}, so Cpole would be {format_value(cpole, 'F')}",
             reasons=(
                 f"place the pole below {format_value(f_opto, 'Hz')} (lower crossover or less phase margin)",
-                "lower Rpull (compensator.opto.r_pull) to move the optocoupler's pole up; the mid-band gain "
-                "CTR Rpull/R_LED falls with it, so lower R_LED too",
+                ("lower Rpull (compensator.opto.r_pull) to move the optocoupler's pole up; the mid-band gain "
+                 "CTR Rpull/R_LED falls with it, so lower R_LED too"),
                 "use an optocoupler with less collector capacitance (more bandwidth)",
             ),
         )
@@ -282,8 +292,8 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
             f"{20 * math.log10(k_fast):.1f} dB (CTR {ctr:g}, Rpull {format_value(r_pull, 'Ω')}), more than the "
             f"{20 * math.log10(g_mid):.1f} dB this crossover needs; the zero resistor can only add gain",
             reasons=(
-                f"raise R_LED above {format_value(r_led_needed, 'Ω')} if the LED and the shunt regulator still get "
-                "their bias current at the lowest output voltage",
+                (f"raise R_LED above {format_value(r_led_needed, 'Ω')} if the LED and the shunt regulator still "
+                 "get their bias current at the lowest output voltage"),
                 "or lower CTR x Rpull (optocoupler with lower CTR, smaller Rpull with a larger Cpole)",
                 "or choose a crossover where the power stage has less gain",
             ),
