@@ -40,10 +40,10 @@ __all__ = [
     "IDEAL_GAIN",
     "OPAMP_SUBCKT",
     "AcResult",
-    "spice_number",
-    "opamp_subcircuit",
     "ac_deck",
+    "opamp_subcircuit",
     "run_ac",
+    "spice_number",
 ]
 
 #: File the deck's ``wrdata`` writes, relative to ngspice's working directory.
@@ -227,7 +227,13 @@ def run_ac(deck: str, *, timeout_s: float = 60.0, ngspice: str | None = None) ->
         path = Path(tmp) / "deck.cir"
         path.write_text(deck)
         proc = subprocess.run(
-            [exe, "-b", str(path)], cwd=tmp, capture_output=True, text=True, timeout=timeout_s, stdin=subprocess.DEVNULL
+            [exe, "-b", str(path)],
+            check=False,
+            cwd=tmp,
+            capture_output=True,
+            text=True,
+            timeout=timeout_s,
+            stdin=subprocess.DEVNULL,
         )
         out = Path(tmp) / AC_OUTPUT_FILE
         if proc.returncode != 0 or not out.exists():
