@@ -32,43 +32,96 @@ Format (version 1)::
     [compensator.opamp], [compensator.placement], [compensator.opto])
 
 Numbers may be TOML numbers or strings in engineering notation (``"22u"``,
-``"4.7k"``, ``"400kHz"``).  Every error names the file, the key, the value and
-what is allowed.
+``"4.7k"``, ``"400kHz"``); a unit letter must match the field (``"22uF"`` is
+refused for an inductance; parts take ohms for R designators, farads for C).
+Every error names the file, the key, the value as written and what is allowed.
+
+Ranges: give either a list (``vin = [...]``) or ``vin_min``/``vin_max`` with
+``vin_points`` (default 3, at least 2 unless min = max), linearly spaced, ends
+exact; ``vin_nominal`` must lie in the range and becomes a corner of its own.
+Loads likewise (``load_points`` default 2), geometrically spaced.  A saved file
+holds the explicit lists, so it reads back to the same corners.
+
+Writing (:func:`dumps_design`, :func:`save_design`) gives the exact design back
+on reading; fields at their default that do not apply to the design (e.g. the
+turns ratio of a buck) are left out so the file reads cleanly.
 """
 
 from __future__ import annotations
 
+import math
 import os
-import tempfile
+import re
+import secrets
+import stat
 import tomllib
-from dataclasses import fields
+from dataclasses import MISSING, fields
 from pathlib import Path
 
 import numpy as np
 
-from .design import CapacitorBank, Compensator, Design, Modulator, Operating, OpAmp, Sensing, Stage
+from .design import CapacitorBank, Compensator, Design, Modulator, OpAmp, Operating, Sensing, Stage
 from .errors import DesignError, DesignFileError
+from .eseries import is_capacitor, is_resistor
+from .networks.opto_type2 import OPTO_KEYS
 from .units import format_value, parse_value
 
-__all__ = ["load_design", "loads_design", "save_design", "dumps_design", "design_from_dict", "design_to_dict"]
+__all__ = ["design_from_dict", "design_to_dict", "dumps_design", "load_design", "loads_design", "save_design"]
 
 FORMAT = "loopkit-design"
 VERSION = 1
 
 _TEXT = {"topology", "rectifier", "light_load", "kind", "network", "method", "resistor_series", "capacitor_series"}
 _UNITS = {
-    "fsw": "Hz", "inductance": "H", "dcr": "ohm", "r_switch": "ohm", "r_rectifier": "ohm",
-    "diode_drop": "V", "capacitance": "F", "esr": "ohm", "vout": "V", "vin": "V", "load": "A",
-    "reference": "V", "r_top": "ohm", "divider_current": "A", "diff_bandwidth": "Hz", "ramp": "V",
-    "fc": "Hz", "gbw": "Hz", "r_out": "ohm",
+    "fsw": "Hz",
+    "inductance": "H",
+    "dcr": "ohm",
+    "r_switch": "ohm",
+    "r_rectifier": "ohm",
+    "diode_drop": "V",
+    "capacitance": "F",
+    "esr": "ohm",
+    "vout": "V",
+    "vin": "V",
+    "load": "A",
+    "reference": "V",
+    "r_top": "ohm",
+    "divider_current": "A",
+    "diff_bandwidth": "Hz",
+    "ramp": "V",
+    "fc": "Hz",
+    "gbw": "Hz",
+    "r_out": "ohm",
 }
+#: Dimensionless fields written as plain TOML numbers (the rest as engineering text).
+_PLAIN_NUMBERS = {
+    "pm",
+    "max_duty",
+    "turns_ratio",
+    "buck_max_duty",
+    "boost_min_duty",
+    "boost_split",
+    "gain_db",
+    "ctr",
+    "gain",
+}
+#: Keys of [compensator.placement] (Hz, except the dimensionless ``gain``).
+PLACEMENT_KEYS = ("fz", "fp", "fz1", "fz2", "fp1", "fp2", "gain")
+
+
+def _table(value, where: str, header: str = "") -> dict:
+    if not isinstance(value, dict):
+        shown = "(a list of tables)" if isinstance(value, list) else value
+        raise DesignError(where, shown, f"must be a table ({header or f'[{where}]'})")
+    return value
 
 
 def _check_keys(table: dict, allowed: set, where: str) -> None:
-    for key in table:
+    for key, value in table.items():
         if key not in allowed:
-            raise DesignError(f"{where}.{key}" if where else key, table[key],
-                              f"unknown key; allowed here: {', '.join(sorted(allowed))}")
+            raise DesignError(
+                f"{where}.{key}" if where else key, value, f"unknown key; allowed here: {', '.join(sorted(allowed))}"
+            )
 
 
 def _number(table: dict, key: str, where: str, default=None):
@@ -101,12 +154,17 @@ def _section(cls, table: dict, where: str, extra: dict | None = None, skip: tupl
 
 
 def _list_or_range(table: dict, key: str, where: str, log: bool) -> tuple[float, ...]:
+    lo_key, hi_key, n_key = f"{key}_min", f"{key}_max", f"{key}_points"
     if key in table:
+        both = [k for k in (lo_key, hi_key, n_key) if k in table]
+        if both:
+            raise DesignError(
+                f"{where}.{both[0]}", table[both[0]], f"give either {key} = [...] or {lo_key}/{hi_key}, not both"
+            )
         values = table[key]
         if not isinstance(values, list):
             values = [values]
         return tuple(parse_value(v, f"{where}.{key}[{i}]", _UNITS[key]) for i, v in enumerate(values))
-    lo_key, hi_key, n_key = f"{key}_min", f"{key}_max", f"{key}_points"
     if lo_key not in table or hi_key not in table:
         raise DesignError(f"{where}.{key}", "(missing)", f"give a list {key} = [...] or {lo_key} and {hi_key}")
     lo = parse_value(table[lo_key], f"{where}.{lo_key}", _UNITS[key])
@@ -114,13 +172,16 @@ def _list_or_range(table: dict, key: str, where: str, log: bool) -> tuple[float,
     if not hi >= lo:
         raise DesignError(f"{where}.{hi_key}", table[hi_key], f"must be >= {where}.{lo_key} ({table[lo_key]})")
     n = table.get(n_key, 3 if key == "vin" else 2)
-    if not isinstance(n, int) or n < 1 or n > 1000:
-        raise DesignError(f"{where}.{n_key}", n, "must be a whole number from 1 to 1000")
-    if n == 1 or hi == lo:
-        return (lo,) if hi == lo else (lo, hi)[:n]
-    if log and lo > 0:
-        return tuple(float(v) for v in np.geomspace(lo, hi, n))
-    return tuple(float(v) for v in np.linspace(lo, hi, n))
+    if hi == lo:
+        if n_key in table and n != 1:
+            raise DesignError(f"{where}.{n_key}", n, f"must be 1 when {lo_key} = {hi_key}")
+        return (lo,)
+    if not isinstance(n, int) or isinstance(n, bool) or n < 2 or n > 1000:
+        raise DesignError(f"{where}.{n_key}", n, "must be a whole number from 2 to 1000 (the range has two ends)")
+    spaced = np.geomspace(lo, hi, n) if log and lo > 0 else np.linspace(lo, hi, n)
+    values = [float(v) for v in spaced]
+    values[0], values[-1] = lo, hi  # the ends exactly as given
+    return tuple(values)
 
 
 def design_from_dict(data: dict) -> Design:
@@ -135,17 +196,18 @@ def design_from_dict(data: dict) -> Design:
     for name in ("stage", "operating"):
         if name not in data:
             raise DesignError(name, "(missing)", f"the [{name}] table is required")
-    st = data["stage"]
-    if not isinstance(st, dict):
-        raise DesignError("stage", st, "must be a table")
+    st = _table(data["stage"], "stage")
     caps_raw = st.get("output_caps")
     if caps_raw is None:
         raise DesignError("stage.output_caps", "(missing)", "give at least one [[stage.output_caps]] bank")
     if isinstance(caps_raw, dict):
         caps_raw = [caps_raw]
+    if not isinstance(caps_raw, list):
+        raise DesignError("stage.output_caps", caps_raw, "must be one or more [[stage.output_caps]] tables")
     banks = []
     for i, bank in enumerate(caps_raw):
         where = f"stage.output_caps[{i}]"
+        _table(bank, where, "[[stage.output_caps]] with capacitance, esr, count")
         _check_keys(bank, {"capacitance", "esr", "count"}, where)
         if "capacitance" not in bank:
             raise DesignError(f"{where}.capacitance", "(missing)", "is required")
@@ -158,39 +220,68 @@ def design_from_dict(data: dict) -> Design:
             raise DesignError(f"stage.{key}", "(missing)", "is required")
     stage = _section(Stage, st, "stage", extra={"output_caps": tuple(banks)})
 
-    op = data["operating"]
-    allowed = {"vout", "vin", "vin_min", "vin_max", "vin_points", "vin_nominal",
-               "load", "load_min", "load_max", "load_points"}
+    op = _table(data["operating"], "operating")
+    allowed = {
+        "vout",
+        "vin",
+        "vin_min",
+        "vin_max",
+        "vin_points",
+        "vin_nominal",
+        "load",
+        "load_min",
+        "load_max",
+        "load_points",
+    }
     _check_keys(op, allowed, "operating")
     if "vout" not in op:
         raise DesignError("operating.vout", "(missing)", "is required")
     vin = _list_or_range(op, "vin", "operating", log=False)
     nominal = _number(op, "vin_nominal", "operating") if "vin_nominal" in op else None
-    if nominal is not None and "vin" not in op and min(vin) <= nominal <= max(vin) and nominal not in vin:
-        vin = tuple(sorted(vin + (nominal,)))  # a range always includes its nominal input
+    if nominal is not None and "vin" not in op:
+        lo, hi = vin[0], vin[-1]
+        if not lo <= nominal <= hi:
+            raise DesignError(
+                "operating.vin_nominal",
+                op["vin_nominal"],
+                f"must lie within vin_min .. vin_max ({format_value(lo, 'V')} .. {format_value(hi, 'V')})",
+            )
+        # a range always includes its nominal input (replacing a point within 1e-9 of it)
+        vin = tuple(sorted([v for v in vin if abs(v - nominal) > 1e-9 * nominal] + [nominal]))
     operating = Operating(
         vout=_number(op, "vout", "operating"),
         vin=vin,
         load=_list_or_range(op, "load", "operating", log=True),
         vin_nominal=nominal,
     )
-    sensing = _section(Sensing, data.get("sensing", {}), "sensing")
-    modulator = _section(Modulator, data.get("modulator", {}), "modulator")
-    compensator = _compensator(data.get("compensator", {}))
+    sensing = _section(Sensing, _table(data.get("sensing", {}), "sensing"), "sensing")
+    modulator = _section(Modulator, _table(data.get("modulator", {}), "modulator"), "modulator")
+    compensator = _compensator(_table(data.get("compensator", {}), "compensator"))
     title = data.get("title", "")
     if not isinstance(title, str):
         raise DesignError("title", title, "must be text")
     return Design(stage, operating, sensing, modulator, compensator, title)
 
 
+def _part_unit(designator: str) -> str | None:
+    """Unit a part's value may carry: ohm for resistors, F for capacitors."""
+    return "ohm" if is_resistor(designator) else "F" if is_capacitor(designator) else None
+
+
 def _compensator(table: dict) -> Compensator:
     where = "compensator"
     sub = {}
-    parts = table.get("parts", {})
-    sub["parts"] = {k: parse_value(v, f"{where}.parts.{k}") for k, v in parts.items()}
-    sub["placement"] = {k: parse_value(v, f"{where}.placement.{k}") for k, v in table.get("placement", {}).items()}
-    sub["opto"] = {k: parse_value(v, f"{where}.opto.{k}") for k, v in table.get("opto", {}).items()}
-    sub["opamp"] = _section(OpAmp, table.get("opamp", {}), f"{where}.opamp")
+    parts = _table(table.get("parts", {}), f"{where}.parts")
+    sub["parts"] = {k: parse_value(v, f"{where}.parts.{k}", _part_unit(k)) for k, v in parts.items()}
+    placement = _table(table.get("placement", {}), f"{where}.placement")
+    _check_keys(placement, set(PLACEMENT_KEYS), f"{where}.placement")
+    sub["placement"] = {
+        k: parse_value(v, f"{where}.placement.{k}", None if k == "gain" else "Hz") for k, v in placement.items()
+    }
+    opto = _table(table.get("opto", {}), f"{where}.opto")
+    _check_keys(opto, set(OPTO_KEYS), f"{where}.opto")
+    sub["opto"] = {k: parse_value(v, f"{where}.opto.{k}", OPTO_KEYS[k] or None) for k, v in opto.items()}
+    sub["opamp"] = _section(OpAmp, _table(table.get("opamp", {}), f"{where}.opamp"), f"{where}.opamp")
     corner = table.get("design_corner", "worst")
     if corner == "worst":
         corner = None
@@ -201,8 +292,37 @@ def _compensator(table: dict) -> Compensator:
     return _section(Compensator, rest, where, extra=sub, skip=tuple(sub))
 
 
+def _raw(data: dict, field: str):
+    """The value at a dotted field (``stage.output_caps[0].esr``) as written, or None."""
+    node = data
+    for token in re.findall(r"\[\d+\]|[^.\[\]]+", field):
+        if token.startswith("["):
+            i = int(token[1:-1])
+            if not isinstance(node, list) or i >= len(node):
+                return None
+            node = node[i]
+        else:
+            if not isinstance(node, dict) or token not in node:
+                return None
+            node = node[token]
+    return node
+
+
 def loads_design(text: str, file: str = "<text>") -> Design:
-    """Parse TOML text into a :class:`Design`; errors carry ``file``."""
+    """Parse TOML text into a :class:`Design`.
+
+    Parameters
+    ----------
+    text : str
+        The design file's content.
+    file : str
+        Name shown in error messages.
+
+    Raises
+    ------
+    DesignFileError
+        Naming ``file``, the key, the value as written there and what is allowed.
+    """
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -212,22 +332,29 @@ def loads_design(text: str, file: str = "<text>") -> Design:
     except DesignFileError:
         raise
     except DesignError as exc:
-        raise DesignFileError(file, exc.field, exc.value, exc.allowed) from None
+        raw = _raw(data, exc.field) if exc.field else None
+        value = raw if isinstance(raw, str) else exc.value  # show what the user typed
+        raise DesignFileError(file, exc.field, value, exc.allowed) from None
 
 
 def load_design(path) -> Design:
-    """Read and validate a design file."""
+    """Read and validate a design file (UTF-8 TOML); errors name the file."""
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
     except OSError as exc:
         raise DesignFileError(str(path), "", "(file)", f"cannot be read: {exc.strerror}") from None
+    except UnicodeDecodeError as exc:
+        raise DesignFileError(str(path), "", "(file)", f"is not UTF-8 text (byte {exc.start})") from None
     return loads_design(text, str(path))
 
 
 # ---------------------------------------------------------------------- writing
 def _exact(value: float) -> str:
-    """Engineering text that parses back to exactly ``value``."""
+    """Engineering text that parses back to exactly ``value`` (``"0.8"``, ``"14m"``, ``"4.7u"``)."""
+    plain = repr(float(value))
+    if 0.1 <= abs(value) < 1 and len(plain) <= 6:  # "0.8" reads better than "800m"
+        return plain
     for digits in range(4, 18):
         text = format_value(value, digits=digits, ascii_only=True)
         if parse_value(text) == value:
@@ -235,35 +362,99 @@ def _exact(value: float) -> str:
     return repr(float(value))
 
 
-def _toml_value(value) -> str:
+_ESCAPES = {'"': '\\"', "\\": "\\\\", "\b": "\\b", "\t": "\\t", "\n": "\\n", "\f": "\\f", "\r": "\\r"}
+
+
+def _toml_string(value: str) -> str:
+    out = []
+    for ch in value:
+        if ch in _ESCAPES:
+            out.append(_ESCAPES[ch])
+        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
+            out.append(f"\\u{ord(ch):04X}")
+        else:
+            out.append(ch)
+    return '"' + "".join(out) + '"'
+
+
+def _toml_key(key: str) -> str:
+    return key if re.fullmatch(r"[A-Za-z0-9_-]+", key) else _toml_string(key)
+
+
+def _toml_value(value, key: str = "") -> str:
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, str):
-        escaped = value.replace("\\", "\\\\").replace('"', '\\"')
-        return f'"{escaped}"'
-    if isinstance(value, int):
-        return str(value)
+        return _toml_string(value)
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
     if isinstance(value, float):
+        if key in _PLAIN_NUMBERS and math.isfinite(value):
+            return repr(float(value))  # tomllib reads repr back to the same double
         return f'"{_exact(value)}"'
     if isinstance(value, (list, tuple)):
-        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+        return "[" + ", ".join(_toml_value(v, key) for v in value) + "]"
     raise TypeError(f"cannot write {value!r}")
 
 
+def _defaults(cls) -> dict:
+    out = {}
+    for f in fields(cls):
+        if f.default is not MISSING:
+            out[f.name] = f.default
+        elif f.default_factory is not MISSING:
+            out[f.name] = f.default_factory()
+    return out
+
+
+def _without(body: dict, cls, names) -> dict:
+    """``body`` without the fields ``names`` that hold their dataclass default."""
+    defaults = _defaults(cls)
+    return {k: v for k, v in body.items() if not (k in names and k in defaults and v == defaults[k])}
+
+
 def design_to_dict(design: Design) -> dict:
-    """The TOML document of a design, as nested dicts (values in SI)."""
+    """The TOML document of a design, as nested dicts (values in SI).
+
+    Fields that hold their default and do not apply to the design (the turns
+    ratio of a non-flyback, the four-switch mode thresholds elsewhere, the diode
+    drop of a synchronous rectifier, the differential amplifier's bandwidth with
+    a divider, Type III's boost split on other networks, the op-amp or gm
+    amplifier figures the network does not use) are left out; reading the
+    document back gives the same design.
+    """
     st = design.stage
     stage = {f.name: getattr(st, f.name) for f in fields(Stage) if f.name != "output_caps"}
+    irrelevant = set()
+    if st.topology != "flyback":
+        irrelevant.add("turns_ratio")
+    if st.topology != "four-switch-buck-boost":
+        irrelevant |= {"buck_max_duty", "boost_min_duty"}
+    if st.synchronous:
+        irrelevant.add("diode_drop")
+    stage = _without(stage, Stage, irrelevant)
     stage["output_caps"] = [{"capacitance": b.capacitance, "esr": b.esr, "count": b.count} for b in st.output_caps]
     op = design.operating
     operating = {"vout": op.vout, "vin": list(op.vin), "load": list(op.load)}
     if op.vin_nominal is not None:
         operating["vin_nominal"] = op.vin_nominal
+    sensing = {f.name: getattr(design.sensing, f.name) for f in fields(Sensing)}
+    if design.sensing.kind == "divider":
+        sensing = _without(sensing, Sensing, {"diff_bandwidth"})
     comp = design.compensator
-    compensator = {f.name: getattr(comp, f.name) for f in fields(Compensator)
-                   if f.name not in ("parts", "placement", "opto", "opamp", "design_corner")}
+    compensator = {
+        f.name: getattr(comp, f.name)
+        for f in fields(Compensator)
+        if f.name not in ("parts", "placement", "opto", "opamp", "design_corner")
+    }
+    if comp.network != "type3":
+        compensator = _without(compensator, Compensator, {"boost_split"})
     compensator["design_corner"] = "worst" if comp.design_corner is None else comp.design_corner
-    compensator["opamp"] = {f.name: getattr(comp.opamp, f.name) for f in fields(OpAmp)}
+    opamp = {f.name: getattr(comp.opamp, f.name) for f in fields(OpAmp)}
+    unused = {"gain_db", "gbw"} if comp.network == "gm-type2" else {"gm", "r_out"}
+    opamp = _without(opamp, OpAmp, unused)
+    if opamp:
+        compensator["opamp"] = opamp
     for name in ("parts", "placement", "opto"):
         if getattr(comp, name):
             compensator[name] = dict(getattr(comp, name))
@@ -273,31 +464,39 @@ def design_to_dict(design: Design) -> dict:
         "title": design.title,
         "stage": stage,
         "operating": operating,
-        "sensing": {f.name: getattr(design.sensing, f.name) for f in fields(Sensing)},
+        "sensing": sensing,
         "modulator": {f.name: getattr(design.modulator, f.name) for f in fields(Modulator)},
         "compensator": compensator,
     }
 
 
 def dumps_design(design: Design) -> str:
-    """TOML text of a design; ``loads_design(dumps_design(d)) == d``."""
+    """TOML text of a design; ``loads_design(dumps_design(d)) == d``.
+
+    Values with a unit are written in engineering notation with as many digits
+    as it takes to read back the same double (``"4.7u"``, ``"49.9k"``);
+    dimensionless ones (phase margin, duty limits, turns ratio) as TOML numbers.
+    """
     data = design_to_dict(design)
     lines = ["# loopkit design file: a design aid; verify every result on the bench.", ""]
 
     def table(name: str, body: dict) -> None:
-        simple = {k: v for k, v in body.items() if not isinstance(v, (dict, list)) or
-                  (isinstance(v, list) and not (v and isinstance(v[0], dict)))}
+        simple = {
+            k: v
+            for k, v in body.items()
+            if not isinstance(v, (dict, list)) or (isinstance(v, list) and not (v and isinstance(v[0], dict)))
+        }
         lines.append(f"[{name}]")
         for k, v in simple.items():
-            lines.append(f"{k} = {_toml_value(v)}")
+            lines.append(f"{_toml_key(k)} = {_toml_value(v, k)}")
         lines.append("")
         for k, v in body.items():
             if isinstance(v, dict):
-                table(f"{name}.{k}", v)
+                table(f"{name}.{_toml_key(k)}", v)
             elif isinstance(v, list) and v and isinstance(v[0], dict):
                 for item in v:
-                    lines.append(f"[[{name}.{k}]]")
-                    lines.extend(f"{ik} = {_toml_value(iv)}" for ik, iv in item.items())
+                    lines.append(f"[[{name}.{_toml_key(k)}]]")
+                    lines.extend(f"{_toml_key(ik)} = {_toml_value(iv, ik)}" for ik, iv in item.items())
                     lines.append("")
 
     for key in ("format", "version", "title"):
@@ -308,18 +507,56 @@ def dumps_design(design: Design) -> str:
     return "\n".join(lines).rstrip() + "\n"
 
 
-def save_design(design: Design, path) -> None:
-    """Write a design file atomically: a temporary file beside it, then rename."""
-    path = Path(path)
-    text = dumps_design(design)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
+def _fsync_directory(directory: Path) -> None:
     try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+        fd = os.open(directory, os.O_RDONLY)
+    except OSError:
+        return  # not possible on every platform (Windows); the rename is still atomic
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def save_design(design: Design, path) -> None:
+    """Write a design file atomically.
+
+    The text goes to a new temporary file beside ``path``, is flushed to disk,
+    then renamed over ``path`` (:func:`os.replace`), so a crash or a full disk
+    leaves either the old file or the new one, never a mix, and no temporary
+    file.  An existing file keeps its permissions; a new one gets the usual
+    ones (0666 less the umask).  A symbolic link is followed.
+    """
+    path = Path(path)
+    if path.is_symlink():
+        path = path.resolve()
+    text = dumps_design(design)
+    try:
+        mode = stat.S_IMODE(os.stat(path).st_mode)
+    except FileNotFoundError:
+        mode = None
+    directory = path.parent
+    while True:
+        tmp = directory / f".{path.name}.{secrets.token_hex(6)}.tmp"
+        try:
+            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+            break
+        except FileExistsError:
+            continue
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
+            if mode is not None:
+                os.chmod(tmp, mode)
             fh.write(text)
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, path)
     except BaseException:
-        if os.path.exists(tmp):
+        try:
             os.unlink(tmp)
+        except FileNotFoundError:
+            pass
         raise
+    _fsync_directory(directory)
