@@ -311,7 +311,7 @@ def _cmd_bode(args) -> int:
     curves = []
     result = None
     if "loop" in kinds or "compensator" in kinds:
-        result = _loop_result(design, args, f_hz)
+        result = _loop_result(design, args, f_hz, need_parts="plot")
     for kind in kinds:
         prefix = f"{kind} " if len(kinds) > 1 else ""
         if kind == "compensator":
@@ -379,10 +379,15 @@ def _targets(design: Design, args):
     return replace(Targets.from_design(design), **changes)
 
 
-def _loop_result(design: Design, args, f_hz=None):
+def _loop_result(design: Design, args, f_hz=None, need_parts: str = ""):
+    """The loop for the command's targets; with ``need_parts`` an infeasible result is an error."""
     from .loop import design_loop
 
-    return design_loop(design, _targets(design, args), f_hz=f_hz)
+    result = design_loop(design, _targets(design, args), f_hz=f_hz)
+    if need_parts and not result.feasible:
+        why = next((f.message for f in result.findings if f.code == "infeasible"), "the targets cannot be met")
+        raise DesignError("", args.file, f"{why}; nothing to {need_parts} (loopkit design {args.file} says more)")
+    return result
 
 
 def _add_target_options(p: argparse.ArgumentParser) -> None:
@@ -391,9 +396,9 @@ def _add_target_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--pm", help="target phase margin, deg, e.g. 60")
     g.add_argument("--type", choices=("1", "2", "3"), help="op-amp network Type I, II or III")
     g.add_argument("--network", choices=NETWORKS, help="network by name (overrides --type)")
-    g.add_argument("--series", choices=SERIES, help="E-series for resistors and capacitors")
-    g.add_argument("--resistor-series", choices=SERIES, help="E-series for resistors (default E96)")
-    g.add_argument("--capacitor-series", choices=SERIES, help="E-series for capacitors (default E12)")
+    g.add_argument("--series", choices=SERIES, metavar="SERIES", help="E-series for resistors and capacitors: E6, E12, E24, E48, E96, E192 or none")
+    g.add_argument("--resistor-series", choices=SERIES, metavar="SERIES", help="E-series for resistors (default E96)")
+    g.add_argument("--capacitor-series", choices=SERIES, metavar="SERIES", help="E-series for capacitors (default E12)")
     g.add_argument("--corner", help="corner index to design at, or 'worst' (default)")
     g.add_argument("--synthesise", action="store_true",
                    help="synthesise new parts even when the design file gives [compensator.parts]")
@@ -427,10 +432,7 @@ def _cmd_export(args) -> int:
     if not (args.bom or args.spice or args.json):
         raise DesignError("--bom/--spice/--json", "(none given)", "give at least one output file")
     design = load_design(args.file)
-    result = _loop_result(design, args)
-    if not result.feasible:
-        raise DesignError("export", args.file, "no parts to export: the targets are not feasible "
-                          "(run loopkit design to see why)")
+    result = _loop_result(design, args, need_parts="export")
     written = []
     for path, writer in ((args.bom, export.bom_csv), (args.spice, export.spice_netlist),
                          (args.json, export.results_json)):
@@ -521,7 +523,8 @@ def main(argv: list[str] | None = None) -> int:
     except DesignFileError as exc:
         print(f"loopkit {args.command}: error: {exc}", file=sys.stderr)
     except DesignError as exc:  # found after loading (e.g. a corner the stage cannot reach): name the file
-        where = "" if exc.field.startswith("--") or not getattr(args, "file", None) else f"{args.file}: "
+        file = getattr(args, "file", None)
+        where = "" if exc.field.startswith("--") or not file or file in str(exc) else f"{file}: "
         print(f"loopkit {args.command}: error: {where}{exc}", file=sys.stderr)
     except BrokenPipeError:  # e.g. piped into head: stop quietly
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())

@@ -379,3 +379,22 @@ def test_bad_targets_one_line(capsys, argv, expected):
     assert err.count("\n") == 1 and "Traceback" not in err, err
     for word in expected:
         assert word in err, err
+
+
+def test_infeasible_targets_say_why(capsys):
+    """Type II cannot give the ~150 deg boost a 40 kHz crossover needs on this buck (Type II < 90 deg)."""
+    import json
+
+    result = _loop(BUCK, network="type2")
+    assert not result.feasible
+    code, out, err = run(capsys, "design", BUCK, "--type", "2")
+    assert code == 1 and "No parts" in out and "[infeasible]" in out
+    assert err.count("\n") == 1
+    code, out, _ = run(capsys, "design", BUCK, "--type", "2", "--json")
+    doc = json.loads(out)
+    assert code == 1 and doc["feasible"] is False and doc["parts"] == {}
+    assert any(w["code"] == "infeasible" for w in doc["warnings"])
+    for argv in (["bode", BUCK, "--loop", "--type", "2"], ["export", BUCK, "--type", "2", "--bom", "x.csv"]):
+        code, out, err = run(capsys, *argv)
+        assert code == 2 and out == ""
+        assert err.count("\n") == 1 and "Type II" in err and str(BUCK) in err
