@@ -66,42 +66,102 @@ class Margins:
     beyond_grid: np.ndarray
 
 
-def _refine(loop: Rational, corner: np.ndarray, f_lo: np.ndarray, f_hi: np.ndarray, func,
-            tol: float, iterations: int = 60) -> np.ndarray:
-    """Roots of ``func(sub_loop, f)`` between f_lo and f_hi, in log f (Illinois method).
+def _local(sub: Rational, f: np.ndarray, which: str) -> tuple[np.ndarray, np.ndarray]:
+    """ln|T| (``which="gain"``) or the continuous phase in rad (``"phase"``) at one
+    frequency per row of ``sub``, with its derivative with respect to ln f.
 
-    ``func`` returns a real residual with opposite signs at the two ends;
-    iteration stops when every residual is below ``tol``.
+    d ln T / d ln f = sum over numerator factors of a1 s / (a0 + a1 s), minus the
+    same over the denominator, minus s times the delay: its real part is the
+    slope of ln|T|, its imaginary part the slope of the phase.
+    """
+    s = (1j * 2.0 * np.pi * f)[:, None]
+    tn = sub.num[:, :, 0] + sub.num[:, :, 1] * s
+    td = sub.den[:, :, 0] + sub.den[:, :, 1] * s
+    slope = (sub.num[:, :, 1] * s / tn).sum(axis=1) - (sub.den[:, :, 1] * s / td).sum(axis=1) - s[:, 0] * sub.delay_s
+    if which == "gain":
+        value = np.log(np.abs(sub.gain)) + np.log(np.abs(tn)).sum(axis=1) - np.log(np.abs(td)).sum(axis=1)
+        return value, slope.real
+    value = (np.angle(tn).sum(axis=1) - np.angle(td).sum(axis=1) + np.where(sub.gain < 0, -np.pi, 0.0)
+             - s[:, 0].imag * sub.delay_s)
+    return value, slope.imag
+
+
+def _refine(loop: Rational, corner: np.ndarray, f_lo: np.ndarray, f_hi: np.ndarray, g_lo: np.ndarray,
+            g_hi: np.ndarray, which: str, level: np.ndarray | float = 0.0, tol: float = 1e-11,
+            iterations: int = 30) -> np.ndarray:
+    """Solve ln|T| = 0 (``which="gain"``) or phase = level rad (``"phase"``) inside each bracket.
+
+    ``g_lo``, ``g_hi`` are the residuals at the bracket ends (from the grid).
+    Safeguarded Newton in u = ln f with the exact derivative (:func:`_local`): a
+    step that leaves the bracket is replaced by bisection, and the bracket
+    shrinks around the sign change.  Stops when every step is below ``tol``
+    (relative frequency).
     """
     sub = loop.take(corner)
     a, b = np.log(f_lo), np.log(f_hi)
-    fa, fb = func(sub, np.exp(a)), func(sub, np.exp(b))
-    side = np.zeros(a.shape, int)
-    c = 0.5 * (a + b)
+    ga = g_lo
+    u = np.where(g_hi != g_lo, a - g_lo * (b - a) / np.where(g_hi != g_lo, g_hi - g_lo, 1.0), 0.5 * (a + b))
     for _ in range(iterations):
-        denom = fb - fa
-        c = np.where(denom != 0, b - fb * (b - a) / np.where(denom != 0, denom, 1.0), 0.5 * (a + b))
-        c = np.clip(c, np.minimum(a, b), np.maximum(a, b))
-        fc = func(sub, np.exp(c))
-        if np.all(np.abs(fc) < tol):
+        g, dg = _local(sub, np.exp(u), which)
+        g = g - level
+        same = np.sign(g) == np.sign(ga)
+        a, ga, b = np.where(same, u, a), np.where(same, g, ga), np.where(same, b, u)
+        new = u - g / np.where(dg != 0, dg, np.inf)
+        outside = ~((new > np.minimum(a, b)) & (new < np.maximum(a, b)))
+        new = np.where(outside, 0.5 * (a + b), new)
+        done = np.abs(new - u) < tol
+        u = new
+        if done.all():
             break
-        left = np.sign(fc) == np.sign(fa)
-        # Illinois: halve the stored residual of the end that survives twice in a row
-        fa, fb = np.where(left, fc, np.where(side == -1, fa * 0.5, fa)), np.where(left, np.where(side == 1, fb * 0.5, fb), fc)
-        a, b = np.where(left, c, a), np.where(left, b, c)
-        side = np.where(left, 1, -1)
-    return np.exp(c)
-
-
-def _log_mag(sub: Rational, f: np.ndarray) -> np.ndarray:
-    return np.log(np.abs(sub.response(f[:, None])[:, 0]))
+    return np.exp(u)
 
 
 def _brackets(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(corner, index) where ``values`` changes sign between index and index + 1."""
     s = np.sign(values)
-    change = (s[:, :-1] * s[:, 1:]) < 0
-    return np.nonzero(change)
+    return np.nonzero((s[:, :-1] * s[:, 1:]) < 0)
+
+
+def _hidden_pairs(loop: Rational, f_hz: np.ndarray, values: np.ndarray, which: str, level_of) -> tuple:
+    """Pairs of crossings that fall between two grid points around a local extremum.
+
+    A resonant peak that just touches 0 dB (or a phase bump that just reaches
+    -180 deg) can cross twice within one grid step, with the same sign at both
+    grid points.  At every interior local extremum of ``values`` the exact
+    extremum is located (bisection on the sign of the exact slope) and, if it
+    lies on the other side of the level, the two half-intervals are returned
+    as brackets: (rows, f_lo, f_hi, g_lo, g_hi, level).
+    """
+    d = np.diff(values, axis=1)
+    turn = np.sign(d[:, :-1]) * np.sign(d[:, 1:]) < 0
+    rows, mid = np.nonzero(turn)
+    mid = mid + 1
+    if rows.size == 0:
+        return None
+    level = level_of(values[rows, mid])
+    near = np.abs(values[rows, mid] - level) < 3.0 * (np.abs(d[rows, mid - 1]) + np.abs(d[rows, mid])) + 1e-12
+    same_side = np.sign(values[rows, mid - 1] - level) == np.sign(values[rows, mid + 1] - level)
+    keep = near & same_side
+    if not np.any(keep):
+        return None
+    rows, mid, level = rows[keep], mid[keep], level[keep]
+    sub = loop.take(rows)
+    a, b = np.log(f_hz[mid - 1]), np.log(f_hz[mid + 1])
+    _, slope_a = _local(sub, np.exp(a), which)
+    for _ in range(50):
+        c = 0.5 * (a + b)
+        _, sc = _local(sub, np.exp(c), which)
+        same = np.sign(sc) == np.sign(slope_a)
+        a, slope_a, b = np.where(same, c, a), np.where(same, sc, slope_a), np.where(same, b, c)
+    f_ext = np.exp(0.5 * (a + b))
+    g_ext = _local(sub, f_ext, which)[0] - level
+    g_side = values[rows, mid - 1] - level
+    hidden = np.sign(g_ext) != np.sign(g_side)
+    if not np.any(hidden):
+        return None
+    r, m, fe, ge, lv = rows[hidden], mid[hidden], f_ext[hidden], g_ext[hidden], level[hidden]
+    g_lo, g_hi = values[r, m - 1] - lv, values[r, m + 1] - lv
+    return (np.r_[r, r], np.r_[f_hz[m - 1], fe], np.r_[fe, f_hz[m + 1]], np.r_[g_lo, ge], np.r_[ge, g_hi], np.r_[lv, lv])
 
 
 def loop_margins(loop: Rational, f_hz: np.ndarray, resp: np.ndarray | None = None,
@@ -138,7 +198,16 @@ def loop_margins(loop: Rational, f_hz: np.ndarray, resp: np.ndarray | None = Non
 
     # ---- gain crossovers
     rows, cols = _brackets(log_mag)
-    fc = _refine(loop, rows, f_hz[cols], f_hz[cols + 1], _log_mag, 1e-12) if rows.size else np.zeros(0)
+    b_rows, f_lo, f_hi = rows, f_hz[cols], f_hz[cols + 1]
+    g_lo, g_hi = log_mag[rows, cols], log_mag[rows, cols + 1]
+    extra = _hidden_pairs(loop, f_hz, log_mag, "gain", np.zeros_like)
+    if extra is not None:
+        b_rows, f_lo, f_hi = np.r_[b_rows, extra[0]], np.r_[f_lo, extra[1]], np.r_[f_hi, extra[2]]
+        g_lo, g_hi = np.r_[g_lo, extra[3]], np.r_[g_hi, extra[4]]
+        order = np.lexsort((f_lo, b_rows))
+        b_rows, f_lo, f_hi, g_lo, g_hi = b_rows[order], f_lo[order], f_hi[order], g_lo[order], g_hi[order]
+    rows = b_rows
+    fc = _refine(loop, rows, f_lo, f_hi, g_lo, g_hi, "gain") if rows.size else np.zeros(0)
     ph_c = loop.take(rows).phase_deg(fc[:, None])[:, 0] if rows.size else np.zeros(0)
     pm = np.mod(180.0 + ph_c + 180.0, 360.0) - 180.0
     pm = np.where(pm == -180.0, 180.0, pm)
@@ -148,49 +217,51 @@ def loop_margins(loop: Rational, f_hz: np.ndarray, resp: np.ndarray | None = Non
     k_floor = np.floor(u)
     prow, pcol = np.nonzero(k_floor[:, :-1] != k_floor[:, 1:])
     level = 360.0 * np.maximum(k_floor[prow, pcol], k_floor[prow, pcol + 1]) - 180.0
+    ph = np.radians(phase_deg)
+    lv = np.radians(level)
+    p_lo, p_hi, pg_lo, pg_hi = f_hz[pcol], f_hz[pcol + 1], ph[prow, pcol] - lv, ph[prow, pcol + 1] - lv
+    extra = _hidden_pairs(loop, f_hz, ph, "phase", lambda v: np.radians(360.0 * np.round((np.degrees(v) + 180.0) / 360.0) - 180.0))
+    if extra is not None:
+        prow, p_lo, p_hi = np.r_[prow, extra[0]], np.r_[p_lo, extra[1]], np.r_[p_hi, extra[2]]
+        pg_lo, pg_hi, lv = np.r_[pg_lo, extra[3]], np.r_[pg_hi, extra[4]], np.r_[lv, extra[5]]
     if prow.size:
-        levels = level.copy()
-
-        def phase_residual(sub, f, _lv=levels):
-            return sub.phase_deg(f[:, None])[:, 0] - _lv
-
-        f180 = _refine(loop, prow, f_hz[pcol], f_hz[pcol + 1], phase_residual, 1e-9)
+        f180 = _refine(loop, prow, p_lo, p_hi, pg_lo, pg_hi, "phase", lv)
         mag180 = np.abs(loop.take(prow).response(f180[:, None])[:, 0])
     else:
         f180 = mag180 = np.zeros(0)
 
-    out_fc = np.full(n, np.nan)
-    out_pm = np.full(n, np.nan)
-    out_dm = np.full(n, np.nan)
+    n_cross = np.bincount(rows, minlength=n)
+    out_fc = np.full(n, np.inf)
+    out_pm = np.full(n, np.inf)
+    out_dm = np.full(n, np.inf)
+    fc_max = np.full(n, -np.inf)
+    if rows.size:
+        np.minimum.at(out_fc, rows, fc)
+        np.maximum.at(fc_max, rows, fc)
+        np.minimum.at(out_pm, rows, pm)
+        np.minimum.at(out_dm, rows, np.deg2rad(pm) / (2 * np.pi * fc))
+    none = n_cross == 0
+    out_fc[none], out_pm[none], out_dm[none] = np.nan, np.nan, np.nan
+    crossings = tuple(tuple(float(x) for x in part) for part in np.split(fc, np.cumsum(n_cross)[:-1]))
+    # gain margin: the phase crossover with the largest |T| below 1 (smallest margin)
     out_gm = np.full(n, np.inf)
     out_f180 = np.full(n, np.nan)
     out_gml = np.full(n, np.inf)
-    n_cross = np.zeros(n, int)
     conditional = np.zeros(n, bool)
-    crossings = []
-    for i in range(n):
-        sel = rows == i
-        fci, pmi = fc[sel], pm[sel]
-        crossings.append(tuple(float(x) for x in fci))
-        n_cross[i] = fci.size
-        if fci.size:
-            out_fc[i] = fci.min()
-            out_pm[i] = pmi.min()
-            with np.errstate(divide="ignore"):
-                dm = np.deg2rad(pmi) / (2 * np.pi * fci)
-            out_dm[i] = dm.min()
-        psel = prow == i
-        fi, mi = f180[psel], mag180[psel]
-        upper = mi < 1.0
+    if prow.size:
+        upper = mag180 < 1.0
         if np.any(upper):
-            j = np.argmax(mi * upper)  # the largest |T| below 1: smallest margin
-            out_gm[i] = -20.0 * np.log10(mi[j])
-            out_f180[i] = fi[j]
-        lower = mi > 1.0
+            r, m, fr = prow[upper], mag180[upper], f180[upper]
+            order = np.lexsort((m, r))  # by corner, then |T| ascending: the last of each corner wins
+            r, m, fr = r[order], m[order], fr[order]
+            last = np.r_[r[1:] != r[:-1], True]
+            out_gm[r[last]] = -20.0 * np.log10(m[last])
+            out_f180[r[last]] = fr[last]
+        lower = mag180 > 1.0
         if np.any(lower):
-            out_gml[i] = 20.0 * np.log10(np.min(mi[lower]))
-            if fci.size and np.any(fi[lower] < fci.max()):
-                conditional[i] = True
+            np.minimum.at(out_gml, prow[lower], 20.0 * np.log10(mag180[lower]))
+            below = lower & (f180 < fc_max[prow])
+            conditional[prow[below]] = True
     poles = loop.closed_loop_poles_hz()
     finite = np.isfinite(poles)
     stable = np.all(~finite | (poles.real < 0), axis=1)

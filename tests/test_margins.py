@@ -110,3 +110,20 @@ def test_vectorised_over_corners_equals_one_by_one():
         mi = loop_margins(loop, F)
         np.testing.assert_allclose(m.fc_hz[i], mi.fc_hz[0], rtol=1e-12)
         np.testing.assert_allclose(m.pm_deg[i], mi.pm_deg[0], atol=1e-9)
+
+
+def test_two_crossings_inside_one_grid_step_are_found():
+    # A Q = 30 resonance whose peak just clears 0 dB: it crosses up and down within
+    # a fraction of a percent in frequency, far closer than a 60-point grid step.
+    base = Rational.from_factors(1.0, [(1, 1 / (TWO_PI * 500.0))],
+                                 [(0, 1), (1, 1 / (TWO_PI * 50e3))] + _resonant(10e3, 30.0))
+    peak = max(abs(base.response(np.geomspace(9e3, 11e3, 200001))[0]))
+    loop = base * (1.003 / peak)
+    coarse = loop_margins(loop, np.geomspace(1, 1e6, 60))
+    fine_grid = np.geomspace(1, 1e6, 2_000_001)
+    mag = np.log(np.abs(loop.response(fine_grid)[0]))
+    n_true = int(np.sum(np.sign(mag[:-1]) != np.sign(mag[1:])))
+    assert n_true == 3
+    assert coarse.n_crossovers[0] == n_true
+    cl = control.feedback(loop.to_control(0), 1).poles()
+    assert coarse.stable[0] == bool(np.all(cl.real < 0))
