@@ -455,8 +455,7 @@ def _cmd_gui(args) -> int:
         from app.main import main as app_main  # lazy: Qt only for this command
     except ImportError as exc:
         raise DesignError("gui", "app", f"the desktop app cannot start: {exc}") from None
-    sys.argv = ["loopkit-gui"] + ([args.file] if args.file else [])
-    return int(app_main() or 0)
+    return int(app_main([args.file] if args.file else []) or 0)
 
 
 # ---------------------------------------------------------------------- parser

@@ -398,3 +398,16 @@ def test_infeasible_targets_say_why(capsys):
         code, out, err = run(capsys, *argv)
         assert code == 2 and out == ""
         assert err.count("\n") == 1 and "Type II" in err and str(BUCK) in err
+
+
+@pytest.mark.gui
+def test_gui_command_opens_the_design(tmp_path):
+    """``loopkit gui FILE`` starts the app on the file (offscreen; the app quits after its first plot)."""
+    import os
+
+    env = dict(os.environ, QT_QPA_PLATFORM="offscreen", LOOPKIT_GUI_TIME_START="1",
+               XDG_CONFIG_HOME=str(tmp_path), XDG_DATA_HOME=str(tmp_path), XDG_STATE_HOME=str(tmp_path))
+    proc = subprocess.run([sys.executable, "-m", "loopkit.cli", "gui", str(BUCK)], capture_output=True, text=True,
+                          timeout=120, env=env)
+    assert proc.returncode == 0, proc.stderr
+    assert "first-plot" in proc.stdout
