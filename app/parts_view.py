@@ -1,0 +1,285 @@
+"""The parts panel: computed and snapped values, the network drawing, copy and export.
+
+The drawing (:func:`loopkit.schematic.network_svg`, about 0.1 s) is made off
+the UI thread and only once the targets have stopped moving, so it never
+holds up a drag.
+"""
+
+from __future__ import annotations
+
+import math
+
+from PySide6.QtCore import QByteArray, QObject, QRunnable, QSignalBlocker, Qt, QThreadPool, QTimer, Signal
+from PySide6.QtGui import QGuiApplication
+from PySide6.QtSvgWidgets import QSvgWidget
+from PySide6.QtWidgets import (
+    QAbstractItemView,
+    QComboBox,
+    QGridLayout,
+    QHeaderView,
+    QLabel,
+    QPushButton,
+    QSizePolicy,
+    QTableWidget,
+    QTableWidgetItem,
+    QVBoxLayout,
+    QWidget,
+)
+
+from loopkit import format_value
+
+__all__ = ["SERIES_CHOICES", "PartsView", "parts_text"]
+
+SERIES_CHOICES = ("E6", "E12", "E24", "E48", "E96", "E192", "none")
+_DRAW_DELAY_MS = 250
+
+
+def _unit(designator: str) -> str:
+    return "Ω" if designator.startswith("R") else "F" if designator.startswith("C") else ""
+
+
+def _order(name: str):
+    letters = "".join(ch for ch in name if not ch.isdigit())
+    digits = "".join(ch for ch in name if ch.isdigit())
+    return (letters, int(digits) if digits else 0)
+
+
+def parts_text(result) -> str:
+    """The parts as plain text (for the clipboard): one line per part, snapped and computed values."""
+    if result is None or not result.feasible:
+        return "no parts (targets not feasible)"
+    t = result.targets
+    lines = [(f"{result.design.title or 'design'}: {result.network} network, resistors {t.resistor_series}, "
+              f"capacitors {t.capacitor_series}")]
+    for name in sorted(result.parts, key=_order):
+        u = _unit(name)
+        exact = result.parts_exact.get(name, result.parts[name])
+        lines.append(f"{name:6s} {format_value(result.parts[name], u, digits=4):>10s}   "
+                     f"(computed {format_value(exact, u, digits=4)})")
+    zeros = ", ".join(format_value(z, "Hz") for z in result.zeros_hz) or "none"
+    poles = ", ".join("0 Hz (integrator)" if p == 0 else format_value(p, "Hz") for p in result.poles_hz) or "none"
+    lines.append(f"zeros: {zeros}; poles: {poles}")
+    lines.append("A design aid: verify the loop on the bench.")
+    return "\n".join(lines)
+
+
+class _DrawSignals(QObject):
+    done = Signal(int, str, str)  # request id, svg text, error text
+
+
+class _DrawJob(QRunnable):
+    """Draw the network in a worker thread (schemdraw is plain Python, no Qt)."""
+
+    def __init__(self, request: int, network: str, parts: dict, ctx, signals: _DrawSignals):
+        super().__init__()
+        self._args = (request, network, dict(parts), ctx)
+        self._signals = signals
+
+    def run(self) -> None:
+        request, network, parts, ctx = self._args
+        try:
+            from loopkit.schematic import network_svg
+
+            svg = network_svg(network, parts, ctx)
+            self._signals.done.emit(request, svg, "")
+        except Exception as exc:  # noqa: BLE001 - shown in the panel, never a crash
+            self._signals.done.emit(request, "", f"drawing failed: {exc}")
+
+
+class PartsView(QWidget):
+    """Series choice, parts table, poles and zeros, network drawing and the hand-off buttons.
+
+    Signals
+    -------
+    export_requested(str)
+        ``"bom"``, ``"spice"``, ``"json"``, ``"png"`` or ``"svg"`` (the window asks for a file name).
+    """
+
+    export_requested = Signal(str)
+
+    def __init__(self, model, parent=None):
+        super().__init__(parent)
+        self._model = model
+        self._request = 0
+        self._drawn_key = None
+        self._pool = QThreadPool(self)
+        self._pool.setMaxThreadCount(1)
+        self._draw_signals = _DrawSignals(self)
+        self._draw_signals.done.connect(self._on_drawing_done)
+        self._draw_timer = QTimer(self)
+        self._draw_timer.setSingleShot(True)
+        self._draw_timer.setInterval(_DRAW_DELAY_MS)
+        self._draw_timer.timeout.connect(self._start_drawing)
+
+        layout = QVBoxLayout(self)
+        layout.setContentsMargins(4, 4, 4, 4)
+        series = QGridLayout()
+        series.setColumnStretch(1, 1)
+        series.setColumnStretch(3, 1)
+        self.resistor_series = QComboBox()
+        self.resistor_series.setObjectName("resistor_series")
+        self.capacitor_series = QComboBox()
+        self.capacitor_series.setObjectName("capacitor_series")
+        for box in (self.resistor_series, self.capacitor_series):
+            for s in SERIES_CHOICES:
+                box.addItem("exact" if s == "none" else s, s)
+            box.setToolTip("IEC 60063 series the parts snap to ('exact': no snapping)")
+        series.addWidget(QLabel("Resistors"), 0, 0)
+        series.addWidget(self.resistor_series, 0, 1)
+        series.addWidget(QLabel("Capacitors"), 0, 2)
+        series.addWidget(self.capacitor_series, 0, 3)
+        layout.addLayout(series)
+        self.resistor_series.activated.connect(self._on_resistor_series_activated)
+        self.capacitor_series.activated.connect(self._on_capacitor_series_activated)
+
+        self.table = QTableWidget(0, 4)
+        self.table.setObjectName("parts_table")
+        self.table.setHorizontalHeaderLabels(["Part", "Computed", "Snapped", "Change"])
+        self.table.verticalHeader().setVisible(False)
+        self.table.setEditTriggers(QAbstractItemView.NoEditTriggers)
+        self.table.horizontalHeader().setSectionResizeMode(QHeaderView.Stretch)
+        self.table.verticalHeader().setDefaultSectionSize(20)
+        self.table.setSizePolicy(QSizePolicy.Expanding, QSizePolicy.Preferred)
+        self.table.setMinimumHeight(130)
+        layout.addWidget(self.table)
+        self.roots = QLabel()
+        self.roots.setObjectName("roots")
+        self.roots.setWordWrap(True)
+        layout.addWidget(self.roots)
+        self.margin_shift = QLabel()
+        self.margin_shift.setObjectName("margin_shift")
+        self.margin_shift.setWordWrap(True)
+        layout.addWidget(self.margin_shift)
+
+        self.drawing = QSvgWidget()
+        self.drawing.setObjectName("network_drawing")
+        self.drawing.setMinimumHeight(170)
+        self.drawing.setSizePolicy(QSizePolicy.Expanding, QSizePolicy.Expanding)
+        self.drawing.renderer().setAspectRatioMode(Qt.KeepAspectRatio)
+        self.drawing.setStyleSheet("background: white;")
+        layout.addWidget(self.drawing, 1)
+        self.drawing_note = QLabel("")
+        self.drawing_note.setStyleSheet("color: #666;")
+        layout.addWidget(self.drawing_note)
+
+        buttons = QGridLayout()
+        self.copy_button = QPushButton("Copy parts")
+        self.copy_button.setObjectName("copy_parts")
+        self.copy_button.clicked.connect(self.copy_parts)
+        buttons.addWidget(self.copy_button, 0, 0)
+        for i, (kind, text) in enumerate((("bom", "BOM (CSV)…"), ("spice", "SPICE netlist…"),
+                                          ("json", "Results (JSON)…"), ("png", "Plot PNG…"),
+                                          ("svg", "Plot SVG…"))):
+            b = QPushButton(text)
+            b.setObjectName(f"export_{kind}")
+            b.clicked.connect(lambda _=False, k=kind: self.export_requested.emit(k))
+            buttons.addWidget(b, (i + 1) // 3, (i + 1) % 3)
+        layout.addLayout(buttons)
+
+        model.results_changed.connect(self._on_results_changed)
+        model.targets_changed.connect(self._on_targets_changed)
+        self._on_targets_changed(model.targets)
+        self._on_results_changed(model.result)
+
+    # ------------------------------------------------------------------ model -> widgets
+    def _on_targets_changed(self, t) -> None:
+        for box, value in ((self.resistor_series, t.resistor_series), (self.capacitor_series, t.capacitor_series)):
+            with QSignalBlocker(box):
+                box.setCurrentIndex(max(box.findData(value), 0))
+
+    def _on_results_changed(self, result) -> None:
+        if result is None:
+            return
+        names = sorted(result.parts, key=_order)
+        if self.table.rowCount() != len(names):
+            self.table.setRowCount(len(names))
+            for r in range(len(names)):
+                for c in range(4):
+                    if self.table.item(r, c) is None:
+                        item = QTableWidgetItem()
+                        item.setTextAlignment((Qt.AlignLeft if c == 0 else Qt.AlignRight) | Qt.AlignVCenter)
+                        self.table.setItem(r, c, item)
+        given = self._model.parts_given
+        for r, name in enumerate(names):
+            u = _unit(name)
+            snapped = result.parts[name]
+            exact = result.parts_exact.get(name, snapped)
+            change = (snapped / exact - 1.0) * 100.0 if exact else math.nan
+            cells = (name, format_value(exact, u, digits=4), format_value(snapped, u, digits=4),
+                     "given" if given else f"{change:+.1f} %")
+            for c, text in enumerate(cells):
+                self.table.item(r, c).setText(text)
+        if result.feasible:
+            zeros = ", ".join(format_value(z, "Hz") for z in result.zeros_hz) or "none"
+            poles = ", ".join("0 (integrator)" if p == 0 else format_value(p, "Hz") for p in result.poles_hz)
+            self.roots.setText(f"<b>Zeros</b> {zeros}<br><b>Poles</b> {poles or 'none'}")
+            w = result.worst_corner
+            m, mx = result.margins, result.margins_exact
+            if given:
+                self.margin_shift.setText("Parts as given in the design (no snapping).")
+            else:
+                self.margin_shift.setText(
+                    f"Worst corner with computed parts: PM {mx.pm_deg[w]:.1f}°, GM {_gm(mx.gm_db[w])}; "
+                    f"with snapped parts: PM {m.pm_deg[w]:.1f}°, GM {_gm(m.gm_db[w])}.")
+        else:
+            self.roots.setText("No parts: the targets cannot be met (see the warnings).")
+            self.margin_shift.setText("")
+        self._schedule_drawing()
+
+    def _schedule_drawing(self) -> None:
+        self._draw_timer.start()  # restarts: draws once the targets stop moving
+
+    def _start_drawing(self) -> None:
+        if self._model.previewing:
+            self._draw_timer.start()
+            return
+        result = self._model.result
+        if result is None:
+            return
+        from loopkit.loop import network_context
+
+        parts = result.parts if result.feasible else {}
+        key = (result.network, tuple(sorted(parts.items())))
+        if key == self._drawn_key:
+            return
+        self._drawn_key = key
+        self._request += 1
+        self.drawing_note.setText("drawing…")
+        ctx = network_context(self._model.design)
+        self._pool.start(_DrawJob(self._request, result.network, parts, ctx, self._draw_signals))
+
+    def _on_drawing_done(self, request: int, svg: str, error: str) -> None:
+        if request != self._request:
+            return
+        if error:
+            self.drawing_note.setText(error)
+            return
+        self.drawing.load(QByteArray(svg.encode("utf-8")))
+        self.drawing.renderer().setAspectRatioMode(Qt.KeepAspectRatio)
+        self.drawing_note.setText("Network with the snapped values (drawn by loopkit.schematic)")
+
+    def wait_for_drawing(self, timeout_ms: int = 5000) -> bool:
+        """Start any pending drawing now and wait for it (used by tests and screenshots)."""
+        if self._draw_timer.isActive():
+            self._draw_timer.stop()
+            self._start_drawing()
+        return self._pool.waitForDone(timeout_ms)
+
+    # ------------------------------------------------------------------ widgets -> model
+    def _on_resistor_series_activated(self, index: int) -> None:
+        s = self.resistor_series.itemData(index)
+        self._model.set_targets(f"Resistor series {s}", resistor_series=s)
+
+    def _on_capacitor_series_activated(self, index: int) -> None:
+        s = self.capacitor_series.itemData(index)
+        self._model.set_targets(f"Capacitor series {s}", capacitor_series=s)
+
+    def copy_parts(self) -> str:
+        text = parts_text(self._model.result)
+        QGuiApplication.clipboard().setText(text)
+        return text
+
+
+def _gm(gm_db: float) -> str:
+    return "∞" if math.isinf(gm_db) and gm_db > 0 else f"{gm_db:.1f} dB"
+

@@ -1,0 +1,476 @@
+"""The Bode view: loop gain of every corner, coloured by input voltage.
+
+Curves live in view coordinates: x is ``log10(f)`` (see :mod:`app.freq`, the
+one place that converts), y is dB or degrees.  The plot items are created when
+the number of corners changes and otherwise only get ``setData``; axis ranges
+are fitted on a design change and stay fixed while targets move, so a drag
+redraws without rescaling.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6.QtCore import QSignalBlocker, Qt, Signal
+from PySide6.QtGui import QColor, QFont, QPen
+from PySide6.QtWidgets import QVBoxLayout, QWidget
+
+from loopkit import format_value
+
+from .freq import hz_to_view, view_to_hz
+
+__all__ = ["BodeView", "FrequencyAxis", "load_styles", "magnitude_db", "vin_colour_map"]
+
+pg.setConfigOptions(antialias=False, background="w", foreground="#222")
+
+#: Colour map for input voltage: a perceptual map, cut before its palest end so every curve reads on white.
+_MAP_NAME = "plasma"
+_MAP_SPAN = (0.0, 0.82)
+_STYLES = (Qt.SolidLine, Qt.DashLine, Qt.DotLine, Qt.DashDotLine, Qt.DashDotDotLine)
+
+
+def vin_colour_map() -> pg.ColorMap:
+    """The input-voltage colour scale (lowest vin dark blue, highest orange)."""
+    base = pg.colormap.get(_MAP_NAME)
+    pos = np.linspace(0.0, 1.0, 9)
+    colours = base.map(_MAP_SPAN[0] + pos * (_MAP_SPAN[1] - _MAP_SPAN[0]), mode="qcolor")
+    return pg.ColorMap(pos, colours)
+
+
+def load_styles(loads) -> dict:
+    """Line style per load: the largest load solid, lighter loads dashed, dotted..."""
+    order = sorted({float(x) for x in loads}, reverse=True)
+    return {x: _STYLES[min(i, len(_STYLES) - 1)] for i, x in enumerate(order)}
+
+
+def magnitude_db(resp: np.ndarray) -> np.ndarray:
+    """|H| in dB for display (the unit conversion only)."""
+    with np.errstate(divide="ignore"):
+        return 20.0 * np.log10(np.abs(resp))
+
+
+class FrequencyAxis(pg.AxisItem):
+    """Log-frequency axis in view coordinates: decades labelled 10, 100, 1k..., and 2 and 5 between."""
+
+    def tickValues(self, minVal, maxVal, size):
+        if not (math.isfinite(minVal) and math.isfinite(maxVal)) or maxVal <= minVal:
+            return []
+        lo, hi = math.floor(minVal), math.ceil(maxVal)
+        decades = [float(d) for d in range(lo, hi + 1) if minVal <= d <= maxVal]
+        per_decade = size / max(maxVal - minVal, 1e-9)
+        two_five, rest = [], []
+        for d in range(lo, hi + 1):
+            for m in range(2, 10):
+                v = d + math.log10(m)
+                if minVal <= v <= maxVal:
+                    (two_five if m in (2, 5) else rest).append(v)
+        levels = [(1.0, decades)]
+        if per_decade > 110:
+            levels.append((0.5, two_five))
+            levels.append((0.1, rest))
+        else:
+            levels.append((0.1, two_five + rest))
+        return levels
+
+    def tickStrings(self, values, scale, spacing):
+        if spacing < 0.3:
+            return ["" for _ in values]
+        return [format_value(view_to_hz(v), digits=2) for v in values]
+
+
+class PhaseAxis(pg.AxisItem):
+    """Degrees, ticks on multiples of 45 (or 90 when space is short)."""
+
+    def tickValues(self, minVal, maxVal, size):
+        span = maxVal - minVal
+        if not math.isfinite(span) or span <= 0:
+            return []
+        major = 90.0 if size / max(span, 1e-9) * 45 < 18 else 45.0
+        if span > 720:
+            major = 180.0
+        first = math.ceil(minVal / major) * major
+        return [(major, list(np.arange(first, maxVal + 1e-9, major)))]
+
+
+def _pen(colour, style=Qt.SolidLine, width=1.0, alpha=255) -> QPen:
+    c = QColor(colour)
+    c.setAlpha(alpha)
+    pen = QPen(c)
+    pen.setWidthF(width)
+    pen.setCosmetic(True)
+    pen.setStyle(style)
+    return pen
+
+
+class BodeView(QWidget):
+    """Magnitude and phase of the loop gain at every corner, with the worst corner's margins.
+
+    Signals
+    -------
+    marker_moved(float)
+        Live position of the crossover-target marker, Hz.
+    marker_released(float)
+        Where the marker was let go, Hz (the moment to record an undo step).
+    """
+
+    marker_moved = Signal(float)
+    marker_released = Signal(float)
+
+    def __init__(self, model, parent=None):
+        super().__init__(parent)
+        self._model = model
+        self._cmap = vin_colour_map()
+        self._x = np.zeros(0)
+        self._n = 0
+        self._fit_pending = True
+        self._show_plant = False
+        self._show_comp = False
+        self._plant_phase = None
+        self._corner_pens: list[QPen] = []
+        self._corner_colours: list[QColor] = []
+
+        layout = QVBoxLayout(self)
+        layout.setContentsMargins(0, 0, 0, 0)
+        self.canvas = pg.GraphicsLayoutWidget()
+        self.canvas.setObjectName("bode_canvas")
+        layout.addWidget(self.canvas)
+        self.canvas.ci.setSpacing(2)
+        self.mag = self.canvas.addPlot(row=0, col=0, axisItems={"bottom": FrequencyAxis("bottom")})
+        self.phase = self.canvas.addPlot(row=1, col=0, axisItems={"bottom": FrequencyAxis("bottom"),
+                                                                 "left": PhaseAxis("left")})
+        self.phase.setXLink(self.mag)
+        for plot in (self.mag, self.phase):
+            plot.showGrid(x=True, y=True, alpha=0.18)
+            plot.setMenuEnabled(False)
+            plot.hideButtons()
+            plot.getViewBox().setMouseMode(pg.ViewBox.PanMode)
+            plot.getAxis("left").setWidth(62)
+        label_style = {"font-size": "10pt"}
+        self.mag.getAxis("left").setLabel("Loop gain |T| (dB)", **label_style)
+        self.phase.getAxis("left").setLabel("Phase of T (°)", **label_style)
+        self.phase.getAxis("bottom").setLabel("Frequency (Hz)", **label_style)
+        self.mag.getAxis("bottom").setStyle(showValues=False)
+        self.canvas.ci.layout.setRowStretchFactor(0, 5)
+        self.canvas.ci.layout.setRowStretchFactor(1, 4)
+
+        self.colour_bar = pg.ColorBarItem(values=(0.0, 1.0), colorMap=self._cmap, interactive=False,
+                                          width=14, colorMapMenu=False, pen="#444")
+        bar_axis = self.colour_bar.getAxis("right")
+        bar_axis.setLabel("Input voltage (V)", **label_style)
+        bar_axis.setWidth(58)
+        self.canvas.addItem(self.colour_bar, row=0, col=1, rowspan=2)
+
+        # reference lines
+        grey = _pen("#777", Qt.SolidLine, 1.0)
+        self._zero_db = pg.InfiniteLine(pos=0.0, angle=0, pen=grey)
+        self.mag.addItem(self._zero_db, ignoreBounds=True)
+        self._ref180 = pg.InfiniteLine(pos=-180.0, angle=0, pen=grey)
+        self.phase.addItem(self._ref180, ignoreBounds=True)
+
+        # curve pools (sized on a design change)
+        self._mag_curves: list[pg.PlotCurveItem] = []
+        self._phase_curves: list[pg.PlotCurveItem] = []
+        self._plant_mag: list[pg.PlotCurveItem] = []
+        self._plant_phase_curves: list[pg.PlotCurveItem] = []
+        self._comp_mag = pg.PlotCurveItem(pen=_pen("#1b1b1b", Qt.DashDotLine, 1.4))
+        self._comp_phase = pg.PlotCurveItem(pen=_pen("#1b1b1b", Qt.DashDotLine, 1.4))
+        for plot, item in ((self.mag, self._comp_mag), (self.phase, self._comp_phase)):
+            item.setZValue(5)
+            item.setVisible(False)
+            plot.addItem(item)
+
+        # worst corner: a heavier copy of its curves and the margin markers
+        self._worst_mag = pg.PlotCurveItem()
+        self._worst_phase = pg.PlotCurveItem()
+        for plot, item in ((self.mag, self._worst_mag), (self.phase, self._worst_phase)):
+            item.setZValue(8)
+            plot.addItem(item)
+        mark_pen = _pen("#0a7d32", Qt.SolidLine, 2.2)
+        gm_pen = _pen("#b02a00", Qt.SolidLine, 2.2)
+        self._pm_bar = pg.PlotCurveItem(pen=mark_pen)
+        self._pm_ref = pg.PlotCurveItem(pen=_pen("#0a7d32", Qt.DashLine, 1.0))
+        self._gm_bar = pg.PlotCurveItem(pen=gm_pen)
+        self._fc_dot_mag = pg.ScatterPlotItem(size=9, pen=pg.mkPen("#0a7d32", width=1.5), brush=pg.mkBrush("w"))
+        self._fc_dot_phase = pg.ScatterPlotItem(size=9, pen=pg.mkPen("#0a7d32", width=1.5), brush=pg.mkBrush("w"))
+        self._f180_dot = pg.ScatterPlotItem(size=9, pen=pg.mkPen("#b02a00", width=1.5), brush=pg.mkBrush("w"))
+        self._f180_dot_mag = pg.ScatterPlotItem(size=9, pen=pg.mkPen("#b02a00", width=1.5), brush=pg.mkBrush("w"))
+        font = QFont()
+        font.setPointSizeF(9.0)
+        font.setBold(True)
+        self._pm_text = pg.TextItem(color="#0a7d32", anchor=(0.0, 0.5))
+        self._gm_text = pg.TextItem(color="#b02a00", anchor=(0.0, 0.5))
+        for t in (self._pm_text, self._gm_text):
+            t.setFont(font)
+        for plot, items in ((self.phase, (self._pm_ref, self._pm_bar, self._fc_dot_phase, self._f180_dot,
+                                          self._pm_text)),
+                            (self.mag, (self._gm_bar, self._fc_dot_mag, self._f180_dot_mag, self._gm_text))):
+            for item in items:
+                item.setZValue(20)
+                plot.addItem(item, ignoreBounds=True)
+
+        # crossover-target marker, dragged along the frequency axis
+        target_pen = _pen("#00649c", Qt.DashLine, 1.6)
+        self.marker = pg.InfiniteLine(angle=90, movable=True, pen=target_pen,
+                                      hoverPen=_pen("#00649c", Qt.SolidLine, 2.6),
+                                      label="target fc", labelOpts={"position": 0.94, "color": "#00649c",
+                                                                    "fill": (255, 255, 255, 210), "movable": False})
+        self.marker.setZValue(30)
+        self.mag.addItem(self.marker, ignoreBounds=True)
+        self._marker_twin = pg.InfiniteLine(angle=90, movable=False, pen=target_pen)
+        self.phase.addItem(self._marker_twin, ignoreBounds=True)
+        self.marker.sigPositionChanged.connect(self._on_marker_position_changed)
+        self.marker.sigPositionChangeFinished.connect(self._on_marker_position_change_finished)
+
+        self.legend = pg.LegendItem(offset=(8, -8), labelTextSize="8pt", brush=(255, 255, 255, 215),
+                                    pen="#bbb", verSpacing=-6)
+        self.legend.setParentItem(self.mag.getViewBox())
+        self._legend_items: list = []
+
+        self._infeasible_text = pg.TextItem(color="#b02a00", anchor=(0.5, 0.5))
+        self._infeasible_text.setFont(font)
+        self.mag.addItem(self._infeasible_text, ignoreBounds=True)
+        self._infeasible_text.setVisible(False)
+
+        model.design_changed.connect(self._on_design_changed)
+        model.results_changed.connect(self._on_results_changed)
+        model.targets_changed.connect(self._on_targets_changed)
+        model.highlight_changed.connect(self._on_highlight_changed)
+        self._on_design_changed(model.design)
+        self._on_targets_changed(model.targets)
+        self._on_results_changed(model.result)
+
+    # ------------------------------------------------------------------ options
+    def set_show_plant(self, on: bool) -> None:
+        self._show_plant = bool(on)
+        for c in self._plant_mag + self._plant_phase_curves:
+            c.setVisible(self._show_plant)
+        self._fit_pending = True
+        self._on_results_changed(self._model.result)
+
+    def set_show_compensator(self, on: bool) -> None:
+        self._show_comp = bool(on)
+        self._comp_mag.setVisible(self._show_comp)
+        self._comp_phase.setVisible(self._show_comp)
+        self._fit_pending = True
+        self._on_results_changed(self._model.result)
+
+    def fit(self) -> None:
+        """Fit the axes to what is shown."""
+        self._fit_pending = True
+        self._on_results_changed(self._model.result)
+
+    # ------------------------------------------------------------------ model -> items
+    def _resize_pool(self, pool: list, plot, n: int, z: float) -> None:
+        while len(pool) > n:
+            plot.removeItem(pool.pop())
+        while len(pool) < n:
+            item = pg.PlotCurveItem(skipFiniteCheck=False)
+            item.setZValue(z)
+            plot.addItem(item)
+            pool.append(item)
+
+    def _on_design_changed(self, design) -> None:
+        result = self._model.result
+        stage = result.stage
+        n = stage.n_corners
+        self._n = n
+        self._x = hz_to_view(result.f_hz)
+        for pool, plot, z in ((self._mag_curves, self.mag, 2), (self._phase_curves, self.phase, 2),
+                              (self._plant_mag, self.mag, 1), (self._plant_phase_curves, self.phase, 1)):
+            self._resize_pool(pool, plot, n, z)
+        vmin, vmax = float(np.min(stage.vin)), float(np.max(stage.vin))
+        if vmax - vmin < 1e-9:
+            vmin, vmax = vmin - 0.5, vmax + 0.5
+        self.colour_bar.setLevels((vmin, vmax))
+        styles = load_styles(stage.load)
+        self._corner_colours = [self._cmap.map((v - vmin) / (vmax - vmin), mode="qcolor") for v in stage.vin]
+        self._corner_styles = [styles[float(x)] for x in stage.load]
+        # plant: fixed for this design
+        self._plant_phase = stage.gvd.phase_deg(result.f_hz)
+        plant_db = magnitude_db(result.plant_resp)
+        for k in range(n):
+            pen = _pen(self._corner_colours[k], self._corner_styles[k], 1.0, 90)
+            self._plant_mag[k].setPen(pen)
+            self._plant_phase_curves[k].setPen(pen)
+            self._plant_mag[k].setData(self._x, plant_db[k], connect="finite")
+            self._plant_phase_curves[k].setData(self._x, self._plant_phase[k], connect="finite")
+            self._plant_mag[k].setVisible(self._show_plant)
+            self._plant_phase_curves[k].setVisible(self._show_plant)
+        self._apply_pens()
+        # legend: one entry per load (line style), in the design's units
+        self.legend.clear()
+        for x, style in sorted(styles.items(), key=lambda kv: -kv[0]):
+            sample = pg.PlotDataItem(pen=_pen("#333", style, 1.2))
+            self.legend.addItem(sample, f"load {format_value(x, 'A')}")
+        self.marker.setBounds((self._x[0], self._x[-1]))
+        self._fit_pending = True
+
+    def _apply_pens(self) -> None:
+        highlight = set(self._model.highlight)
+        for k in range(self._n):
+            dim = bool(highlight) and k not in highlight
+            width = 2.0 if k in highlight else 1.0
+            pen = _pen(self._corner_colours[k], self._corner_styles[k], width, 60 if dim else 255)
+            self._mag_curves[k].setPen(pen)
+            self._phase_curves[k].setPen(pen)
+            z = 6 if k in highlight else 2
+            self._mag_curves[k].setZValue(z)
+            self._phase_curves[k].setZValue(z)
+
+    def _on_highlight_changed(self, corners) -> None:
+        self._apply_pens()
+
+    def _on_targets_changed(self, targets) -> None:
+        x = hz_to_view(targets.fc_hz)
+        if math.isfinite(x):
+            with QSignalBlocker(self.marker):
+                self.marker.setValue(x)
+            self._marker_twin.setValue(x)
+            self.marker.label.setFormat(f"target fc {format_value(targets.fc_hz, 'Hz')}")
+
+    def _on_results_changed(self, result) -> None:
+        if result is None:
+            return
+        x = self._x
+        feasible = result.feasible
+        self._infeasible_text.setVisible(not feasible)
+        for items in (self._mag_curves, self._phase_curves):
+            for c in items:
+                c.setVisible(feasible)
+        for item in (self._worst_mag, self._worst_phase, self._pm_bar, self._pm_ref, self._gm_bar, self._fc_dot_mag,
+                     self._fc_dot_phase, self._f180_dot, self._f180_dot_mag, self._pm_text, self._gm_text):
+            item.setVisible(feasible)
+        self._comp_mag.setVisible(feasible and self._show_comp)
+        self._comp_phase.setVisible(feasible and self._show_comp)
+        if not feasible:
+            msg = next((f.message for f in result.findings if f.code == "infeasible"), "no parts for these targets")
+            self._infeasible_text.setText(_wrap(msg, 60))
+            self._infeasible_text.setPos((x[0] + x[-1]) / 2, 0.0)
+            if self._fit_pending:
+                self._fit(None, None)
+            return
+        mag = magnitude_db(result.loop_resp)
+        phase = result.loop_phase_deg
+        for k in range(self._n):
+            self._mag_curves[k].setData(x, mag[k], skipFiniteCheck=True)
+            self._phase_curves[k].setData(x, phase[k], skipFiniteCheck=True)
+        if self._show_comp:
+            self._comp_mag.setData(x, magnitude_db(result.comp_resp[0]), connect="finite")
+            self._comp_phase.setData(x, result.compensator.phase_deg(result.f_hz)[0], connect="finite")
+        w = result.worst_corner
+        self._draw_worst(result, mag[w], phase[w])
+        if self._fit_pending:
+            self._fit(mag, phase)
+
+    def _draw_worst(self, result, mag_w: np.ndarray, phase_w: np.ndarray) -> None:
+        w = result.worst_corner
+        x = self._x
+        pen = _pen(self._corner_colours[w], self._corner_styles[w], 2.6)
+        self._worst_mag.setPen(pen)
+        self._worst_phase.setPen(pen)
+        self._worst_mag.setData(x, mag_w, skipFiniteCheck=True)
+        self._worst_phase.setData(x, phase_w, skipFiniteCheck=True)
+        m = result.margins
+        fc, pm, gm, f180 = (float(m.fc_hz[w]), float(m.pm_deg[w]), float(m.gm_db[w]), float(m.f180_hz[w]))
+        xc = hz_to_view(fc)
+        if math.isfinite(xc) and math.isfinite(pm):
+            ph_fc = float(np.interp(xc, x, phase_w))  # display position only; the number is from loopkit
+            ref = ph_fc - pm
+            self._pm_bar.setData([xc, xc], [ref, ph_fc])
+            self._pm_ref.setData([xc - 0.35, xc + 0.35], [ref, ref])
+            self._fc_dot_mag.setData([xc], [0.0])
+            self._fc_dot_phase.setData([xc], [ph_fc])
+            self._pm_text.setText(f"PM {pm:.1f}°\nfc {format_value(fc, 'Hz')}")
+            self._place_label(self._pm_text, xc, (ref + ph_fc) / 2)
+            for item in (self._pm_bar, self._pm_ref, self._fc_dot_mag, self._fc_dot_phase, self._pm_text):
+                item.setVisible(True)
+        else:
+            for item in (self._pm_bar, self._pm_ref, self._fc_dot_mag, self._fc_dot_phase, self._pm_text):
+                item.setVisible(False)
+        x180 = hz_to_view(f180)
+        if math.isfinite(x180) and math.isfinite(gm):
+            self._gm_bar.setData([x180, x180], [-gm, 0.0])
+            self._f180_dot_mag.setData([x180], [-gm])
+            self._f180_dot.setData([x180], [float(np.interp(x180, x, phase_w))])
+            self._gm_text.setText(f"GM {gm:.1f} dB")
+            self._place_label(self._gm_text, x180, -gm / 2)
+            for item in (self._gm_bar, self._f180_dot_mag, self._f180_dot, self._gm_text):
+                item.setVisible(True)
+        else:
+            for item in (self._gm_bar, self._f180_dot_mag, self._f180_dot, self._gm_text):
+                item.setVisible(False)
+
+    def _place_label(self, item, x: float, y: float) -> None:
+        """Put a marker label beside its bar: to the right, or to the left near the right edge."""
+        lo, hi = self.mag.getViewBox().viewRange()[0]
+        right_side = x < lo + 0.72 * (hi - lo)
+        item.setAnchor((0.0, 0.5) if right_side else (1.0, 0.5))
+        item.setPos(x + (0.04 if right_side else -0.04) * (hi - lo) / 5, y)
+
+    def _fit(self, mag, phase) -> None:
+        """Fit the axes (on a design change or on request); they stay fixed while targets move."""
+        self._fit_pending = False
+        x = self._x
+        mags = [] if mag is None else [mag]
+        phases = [] if phase is None else [phase]
+        if self._show_plant:
+            mags.append(magnitude_db(self._model.result.plant_resp))
+            phases.append(self._plant_phase)
+        if self._show_comp and self._model.result.feasible:
+            mags.append(magnitude_db(self._model.result.comp_resp))
+        lo_db, hi_db = -60.0, 60.0
+        if mags:
+            allm = np.concatenate([m.ravel() for m in mags])
+            allm = allm[np.isfinite(allm)]
+            if allm.size:
+                lo_db = max(float(np.min(allm)), -120.0)
+                hi_db = min(float(np.max(allm)), 140.0)
+        lo_db, hi_db = math.floor(min(lo_db, -20.0) / 10) * 10 - 5, math.ceil(max(hi_db, 20.0) / 10) * 10 + 5
+        lo_ph, hi_ph = -270.0, 0.0
+        if phases:
+            allp = np.concatenate([p.ravel() for p in phases])
+            allp = allp[np.isfinite(allp)]
+            if allp.size:
+                lo_ph = math.floor(min(float(np.min(allp)), -180.0) / 45) * 45 - 10
+                hi_ph = math.ceil(max(float(np.max(allp)), -90.0) / 45) * 45 + 10
+        for plot in (self.mag, self.phase):
+            plot.getViewBox().disableAutoRange()
+        self.mag.setXRange(x[0], x[-1], padding=0.0)
+        self.mag.setYRange(lo_db, hi_db, padding=0.0)
+        self.phase.setYRange(lo_ph, hi_ph, padding=0.0)
+
+    # ------------------------------------------------------------------ marker -> model
+    def _on_marker_position_changed(self, line) -> None:
+        f = view_to_hz(line.value())
+        self._marker_twin.setValue(line.value())
+        self.marker_moved.emit(f)
+
+    def _on_marker_position_change_finished(self, line) -> None:
+        self.marker_released.emit(view_to_hz(line.value()))
+
+    # ------------------------------------------------------------------ export
+    def export_image(self, path: str) -> None:
+        """Write the plot to PNG or SVG (by the file's suffix) with pyqtgraph's exporters."""
+        import pyqtgraph.exporters as ex
+
+        if str(path).lower().endswith(".svg"):
+            exporter = ex.SVGExporter(self.canvas.scene())
+        else:
+            exporter = ex.ImageExporter(self.canvas.scene())
+            exporter.parameters()["width"] = max(1600, self.canvas.width() * 2)
+        exporter.export(str(path))
+
+
+def _wrap(text: str, width: int) -> str:
+    words, lines, line = text.split(), [], ""
+    for w in words:
+        if len(line) + len(w) + 1 > width and line:
+            lines.append(line)
+            line = w
+        else:
+            line = f"{line} {w}".strip()
+    if line:
+        lines.append(line)
+    return "\n".join(lines)

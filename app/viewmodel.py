@@ -1,0 +1,409 @@
+"""The view-model: one object that owns the design, its targets and results.
+
+Views take a :class:`DesignModel` in their constructor, subscribe to its
+signals and send user actions back through its methods.  The model holds no
+engineering formula: results come from :class:`loopkit.loop.LoopSession`, the
+same path the command line uses.  What a change recomputes:
+
+- a change of the loop targets (network, crossover, phase margin, boost split,
+  design corner, series) only re-runs the existing session (fast: this is the
+  slider path);
+- any other change of the design builds a new session (power stage and plant
+  response at every corner).
+
+Every accepted edit is an undo step on :attr:`DesignModel.undo_stack`; a
+rejected edit leaves the last valid design in place and emits
+:attr:`DesignModel.field_invalid` with loopkit's message.
+"""
+
+from __future__ import annotations
+
+import copy
+import re
+import sys
+import traceback
+from dataclasses import fields, replace
+from pathlib import Path
+
+from PySide6.QtCore import QObject, Signal
+from PySide6.QtGui import QUndoStack
+
+from loopkit import DesignError, dumps_design, load_design, save_design
+from loopkit.design import CapacitorBank, Compensator, Design, Operating, Stage
+from loopkit.designfile import design_from_dict, design_to_dict
+from loopkit.loop import LoopSession, Targets
+
+from .undo import DesignStep
+
+__all__ = ["TARGET_FIELDS", "DesignModel", "starter_design"]
+
+#: Compensator fields that are loop targets: changing them re-runs the session only.
+TARGET_FIELDS = ("network", "fc", "pm", "boost_split", "design_corner", "method", "resistor_series",
+                 "capacitor_series")
+
+_PATH_TOKEN = re.compile(r"([A-Za-z_][A-Za-z0-9_]*)(?:\[(\d+)\])?")
+
+
+def starter_design() -> Design:
+    """The design File > New starts from: a plain buck, for the engineer to edit (demo values)."""
+    return Design(
+        stage=Stage(topology="buck", fsw=500e3, inductance=10e-6, dcr=20e-3, r_switch=30e-3,
+                    rectifier="synchronous", r_rectifier=15e-3,
+                    output_caps=(CapacitorBank(capacitance=22e-6, esr=3e-3, count=3),)),
+        operating=Operating(vout=5.0, vin=(9.0, 12.0, 16.0), load=(0.2, 2.0)),
+        compensator=Compensator(network="type3", fc=30e3, pm=60.0),
+        title="Untitled design",
+    )
+
+
+def _split_path(path: str) -> list:
+    keys: list = []
+    for part in path.split("."):
+        m = _PATH_TOKEN.fullmatch(part)
+        if not m:
+            raise ValueError(f"bad field path {path!r}")
+        keys.append(m.group(1))
+        if m.group(2) is not None:
+            keys.append(int(m.group(2)))
+    return keys
+
+
+def _set_path(doc: dict, path: str, value) -> None:
+    """Set (or, for ``None``, delete) ``doc[path]`` where path is like ``stage.output_caps[1].esr``."""
+    keys = _split_path(path)
+    node = doc
+    for key in keys[:-1]:
+        if isinstance(key, str) and key not in node:
+            node[key] = {}
+        node = node[key]
+    last = keys[-1]
+    if value is None:
+        if isinstance(node, dict):
+            node.pop(last, None)
+        else:
+            del node[last]
+    else:
+        node[last] = value
+
+
+def _targets_only(a: Design, b: Design) -> bool:
+    """True when ``a`` and ``b`` differ at most in loop-target fields."""
+    if a is None or b is None:
+        return False
+    if (a.stage, a.operating, a.sensing, a.modulator, a.title) != (b.stage, b.operating, b.sensing, b.modulator,
+                                                                   b.title):
+        return False
+    ca, cb = a.compensator, b.compensator
+    return all(getattr(ca, f.name) == getattr(cb, f.name) for f in fields(Compensator) if f.name not in TARGET_FIELDS)
+
+
+class DesignModel(QObject):
+    """Current design, targets, loop session and cached result; emits what changed.
+
+    Signals
+    -------
+    design_changed(Design)
+        The design changed in anything but the loop targets (new session).
+    targets_changed(Targets)
+        The loop targets changed (also emitted after ``design_changed``).
+    results_changed(LoopResult)
+        New results for the current design and targets.
+    field_invalid(str, str)
+        An edit of the field (first) was rejected; loopkit's message (second).
+    field_valid(str)
+        An edit of the field was accepted.
+    dirty_changed(bool)
+        Unsaved changes appeared or went away.
+    path_changed(str)
+        The file the design belongs to ("" for a new design).
+    highlight_changed(tuple)
+        Corner indices to highlight (empty: none).
+    compute_failed(str)
+        The loop path raised something other than a design error (a bug).
+    """
+
+    design_changed = Signal(object)
+    targets_changed = Signal(object)
+    results_changed = Signal(object)
+    field_invalid = Signal(str, str)
+    field_valid = Signal(str)
+    dirty_changed = Signal(bool)
+    path_changed = Signal(str)
+    highlight_changed = Signal(object)
+    compute_failed = Signal(str)
+
+    def __init__(self, design: Design | None = None, parent=None):
+        super().__init__(parent)
+        self.undo_stack = QUndoStack(self)
+        self.undo_stack.cleanChanged.connect(self._on_clean_changed)
+        self._design: Design | None = None
+        self._targets: Targets | None = None
+        self._session: LoopSession | None = None
+        self._result = None
+        self._path = ""
+        self._highlight: tuple = ()
+        self._prepared: tuple | None = None  # (design, session, result) checked by propose()
+        self._drag_start: Design | None = None
+        self.reset(design or starter_design())
+
+    # ------------------------------------------------------------------ state
+    @property
+    def design(self) -> Design:
+        return self._design
+
+    @property
+    def targets(self) -> Targets:
+        return self._targets
+
+    @property
+    def session(self) -> LoopSession:
+        return self._session
+
+    @property
+    def result(self):
+        """The cached :class:`loopkit.loop.LoopResult` of the current design and targets."""
+        return self._result
+
+    @property
+    def path(self) -> str:
+        return self._path
+
+    @property
+    def dirty(self) -> bool:
+        return not self.undo_stack.isClean()
+
+    @property
+    def highlight(self) -> tuple:
+        return self._highlight
+
+    @property
+    def parts_given(self) -> bool:
+        """True when the design carries its own parts (analysed as given, not synthesised)."""
+        return bool(self._design.compensator.parts)
+
+    # ------------------------------------------------------------------ computing
+    @staticmethod
+    def _run(session: LoopSession, design: Design):
+        targets = Targets.from_design(design)
+        return targets, session.run(None if design.compensator.parts else targets)
+
+    def _compute(self, design: Design):
+        """(session, targets, result) for ``design``; raises DesignError for input it cannot use."""
+        if self._prepared is not None and self._prepared[0] is design:
+            return self._prepared[1:]
+        if self._session is not None and _targets_only(self._design, design):
+            session = self._session
+        else:
+            session = LoopSession(design)
+        targets, result = self._run(session, design)
+        return session, targets, result
+
+    def _apply(self, design: Design) -> None:
+        """Make ``design`` current (called by undo steps and by :meth:`reset`)."""
+        if design is self._design:
+            return
+        try:
+            session, targets, result = self._compute(design)
+        except DesignError as exc:  # a design that was valid before: report, keep the old one
+            self.compute_failed.emit(str(exc))
+            return
+        except Exception as exc:  # noqa: BLE001 - never a traceback dialog; keep the last good state
+            traceback.print_exc(file=sys.stderr)
+            self.compute_failed.emit(f"internal error while computing the loop: {exc!r}")
+            return
+        finally:
+            self._prepared = None
+        structural = session is not self._session
+        old_targets = self._targets
+        self._design, self._session, self._targets, self._result = design, session, targets, result
+        if structural:
+            n = result.stage.n_corners
+            if any(i >= n for i in self._highlight):
+                self._highlight = ()
+                self.highlight_changed.emit(self._highlight)
+            self.design_changed.emit(design)
+        if structural or targets != old_targets:
+            self.targets_changed.emit(targets)
+        self.results_changed.emit(result)
+
+    def propose(self, design: Design, text: str, field: str = "", merge_key: str | None = None) -> bool:
+        """Check ``design`` on the loop path and, if it is usable, make it an undo step.
+
+        Returns False (and emits ``field_invalid(field, message)``) when loopkit
+        rejects it; the current design stays.
+        """
+        if design == self._design:
+            if field:
+                self.field_valid.emit(field)
+            return True
+        try:
+            session, targets, result = self._compute(design)
+        except DesignError as exc:
+            self.field_invalid.emit(field, str(exc))
+            return False
+        except Exception as exc:  # noqa: BLE001
+            traceback.print_exc(file=sys.stderr)
+            self.field_invalid.emit(field, f"internal error while computing the loop: {exc!r}")
+            return False
+        self._prepared = (design, session, targets, result)
+        self.undo_stack.push(DesignStep(self, self._design, design, text, merge_key))
+        if field:
+            self.field_valid.emit(field)
+        return True
+
+    # ------------------------------------------------------------------ edits from forms
+    def edit(self, changes: dict, text: str, field: str = "") -> bool:
+        """Apply changes given as design-file keys, e.g. ``{"stage.fsw": "400k"}``.
+
+        Values are what the user typed (engineering notation, units allowed) or
+        numbers in SI units; ``None`` removes a key.  The design file's parser
+        validates them, so messages name the same keys as the file format.
+        """
+        doc = design_to_dict(self._design)
+        doc = copy.deepcopy(doc)
+        for path, value in changes.items():
+            _set_path(doc, path, value)
+        field = field or next(iter(changes))
+        try:
+            design = design_from_dict(doc)
+        except DesignError as exc:
+            self.field_invalid.emit(field, str(exc))
+            return False
+        return self.propose(design, text, field)
+
+    def add_capacitor_bank(self) -> bool:
+        banks = self._design.stage.output_caps
+        stage = replace(self._design.stage, output_caps=banks + (banks[-1],))
+        return self.propose(replace(self._design, stage=stage), "Add capacitor bank", "stage.output_caps")
+
+    def remove_capacitor_bank(self, index: int) -> bool:
+        banks = list(self._design.stage.output_caps)
+        if len(banks) <= 1 or not 0 <= index < len(banks):
+            self.field_invalid.emit("stage.output_caps", "stage.output_caps: the stage needs at least one bank")
+            return False
+        del banks[index]
+        stage = replace(self._design.stage, output_caps=tuple(banks))
+        return self.propose(replace(self._design, stage=stage), "Remove capacitor bank", "stage.output_caps")
+
+    # ------------------------------------------------------------------ targets (the slider path)
+    def _with_targets(self, changes: dict) -> Design:
+        comp = replace(self._design.compensator, parts={}, **changes)
+        return replace(self._design, compensator=comp)
+
+    def set_targets(self, text: str, merge_key: str | None = None, **changes) -> bool:
+        """One undoable change of loop targets (compensator fields, e.g. ``fc=40e3``).
+
+        Moving a target re-synthesises: parts carried by the design are dropped.
+        """
+        try:
+            design = self._with_targets(changes)
+        except DesignError as exc:
+            self.field_invalid.emit(f"compensator.{next(iter(changes))}", str(exc))
+            return False
+        return self.propose(design, text, f"compensator.{next(iter(changes))}", merge_key)
+
+    def begin_preview(self) -> None:
+        """Start a live gesture (a drag): previews are not undo steps until :meth:`end_preview`."""
+        if self._drag_start is None:
+            self._drag_start = self._design
+
+    def preview_targets(self, **changes) -> bool:
+        """Live update during a drag: recompute and redraw, no undo step yet."""
+        self.begin_preview()
+        try:
+            design = self._with_targets(changes)
+        except DesignError as exc:
+            self.field_invalid.emit(f"compensator.{next(iter(changes))}", str(exc))
+            return False
+        self._apply(design)
+        return True
+
+    def end_preview(self, text: str) -> None:
+        """Finish the gesture: one undo step from where it started to where it ended."""
+        start, self._drag_start = self._drag_start, None
+        if start is None or start is self._design or start == self._design:
+            return
+        # the step's first redo finds ``current`` already applied and does nothing
+        self.undo_stack.push(DesignStep(self, start, self._design, text))
+
+    @property
+    def previewing(self) -> bool:
+        return self._drag_start is not None
+
+    # ------------------------------------------------------------------ parts
+    def fix_parts(self) -> bool:
+        """Store the current snapped parts in the design (then analysed as given)."""
+        from loopkit.loop import apply_parts
+
+        if not self._result.feasible:
+            return False
+        return self.propose(apply_parts(self._design, self._result), "Keep parts in design", "compensator.parts")
+
+    def release_parts(self) -> bool:
+        """Drop the design's given parts: synthesise from the targets again."""
+        comp = replace(self._design.compensator, parts={})
+        return self.propose(replace(self._design, compensator=comp), "Synthesise parts", "compensator.parts")
+
+    # ------------------------------------------------------------------ highlight
+    def set_highlight(self, corners) -> None:
+        corners = tuple(int(c) for c in corners)
+        if corners != self._highlight:
+            self._highlight = corners
+            self.highlight_changed.emit(corners)
+
+    # ------------------------------------------------------------------ files
+    def reset(self, design: Design, path: str = "") -> None:
+        """Replace everything (New, Open): a new session, an empty undo history."""
+        session = LoopSession(design)  # may raise DesignError: the caller reports it
+        targets, result = self._run(session, design)
+        self._prepared = (design, session, targets, result)
+        self._session = None
+        self._design = None
+        self._highlight = ()
+        self.undo_stack.clear()
+        self._apply(design)
+        self.undo_stack.setClean()
+        self.highlight_changed.emit(self._highlight)
+        self._set_path(path)
+        self.dirty_changed.emit(False)
+
+    def open(self, path) -> None:
+        """Load a design file; raises DesignError (with file and key) if it cannot be used."""
+        design = load_design(path)
+        self.reset(design, str(Path(path).resolve()))
+
+    def save(self, path=None) -> str:
+        """Write the design (atomically); returns the path written."""
+        target = str(Path(path).resolve()) if path else self._path
+        if not target:
+            raise ValueError("no file name: use save(path)")
+        save_design(self._design, target)
+        self.undo_stack.setClean()
+        self._set_path(target)
+        return target
+
+    def restore(self, design: Design, path: str = "") -> None:
+        """Restore recovered work: the file's design (if any) as base, the recovered one as unsaved."""
+        base = None
+        if path and Path(path).is_file():
+            try:
+                base = load_design(path)
+            except DesignError:
+                base = None
+        self.reset(base or design, path if base is not None else "")
+        if base is not None and base != design:
+            self.propose(design, "Restore unsaved work")
+        elif base is None:
+            self.undo_stack.resetClean()
+            self.dirty_changed.emit(True)
+
+    def toml_text(self) -> str:
+        return dumps_design(self._design)
+
+    def _set_path(self, path: str) -> None:
+        if path != self._path:
+            self._path = path
+            self.path_changed.emit(path)
+
+    def _on_clean_changed(self, clean: bool) -> None:
+        self.dirty_changed.emit(not clean)
