@@ -30,7 +30,7 @@ from .synthesis import Placement, place
 from .units import format_value
 
 __all__ = ["Targets", "LoopSession", "LoopResult", "design_loop", "apply_parts", "frequency_grid",
-           "network_context", "modulator_transfer", "CAUTION"]
+           "network_context", "modulator_transfer", "closed_loop", "CAUTION"]
 
 CAUTION = ("loopkit is a design aid: verify every loop on the bench (measured loop gain, load steps) before use."
            " Converters store energy and may carry hazardous voltages; follow local codes and licensed practice.")
@@ -98,6 +98,16 @@ class LoopResult:
     @property
     def corner_labels(self) -> list[str]:
         return [corner_label(v, i) for v, i in zip(self.stage.vin, self.stage.load)]
+
+    def closed_loop_response(self, which: str) -> np.ndarray:
+        """Closed-loop ``"zout"`` (output impedance, ohm) or ``"gvg"`` (line to output) on ``f_hz``.
+
+        ``H / (1 + T)`` with the parts to build, shape (corners, frequencies).
+        """
+        if self.loop_resp is None:
+            raise ValueError("no loop: the targets were infeasible")
+        plant = {"zout": self.stage.zout, "gvg": self.stage.gvg}[which]
+        return plant.response(self.f_hz) / (1.0 + self.loop_resp)
 
 
 def frequency_grid(stage: StageResult, fsw: float, points: int = 1000) -> np.ndarray:
@@ -401,6 +411,24 @@ def _unique(findings: list) -> list:
             seen.add(key)
             out.append(f)
     return out
+
+
+def closed_loop(result: LoopResult, which: str, exact_parts: bool = False) -> Rational:
+    """Closed-loop ``"zout"`` or ``"gvg"`` as a transfer function per corner: H (1 + T)^-1.
+
+    With T = N/D (polynomials), H / (1 + T) = H D / (D + N); the roots of D + N
+    are the closed-loop poles used for the stability verdict.
+    """
+    loop = result.loop_exact if exact_parts else result.loop
+    if loop is None:
+        raise ValueError("no loop: the targets were infeasible")
+    plant = {"zout": result.stage.zout, "gvg": result.stage.gvg}[which]
+    num, den = loop.polys()
+    k = max(num.shape[1], den.shape[1])
+    char = np.zeros((loop.n_corners, k))
+    char[:, : num.shape[1]] += num
+    char[:, : den.shape[1]] += den
+    return plant * Rational.from_polys(den, char)
 
 
 def design_loop(design: Design, targets: Targets | None = None, f_hz=None) -> LoopResult:

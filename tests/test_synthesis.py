@@ -177,3 +177,23 @@ def test_property_feasible_meets_targets_infeasible_says_why(vin, ratio, l_uh, c
         assert result.parts == {} and result.parts_exact == {}
         reasons = [f.message for f in result.findings if f.code == "infeasible"]
         assert reasons and all(len(r) > 20 for r in reasons)
+
+
+def test_closed_loop_output_impedance_and_line_rejection_equal_python_control():
+    """H/(1+T) against python-control's feedback(H, T) (python-control 0.10)."""
+    import control
+
+    from loopkit.loop import closed_loop
+
+    design = load_design(SAMPLES[[p.stem for p in SAMPLES].index("buck_24v_3v3")])
+    result = design_loop(design)
+    f = np.geomspace(10, 1e5, 50)
+    for which, plant in (("zout", result.stage.zout), ("gvg", result.stage.gvg)):
+        tf = closed_loop(result, which)
+        grid = result.closed_loop_response(which)
+        for k in (0, result.stage.n_corners - 1):
+            ref = plant.to_control(k) * control.feedback(1, result.loop.to_control(k))
+            np.testing.assert_allclose(tf.take(k).response(f)[0], ref(2j * np.pi * f), rtol=1e-6)
+            np.testing.assert_allclose(grid[k], tf.take(k).response(result.f_hz)[0], rtol=1e-8)
+        # the loop lowers the output impedance at low frequency by |T|
+        assert np.all(np.abs(grid[:, 0]) < np.abs(plant.response(result.f_hz[:1])[:, 0]) / 10)
