@@ -200,6 +200,10 @@ FORMAT_CASES = [
     # value, unit, digits, ascii_only, text
     (2.2e-5, "H", 3, False, "22µH"),  # as in the CLI and the stage table
     (2.2e-5, "H", 3, True, "22uH"),
+    (12.0, "V", 4, True, "12V"),  # CLI corner names: vin=12V load=750mA
+    (0.75, "A", 4, True, "750mA"),
+    (1.0e-6, "", 3, True, "1u"),
+    (49.9e3, "Ω", 4, False, "49.9kΩ"),  # bill of materials, 4 digits
     (4.7e3, "Ω", 3, False, "4.7kΩ"),
     (49.9e3, "Ω", 4, False, "49.9kΩ"),
     (400e3, "Hz", 3, False, "400kHz"),
