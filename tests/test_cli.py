@@ -151,7 +151,7 @@ def test_bode_defaults_to_plant_and_stdout(capsys):
     code, out, _ = run(capsys, "bode", BUCK, "--points", 7)
     assert code == 0
     header, data = _read_csv(out)
-    assert data.shape == (7, 1 + 2 * 12)
+    assert data.shape == (7, 1 + 2 * load_design(BUCK).operating.n_corners)
     fsw = load_design(BUCK).stage.fsw
     np.testing.assert_allclose(data[[0, -1], 0], [10.0, fsw / 2], rtol=1e-5)
 
@@ -404,6 +404,8 @@ def test_infeasible_targets_say_why(capsys):
 def test_gui_command_opens_the_design(tmp_path):
     """``loopkit gui FILE`` starts the app on the file (offscreen; the app quits after its first plot)."""
     import os
+
+    pytest.importorskip("app.main", reason="the app package is not in this checkout")
 
     env = dict(os.environ, QT_QPA_PLATFORM="offscreen", LOOPKIT_GUI_TIME_START="1",
                XDG_CONFIG_HOME=str(tmp_path), XDG_DATA_HOME=str(tmp_path), XDG_STATE_HOME=str(tmp_path))
