@@ -103,7 +103,7 @@ def _design_header(design: Design, path: str) -> list[str]:
     extra = f", n = {st.turns_ratio:g}:1" if st.topology == "flyback" else ""
     lines.append(wrap_note(
         f"{st.topology}, Vout {_fmt(op.vout, 'V')}, fsw {_fmt(st.fsw, 'Hz')}, L {_fmt(st.inductance, 'H')}{extra}, "
-        f"Cout {caps}, {st.rectifier} rectifier, light load {st.light_load}"))
+        f"Cout {caps}, {st.rectifier} rectifier, light load {st.light_load_mode}"))
     return lines
 
 
