@@ -14,6 +14,7 @@ from dataclasses import dataclass, field, fields, replace
 import numpy as np
 
 from .errors import DesignError
+from .eseries import SERIES_NAMES
 from .units import format_value
 
 __all__ = [
@@ -101,8 +102,8 @@ class Stage:
     light_load : str
         ``"dcm"``: the inductor current stops at zero at light load (diode, or
         synchronous with diode emulation); ``"forced-ccm"``: the current reverses
-        and the stage stays in CCM.  Default: dcm for a diode, forced-ccm for a
-        synchronous rectifier.
+        and the stage stays in CCM; ``""`` (left out): dcm for a diode,
+        forced-ccm for a synchronous rectifier (see :attr:`light_load_mode`).
     turns_ratio : float
         Flyback primary to secondary turns, Np/Ns.
     buck_max_duty : float
@@ -138,10 +139,8 @@ class Stage:
         _non_negative("stage.diode_drop", self.diode_drop, "V")
         if self.rectifier not in ("synchronous", "diode"):
             raise DesignError("stage.rectifier", self.rectifier, "must be synchronous or diode")
-        if not self.light_load:
-            object.__setattr__(self, "light_load", "forced-ccm" if self.rectifier == "synchronous" else "dcm")
-        if self.light_load not in ("dcm", "forced-ccm"):
-            raise DesignError("stage.light_load", self.light_load, "must be dcm or forced-ccm")
+        if self.light_load not in ("", "dcm", "forced-ccm"):
+            raise DesignError("stage.light_load", self.light_load, "must be dcm or forced-ccm (or left out)")
         if self.rectifier == "diode" and self.light_load == "forced-ccm":
             raise DesignError("stage.light_load", self.light_load, "a diode cannot conduct backwards: use dcm")
         _positive("stage.turns_ratio", self.turns_ratio)
@@ -156,6 +155,13 @@ class Stage:
     @property
     def c_total(self) -> float:
         return sum(b.c_total for b in self.output_caps)
+
+    @property
+    def light_load_mode(self) -> str:
+        """``light_load`` as it applies: left out, dcm for a diode, forced-ccm for a synchronous rectifier."""
+        if self.light_load:
+            return self.light_load
+        return "forced-ccm" if self.rectifier == "synchronous" else "dcm"
 
     @property
     def synchronous(self) -> bool:
@@ -321,8 +327,8 @@ class Compensator:
         _between("compensator.boost_split", self.boost_split, 0.0, 1.0, "0 and 1")
         for name in ("resistor_series", "capacitor_series"):
             value = getattr(self, name)
-            if value not in ("E6", "E12", "E24", "E48", "E96", "E192", "none"):
-                raise DesignError(f"compensator.{name}", value, "must be E6, E12, E24, E48, E96, E192 or none")
+            if value not in SERIES_NAMES:
+                raise DesignError(f"compensator.{name}", value, f"must be one of {', '.join(SERIES_NAMES)}")
         for key, value in self.parts.items():
             if not (isinstance(value, float) and value > 0):
                 raise DesignError(f"compensator.parts.{key}", value, "must be > 0")

@@ -165,7 +165,7 @@ def analyse_stage(design: Design) -> StageResult:
                 f"the {stage.topology} cannot deliver {format_value(vout, 'V')} at {format_value(vin[k], 'V')} in"
                 f" with this load: conduction losses need a duty of 100 % or more (lower the load or the resistances)",
             )
-        in_dcm = (st.light_load == "dcm") & (cp.ripple / 2.0 > cp.i_l)
+        in_dcm = (st.light_load_mode == "dcm") & (cp.ripple / 2.0 > cp.i_l)
         out["load_boundary"][idx] = cp.out_per_il * cp.ripple / 2.0
         ccm_idx, dcm_idx = np.nonzero(~in_dcm)[0], np.nonzero(in_dcm)[0]
         if ccm_idx.size:
