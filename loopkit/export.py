@@ -46,6 +46,11 @@ def bom_csv(result: LoopResult) -> str:
     buf.write(f"# loopkit {__version__} bill of materials, {result.network} network. {CAUTION}\n")
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(["designator", "value", "value_si", "unit", "series", "tolerance", "kind", "computed"])
+    for name, key in (("Rled", "r_led"), ("Rpull", "r_pull")):
+        if result.network == "opto-type2" and result.design.compensator.opto.get(key):
+            value = float(result.design.compensator.opto[key])
+            writer.writerow([name, format_value(value, "Ω", digits=4), repr(value), "ohm", "given", "", "resistor",
+                             repr(value)])
     for name in sorted(result.parts, key=_designator_order):
         kind, unit = _kind(name)
         series = t.resistor_series if kind == "resistor" else t.capacitor_series if kind == "capacitor" else ""

@@ -258,6 +258,11 @@ class LoopSession:
         module = network_module(targets.network)
         parts = dict(self.design.compensator.parts)
         missing = [d for d in module.DESIGNATORS if d not in parts]
+        allowed = set(module.DESIGNATORS) | set(getattr(module, "OPTIONAL_DESIGNATORS", ()))
+        unknown = sorted(set(parts) - allowed)
+        if unknown:
+            return self._infeasible(targets, list(self.stage.findings), "compensator.parts", ", ".join(unknown),
+                                    f"not a part of the {targets.network} network (its parts: {', '.join(sorted(allowed))})")
         findings = list(self.stage.findings)
         if missing:
             return self._infeasible(targets, findings, "compensator.parts", ", ".join(missing),

@@ -3,9 +3,12 @@
 Every network module provides (``ctx`` is a :class:`NetworkContext`):
 
 ``DESIGNATORS``
-    tuple of the designators of its parts, e.g. ``("R1", "R2", "C1", "C2")``;
+    tuple of the designators of the parts it needs, e.g. ``("R1", "R2", "C1", "C2")``;
     a designator starting with R is a resistor (ohm), with C a capacitor (F).
     Other parameters (CTR, gm...) come from the context, not from parts.
+``OPTIONAL_DESIGNATORS``
+    parts it accepts but can do without (e.g. the divider's bottom resistor
+    ``Rb``, computed from R1 and the reference when absent).
 ``transfer(parts, ctx) -> Rational``
     The signed transfer function V(out)/V(in) of the network as one corner,
     V(in) being the voltage it senses (converter output, or the differential
