@@ -34,7 +34,7 @@ from .powerstage import StageResult, analyse_stage
 from .tables import EMPTY, Column, format_table, wrap_note
 from .units import format_value, parse_value
 
-__all__ = ["main", "build_parser", "CAUTION", "stage_report", "design_text", "bode_table", "corner_name"]
+__all__ = ["CAUTION", "bode_table", "build_parser", "corner_name", "design_text", "main", "stage_report"]
 
 #: One-line caution carried by every output that reports results.
 CAUTION = "Caution: design aid only; verify on the bench; mains/HV needs licensed review."
@@ -50,7 +50,7 @@ EXIT_INFEASIBLE = 1
 class _Parser(argparse.ArgumentParser):
     """argparse, but a usage error is one line on stderr, not usage plus message."""
 
-    def error(self, message: str):  # noqa: D401 - argparse API
+    def error(self, message: str):
         self.exit(EXIT_BAD_INPUT, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
 
 
@@ -80,7 +80,7 @@ def _mode_text(stage: StageResult, k: int) -> str:
     return f"{mode} {'trans' if sub == 'transition' else sub}" if sub else mode
 
 
-def _findings_text(findings, stage: StageResult) -> list[str]:
+def _findings_text(findings) -> list[str]:
     """Each finding once, with its corner."""
     seen, lines = set(), []
     for f in findings:
@@ -101,9 +101,12 @@ def _design_header(design: Design, path: str) -> list[str]:
     )
     lines = [design.title or Path(path).stem, f"file: {path}"]
     extra = f", n = {st.turns_ratio:g}:1" if st.topology == "flyback" else ""
-    lines.append(wrap_note(
-        f"{st.topology}, Vout {_fmt(op.vout, 'V')}, fsw {_fmt(st.fsw, 'Hz')}, L {_fmt(st.inductance, 'H')}{extra}, "
-        f"Cout {caps}, {st.rectifier} rectifier, light load {st.light_load_mode}"))
+    lines.append(
+        wrap_note(
+            f"{st.topology}, Vout {_fmt(op.vout, 'V')}, fsw {_fmt(st.fsw, 'Hz')}, L {_fmt(st.inductance, 'H')}{extra}, "
+            f"Cout {caps}, {st.rectifier} rectifier, light load {st.light_load_mode}"
+        )
+    )
     return lines
 
 
@@ -113,8 +116,14 @@ def stage_report(design: Design, stage: StageResult, path: str = "") -> str:
     warned = {f.corner for f in stage.findings if f.severity == "warning"}
     any_ccm, any_dcm = bool(np.any(~stage.dcm)), bool(np.any(stage.dcm))
     has_esr = bool(np.any(np.isfinite(stage.f_esr_hz)))
-    cols = [Column("#", "", "<"), Column("Vin", "V"), Column("Load", "A"), Column("Duty", "%"), Column("Mode", "", "<"),
-            Column("Ripple", "A pp")]
+    cols = [
+        Column("#", "", "<"),
+        Column("Vin", "V"),
+        Column("Load", "A"),
+        Column("Duty", "%"),
+        Column("Mode", "", "<"),
+        Column("Ripple", "A pp"),
+    ]
     if any_ccm:
         cols += [Column("f0", "Hz"), Column("Q")]
     if any_dcm:
@@ -124,8 +133,14 @@ def stage_report(design: Design, stage: StageResult, path: str = "") -> str:
     cols.append(Column("RHP zero", "Hz"))
     rows = []
     for k in range(n):
-        row = [f"{k:>{len(str(n - 1))}}{'!' if k in warned else ''}", _fmt(stage.vin[k]), _fmt(stage.load[k]),
-               _plain(100.0 * stage.duty[k], ".1f"), _mode_text(stage, k), _fmt(stage.ripple_pp[k])]
+        row = [
+            f"{k:>{len(str(n - 1))}}{'!' if k in warned else ''}",
+            _fmt(stage.vin[k]),
+            _fmt(stage.load[k]),
+            _plain(100.0 * stage.duty[k], ".1f"),
+            _mode_text(stage, k),
+            _fmt(stage.ripple_pp[k]),
+        ]
         if any_ccm:
             row += [_fmt(stage.f0_hz[k]), _plain(stage.q[k], ".3g")]
         if any_dcm:
@@ -153,7 +168,7 @@ def stage_report(design: Design, stage: StageResult, path: str = "") -> str:
         legend.append("trans: four-switch transition band.")
     legend.append(f"{EMPTY}: does not apply." + (" !: see warnings." if warned else ""))
     out.append(wrap_note(" ".join(legend)))
-    notes = _findings_text(stage.findings, stage)
+    notes = _findings_text(stage.findings)
     if notes:
         out += ["", "Warnings and notes:"] + notes
     out += ["", CAUTION]
@@ -185,8 +200,10 @@ def _targets_lines(result) -> list[str]:
     given = result.feasible and result.placement is None
     lines = [f"Network: {NETWORK_TITLES.get(result.network, result.network)} [{result.network}]"]
     if given:
-        lines.append("Parts: as given in the design file's [compensator.parts] (no synthesis; use --synthesise"
-                     " or a target option to design new ones)")
+        lines.append(
+            "Parts: as given in the design file's [compensator.parts] (no synthesis; use --synthesise"
+            " or a target option to design new ones)"
+        )
     else:
         k = result.design_corner
         at = ""
@@ -197,8 +214,10 @@ def _targets_lines(result) -> list[str]:
         p = result.placement
         if p is not None:
             kf = f", K = {p.k_factor:.3g}" if np.isfinite(p.k_factor) else ""
-            lines.append(f"Plant phase at fc {_angle(p.plant_phase_deg)} deg; boost {_angle(p.boost_deg)} deg"
-                         f" (needed {_angle(p.required_boost_deg)} deg){kf}")
+            lines.append(
+                f"Plant phase at fc {_angle(p.plant_phase_deg)} deg; boost {_angle(p.boost_deg)} deg"
+                f" (needed {_angle(p.required_boost_deg)} deg){kf}"
+            )
     return [wrap_note(line) for line in lines]
 
 
@@ -211,8 +230,13 @@ def _parts_table(result) -> str:
         series = t.resistor_series if name.startswith("R") else t.capacitor_series if name.startswith("C") else ""
         change = 100.0 * (value / exact - 1.0) if exact else float("nan")
         rows.append([name, _fmt(exact, unit, 4), _fmt(value, unit), series, _plain(change, "+.1f")])
-    cols = [Column("Part", "", "<"), Column("computed"), Column("to build"), Column("series", "", "<"),
-            Column("change", "%")]
+    cols = [
+        Column("Part", "", "<"),
+        Column("computed"),
+        Column("to build"),
+        Column("series", "", "<"),
+        Column("change", "%"),
+    ]
     return format_table(cols, rows)
 
 
@@ -228,15 +252,36 @@ def _margins_table(result) -> str:
     rows = []
     for k in range(st.n_corners):
         mark = ("*" if k == result.worst_corner else "") + ("!" if k in warned else "")
-        rows.append([
-            f"{k:>{width}}{mark}", _fmt(st.vin[k]), _fmt(st.load[k]), _mode_text(st, k),
-            _fmt(m.fc_hz[k]), _angle(m.pm_deg[k]), _plain(m.gm_db[k], ".1f"), _fmt(m.delay_margin_s[k]),
-            "yes" if m.stable[k] else "NO",
-            _fmt(mx.fc_hz[k]), _angle(mx.pm_deg[k]), _plain(mx.gm_db[k], ".1f"),
-        ])
-    cols = [Column("#", "", "<"), Column("Vin", "V"), Column("Load", "A"), Column("Mode", "", "<"),
-            Column("fc", "Hz"), Column("PM", "deg"), Column("GM", "dB"), Column("Delay", "s"),
-            Column("Stable", "", "<"), Column("fc", "Hz"), Column("PM", "deg"), Column("GM", "dB")]
+        rows.append(
+            [
+                f"{k:>{width}}{mark}",
+                _fmt(st.vin[k]),
+                _fmt(st.load[k]),
+                _mode_text(st, k),
+                _fmt(m.fc_hz[k]),
+                _angle(m.pm_deg[k]),
+                _plain(m.gm_db[k], ".1f"),
+                _fmt(m.delay_margin_s[k]),
+                "yes" if m.stable[k] else "NO",
+                _fmt(mx.fc_hz[k]),
+                _angle(mx.pm_deg[k]),
+                _plain(mx.gm_db[k], ".1f"),
+            ]
+        )
+    cols = [
+        Column("#", "", "<"),
+        Column("Vin", "V"),
+        Column("Load", "A"),
+        Column("Mode", "", "<"),
+        Column("fc", "Hz"),
+        Column("PM", "deg"),
+        Column("GM", "dB"),
+        Column("Delay", "s"),
+        Column("Stable", "", "<"),
+        Column("fc", "Hz"),
+        Column("PM", "deg"),
+        Column("GM", "dB"),
+    ]
     return format_table(cols, rows, groups=[("parts to build", 4, 8), ("computed parts", 9, 11)])
 
 
@@ -246,16 +291,31 @@ def design_text(result, path: str = "") -> str:
     if not result.feasible:
         out.append("No parts: the targets cannot be met with this network.")
     else:
-        out += [_parts_table(result), "",
-                wrap_note("Network with the parts to build: " + _roots_text("zeros", result.zeros_hz) + "; "
-                          + _roots_text("poles", result.poles_hz)), "",
-                "Loop gain at every corner:", _margins_table(result),
-                wrap_note("fc: gain crossover (the lowest if several). PM, GM: phase and gain margin"
-                          f" (GM {EMPTY}: the phase never reaches -180 deg). Delay: delay margin."
-                          " Stable: from the closed-loop poles. *: worst corner (lowest phase margin with the"
-                          " parts to build)." + (" !: see warnings." if any(
-                              f.severity == "warning" and f.corner is not None for f in result.findings) else ""))]
-    notes = _findings_text(result.findings, result.stage)
+        out += [
+            _parts_table(result),
+            "",
+            wrap_note(
+                "Network with the parts to build: "
+                + _roots_text("zeros", result.zeros_hz)
+                + "; "
+                + _roots_text("poles", result.poles_hz)
+            ),
+            "",
+            "Loop gain at every corner:",
+            _margins_table(result),
+            wrap_note(
+                "fc: gain crossover (the lowest if several). PM, GM: phase and gain margin"
+                f" (GM {EMPTY}: the phase never reaches -180 deg). Delay: delay margin."
+                " Stable: from the closed-loop poles. *: worst corner (lowest phase margin with the"
+                " parts to build)."
+                + (
+                    " !: see warnings."
+                    if any(f.severity == "warning" and f.corner is not None for f in result.findings)
+                    else ""
+                )
+            ),
+        ]
+    notes = _findings_text(result.findings)
     if notes:
         out += ["", "Warnings and notes:"] + notes
     out += ["", CAUTION]
@@ -269,8 +329,11 @@ def _grid(args, design: Design, default_fmax: float) -> np.ndarray:
     if not fmin > 0:
         raise DesignError("--fmin", args.fmin, "must be > 0 Hz")
     if not fmax > fmin:
-        raise DesignError("--fmax", args.fmax if args.fmax is not None else _fmt(fmax, "Hz"),
-                          f"must be above --fmin ({_fmt(fmin, 'Hz')})")
+        raise DesignError(
+            "--fmax",
+            args.fmax if args.fmax is not None else _fmt(fmax, "Hz"),
+            f"must be above --fmin ({_fmt(fmin, 'Hz')})",
+        )
     if not 2 <= args.points <= 100_000:
         raise DesignError("--points", args.points, "must be a whole number from 2 to 100000")
     return np.geomspace(fmin, fmax, args.points)
@@ -327,8 +390,10 @@ def _cmd_bode(args) -> int:
         return 0
     _write_text(args.csv, text)
     what = " + ".join(kinds)
-    print(f"wrote {args.csv}: {what}, {len(curves)} column sets x {f_hz.size} frequencies "
-          f"({_fmt(f_hz[0], 'Hz')} to {_fmt(f_hz[-1], 'Hz')})")
+    print(
+        f"wrote {args.csv}: {what}, {len(curves)} column sets x {f_hz.size} frequencies "
+        f"({_fmt(f_hz[0], 'Hz')} to {_fmt(f_hz[-1], 'Hz')})"
+    )
     print(CAUTION)
     return 0
 
@@ -396,12 +461,20 @@ def _add_target_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--pm", help="target phase margin, deg, e.g. 60")
     g.add_argument("--type", choices=("1", "2", "3"), help="op-amp network Type I, II or III")
     g.add_argument("--network", choices=NETWORKS, help="network by name (overrides --type)")
-    g.add_argument("--series", choices=SERIES, metavar="SERIES", help="E-series for resistors and capacitors: E6, E12, E24, E48, E96, E192 or none")
+    g.add_argument(
+        "--series",
+        choices=SERIES,
+        metavar="SERIES",
+        help="E-series for resistors and capacitors: E6, E12, E24, E48, E96, E192 or none",
+    )
     g.add_argument("--resistor-series", choices=SERIES, metavar="SERIES", help="E-series for resistors (default E96)")
     g.add_argument("--capacitor-series", choices=SERIES, metavar="SERIES", help="E-series for capacitors (default E12)")
     g.add_argument("--corner", help="corner index to design at, or 'worst' (default)")
-    g.add_argument("--synthesise", action="store_true",
-                   help="synthesise new parts even when the design file gives [compensator.parts]")
+    g.add_argument(
+        "--synthesise",
+        action="store_true",
+        help="synthesise new parts even when the design file gives [compensator.parts]",
+    )
 
 
 def _cmd_design(args) -> int:
@@ -434,8 +507,11 @@ def _cmd_export(args) -> int:
     design = load_design(args.file)
     result = _loop_result(design, args, need_parts="export")
     written = []
-    for path, writer in ((args.bom, export.bom_csv), (args.spice, export.spice_netlist),
-                         (args.json, export.results_json)):
+    for path, writer in (
+        (args.bom, export.bom_csv),
+        (args.spice, export.spice_netlist),
+        (args.json, export.results_json),
+    ):
         if path:
             _write_text(path, writer(result))
             written.append(path)
@@ -461,8 +537,11 @@ def _cmd_gui(args) -> int:
 # ---------------------------------------------------------------------- parser
 def build_parser() -> argparse.ArgumentParser:
     """The argparse parser of the ``loopkit`` command."""
-    parser = _Parser(prog="loopkit", description="Design and verify the feedback loop of a switching "
-                     "DC-DC converter at every operating corner. " + CAUTION)
+    parser = _Parser(
+        prog="loopkit",
+        description="Design and verify the feedback loop of a switching "
+        "DC-DC converter at every operating corner. " + CAUTION,
+    )
     parser.add_argument("--version", action="version", version=f"loopkit {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True

@@ -11,7 +11,7 @@ from __future__ import annotations
 import textwrap
 from dataclasses import dataclass
 
-__all__ = ["Column", "format_table", "wrap_note", "WIDTH", "EMPTY"]
+__all__ = ["EMPTY", "WIDTH", "Column", "format_table", "wrap_note"]
 
 #: Width the command line's output is laid out for.
 WIDTH = 80
@@ -39,8 +39,13 @@ class Column:
     align: str = ">"
 
 
-def format_table(columns: list[Column], rows: list[list[str]], width: int = WIDTH, indent: str = "",
-                 groups: list[tuple[str, int, int]] = ()) -> str:
+def format_table(
+    columns: list[Column],
+    rows: list[list[str]],
+    width: int = WIDTH,
+    indent: str = "",
+    groups: list[tuple[str, int, int]] = (),
+) -> str:
     """Lay out ``rows`` under two header lines (titles, then units).
 
     Parameters
@@ -96,5 +101,11 @@ def format_table(columns: list[Column], rows: list[list[str]], width: int = WIDT
 
 def wrap_note(text: str, first: str = "", width: int = WIDTH) -> str:
     """Wrap ``text`` to ``width`` columns: ``first`` leads the first line, later lines indent under it."""
-    return textwrap.fill(text, width=width, initial_indent=first, subsequent_indent=" " * len(first),
-                         break_on_hyphens=False, break_long_words=False)
+    return textwrap.fill(
+        text,
+        width=width,
+        initial_indent=first,
+        subsequent_indent=" " * len(first),
+        break_on_hyphens=False,
+        break_long_words=False,
+    )
