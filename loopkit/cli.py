@@ -5,7 +5,7 @@ Subcommands::
     loopkit stage FILE                      power stage at every corner
     loopkit bode FILE --plant|--loop|--compensator [--csv OUT]
     loopkit design FILE [--fc 20k] [--pm 60] [--type 2|3] [--json] [--write]
-    loopkit export FILE [--bom OUT.csv] [--spice OUT.cir] [--json OUT.json]
+    loopkit export FILE [--bom OUT.csv] [--spice OUT.cir] [--json OUT.json] [--svg OUT.svg]
     loopkit gui [FILE]
 
 Every command calls the same library path as the app and the tests
@@ -502,8 +502,8 @@ def _cmd_design(args) -> int:
 def _cmd_export(args) -> int:
     from . import export
 
-    if not (args.bom or args.spice or args.json):
-        raise DesignError("--bom/--spice/--json", "(none given)", "give at least one output file")
+    if not (args.bom or args.spice or args.json or args.svg):
+        raise DesignError("--bom/--spice/--json/--svg", "(none given)", "give at least one output file")
     design = load_design(args.file)
     result = _loop_result(design, args, need_parts="export")
     written = []
@@ -511,6 +511,7 @@ def _cmd_export(args) -> int:
         (args.bom, export.bom_csv),
         (args.spice, export.spice_netlist),
         (args.json, export.results_json),
+        (args.svg, _network_drawing),
     ):
         if path:
             _write_text(path, writer(result))
@@ -518,6 +519,17 @@ def _cmd_export(args) -> int:
     print(f"wrote {', '.join(written)}")
     print(CAUTION)
     return 0
+
+
+def _network_drawing(result) -> str:
+    """SVG of the network with the parts to build, the caution as an XML comment before the drawing."""
+    from .loop import network_context
+    from .schematic import network_svg
+
+    svg = network_svg(result.network, result.parts, network_context(result.design))
+    head, sep, body = svg.partition("?>") if svg.startswith("<?xml") else ("", "", svg)
+    comment = f"<!-- loopkit {result.network} network, parts to build. {CAUTION} -->\n"
+    return f"{head}{sep}\n{comment}{body.lstrip()}" if sep else comment + body
 
 
 def _cmd_stage(args) -> int:
@@ -569,11 +581,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--write", action="store_true", help="save the parts and targets back into FILE")
     p.set_defaults(run=_cmd_design)
 
-    p = sub.add_parser("export", help="hand-off files: BOM (CSV), SPICE netlist, results (JSON)")
+    p = sub.add_parser("export", help="hand-off files: BOM (CSV), SPICE netlist, results (JSON), drawing (SVG)")
     p.add_argument("file", metavar="FILE", help="design file (TOML)")
     p.add_argument("--bom", metavar="OUT.csv", help="bill of materials")
     p.add_argument("--spice", metavar="OUT.cir", help="ngspice netlist of the network (nodes in, out)")
     p.add_argument("--json", metavar="OUT.json", help="results document")
+    p.add_argument("--svg", metavar="OUT.svg", help="drawing of the network with the parts to build")
     _add_target_options(p)
     p.set_defaults(run=_cmd_export)
 

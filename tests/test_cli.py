@@ -369,16 +369,24 @@ def test_bode_loop_and_compensator(capsys):
     np.testing.assert_allclose(data[:, -1], cph[0], rtol=1e-5, atol=1e-3)
 
 
-def test_export_writes_the_three_files(capsys, tmp_path):
+def test_export_writes_the_files(capsys, tmp_path):
+    import xml.dom.minidom
+
     from loopkit import export
+    from loopkit.loop import network_context
+    from loopkit.schematic import network_svg
 
     result = _loop(BUCK)
-    bom, cir, js = tmp_path / "bom.csv", tmp_path / "net.cir", tmp_path / "res.json"
-    code, out, _ = run(capsys, "export", BUCK, "--bom", bom, "--spice", cir, "--json", js)
+    bom, cir, js, svg = tmp_path / "bom.csv", tmp_path / "net.cir", tmp_path / "res.json", tmp_path / "net.svg"
+    code, out, _ = run(capsys, "export", BUCK, "--bom", bom, "--spice", cir, "--json", js, "--svg", svg)
     assert code == 0 and CAUTION in out
     assert bom.read_text() == export.bom_csv(result)
     assert cir.read_text() == export.spice_netlist(result)
     assert js.read_text() == export.results_json(result)
+    drawing = svg.read_text()
+    xml.dom.minidom.parseString(drawing)  # well-formed with the caution comment in front
+    assert CAUTION in drawing.split("-->")[0]
+    assert drawing.split("-->\n", 1)[1] == network_svg(result.network, result.parts, network_context(result.design))
 
 
 @pytest.mark.parametrize(
