@@ -15,6 +15,7 @@ returns values that equal the decimal literal (``snap(4.6e-6, "E12") == 4.7e-6``
 
 from __future__ import annotations
 
+import functools
 import math
 import re
 from types import MappingProxyType
@@ -145,11 +146,14 @@ def _decimal_values(ints: np.ndarray, exponents: np.ndarray) -> np.ndarray:
     return exact
 
 
+@functools.lru_cache(maxsize=512)
 def _table(series: str, d_lo: int, d_hi: int) -> np.ndarray:
-    """All values of ``series`` with decade exponents d_lo ... d_hi, ascending."""
+    """All values of ``series`` with decade exponents d_lo ... d_hi, ascending (cached, read-only)."""
     decades = np.arange(d_lo, d_hi + 1)
     ints, exps = np.broadcast_arrays(_INT[series][None, :], decades[:, None] - _DECIMALS[series])
-    return _decimal_values(ints, exps).ravel()
+    table = _decimal_values(ints, exps).ravel()
+    table.flags.writeable = False
+    return table
 
 
 def _positive_array(value, field: str) -> np.ndarray:
