@@ -197,7 +197,7 @@ def _angle(value: float) -> str:
 
 def _targets_lines(result) -> list[str]:
     t, st = result.targets, result.stage
-    given = result.feasible and result.placement is None
+    given = _given(result)
     lines = [f"Network: {NETWORK_TITLES.get(result.network, result.network)} [{result.network}]"]
     if given:
         lines.append(
@@ -221,8 +221,16 @@ def _targets_lines(result) -> list[str]:
     return [wrap_note(line) for line in lines]
 
 
+def _given(result) -> bool:
+    """True when the design's own parts were analysed (no synthesis, nothing snapped)."""
+    return result.feasible and result.placement is None
+
+
 def _parts_table(result) -> str:
     t = result.targets
+    if _given(result):
+        rows = [[name, _fmt(value, _part_unit(name), 4)] for name, value in result.parts.items()]
+        return format_table([Column("Part", "", "<"), Column("value")], rows)
     rows = []
     for name, value in result.parts.items():
         exact = result.parts_exact.get(name, value)
@@ -268,6 +276,8 @@ def _margins_table(result) -> str:
                 _plain(mx.gm_db[k], ".1f"),
             ]
         )
+    if _given(result):  # the given parts are built as they are: one set of figures
+        rows = [row[:9] for row in rows]
     cols = [
         Column("#", "", "<"),
         Column("Vin", "V"),
@@ -282,6 +292,8 @@ def _margins_table(result) -> str:
         Column("PM", "deg"),
         Column("GM", "dB"),
     ]
+    if _given(result):
+        return format_table(cols[:9], rows, groups=[("parts as given", 4, 8)])
     return format_table(cols, rows, groups=[("parts to build", 4, 8), ("computed parts", 9, 11)])
 
 

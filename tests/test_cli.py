@@ -347,6 +347,19 @@ def test_design_write_round_trip(capsys, tmp_path):
     np.testing.assert_array_equal(again.margins.fc_hz, synthesised.margins.fc_hz)
     code, out, _ = run(capsys, "design", path)
     assert code == 0 and "as given" in out
+    # given parts are printed once (nothing was computed or snapped), with one set of margins
+    for name, value in written.compensator.parts.items():
+        assert [name, format_value(value, _part_unit(name), 4)] in [line.split() for line in out.splitlines()]
+    lines = out.splitlines()
+    start = next(i for i, line in enumerate(lines) if line.startswith("Loop gain at every corner"))
+    first = lines[start + 4].split()
+    assert first[-5:] == [
+        _fmt(again.margins.fc_hz[0]),
+        f"{again.margins.pm_deg[0]:.1f}",
+        f"{again.margins.gm_db[0]:.1f}",
+        _fmt(again.margins.delay_margin_s[0]),
+        "yes",
+    ]
 
 
 def test_bode_loop_and_compensator(capsys):
