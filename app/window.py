@@ -20,7 +20,7 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from loopkit import DesignError, loads_design
+from loopkit import DesignError, format_value, loads_design
 
 from .corners_view import CornersView
 from .files import RecentFiles, Recovery, app_dir, write_text_atomic
@@ -243,7 +243,7 @@ class MainWindow(QMainWindow):
         self.model.preview_targets(fc=nice_hz(f_hz))
 
     def _on_marker_released(self, f_hz: float) -> None:
-        self.model.end_preview(f"Drag crossover target to {nice_hz(f_hz):g} Hz")
+        self.model.end_preview(f"Drag crossover target to {format_value(nice_hz(f_hz), 'Hz')}")
 
     # ------------------------------------------------------------------ files
     def maybe_save(self) -> bool:
