@@ -31,6 +31,9 @@ TWO_PI = 2.0 * np.pi
 
 _PAD = np.array([1.0 + 0j, 0.0 + 0j])
 
+#: Roots spanning more decades than this (scaled) are split between two companion matrices.
+_SPAN_SPLIT_DECADES = 6.0
+
 
 def _as_factor_array(factors, n: int) -> np.ndarray:
     """Shape ``factors`` into a complex array (n, k, 2)."""
@@ -58,6 +61,17 @@ def _normalise(gain: np.ndarray, factors: np.ndarray) -> tuple[np.ndarray, np.nd
     return gain * np.prod(lead, axis=-1), out
 
 
+def _companion_eigvals(desc: np.ndarray) -> np.ndarray:
+    """Roots of ``desc_0 z^m + desc_1 z^(m-1) + ... + desc_m`` per row (desc_0 != 0)."""
+    n, m1 = desc.shape
+    m = m1 - 1
+    companion = np.zeros((n, m, m))
+    companion[:, 0, :] = -desc[:, 1:] / desc[:, :1]
+    if m > 1:
+        companion[:, np.arange(1, m), np.arange(m - 1)] = 1.0
+    return np.linalg.eigvals(companion)
+
+
 def poly_roots_inverse(coeffs: np.ndarray) -> np.ndarray:
     """Inverse roots of polynomials with a nonzero constant term, row by row.
 
@@ -75,9 +89,16 @@ def poly_roots_inverse(coeffs: np.ndarray) -> np.ndarray:
     Notes
     -----
     The ``w_i`` are the roots of the reversed polynomial
-    ``c0 x^m + c1 x^(m-1) + ... + cm``; they are found as the eigenvalues of its
-    companion matrix (one batched LAPACK call for all rows), after scaling ``s``
-    by ``|c0/c_deg|^(1/deg)`` so the coefficients are balanced.
+    ``c0 x^m + c1 x^(m-1) + ... + cm``, found as the eigenvalues of its
+    companion matrix (one batched LAPACK call for all rows) after scaling ``s``
+    by ``|c0/c_deg|^(1/deg)`` so the coefficients are balanced.  Eigenvalues are
+    accurate to about eps times the matrix norm, so when the roots span many
+    decades the small ``|w|`` (large ``|s|``) lose accuracy or come out as 0; for
+    rows spanning more than ``_SPAN_SPLIT_DECADES`` the roots below the widest
+    gap in magnitude are taken instead from the companion matrix of the
+    polynomial itself (roots ``1/w``), where they are the large ones.  The
+    split is never inside a cluster or a conjugate pair, whose members must
+    come from one eigenvalue computation for their products to stay accurate.
     """
     c = np.asarray(coeffs, dtype=float)
     n, m1 = c.shape
@@ -93,12 +114,41 @@ def poly_roots_inverse(coeffs: np.ndarray) -> np.ndarray:
         w_ref = np.where(deg > 0, np.abs(c[:, 0] / top) ** (1.0 / np.maximum(deg, 1)), 1.0)
     k = np.arange(m1)
     scaled = c * w_ref[:, None] ** k[None, :]
-    companion = np.zeros((n, m, m))
-    companion[:, 0, :] = -scaled[:, 1:] / scaled[:, :1]
+    rows = np.arange(n)
+    # A: companion of r(x) = sum_k scaled_k x^(m-k), x = scaled inverse root:
+    # accurate (relative to |x|) for |x| >= 1, the roots of small |s|
+    xa = _companion_eigvals(scaled)
+    # B: companion of q(y) = sum_{k <= deg} scaled_k y^k, y = 1/x, times y^(m - deg):
+    # accurate for |y| >= 1, the roots of large |s| (which A can lose in eps * norm)
+    idx = deg[:, None] - k[None, :]
+    desc_b = np.where(idx >= 0, scaled[rows[:, None], np.maximum(idx, 0)], 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        xb = 1.0 / _companion_eigvals(desc_b)
+    xa = np.take_along_axis(xa, np.argsort(-np.abs(xa), axis=1), axis=1)  # largest |x| first
+    xb = np.take_along_axis(xb, np.argsort(np.abs(xb), axis=1), axis=1)  # smallest |x| first
+    # split where the sorted magnitudes have their widest gap (never inside a
+    # cluster of near-multiple roots or a conjugate pair): above it from A,
+    # below it from B; rows spanning less than _SPAN_SPLIT_DECADES use A alone
+    mag = np.abs(xa)
+    valid = k[None, :m] < deg[:, None]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        logm = np.where(valid, np.log10(np.maximum(mag, 1e-300)), np.nan)
+        gaps = logm[:, :-1] - logm[:, 1:]  # >= 0, sorted descending
+    gaps = np.where(valid[:, 1:], gaps, -np.inf) if m > 1 else np.zeros((n, 0))
+    n_a = deg.copy()
     if m > 1:
-        companion[:, np.arange(1, m), np.arange(m - 1)] = 1.0
-    w_scaled = np.linalg.eigvals(companion)
-    w = w_scaled / w_ref[:, None]
+        g_at = np.argmax(gaps, axis=1)
+        g = gaps[rows, g_at]
+        span = np.nan_to_num(logm[rows, 0] - logm[rows, np.maximum(deg - 1, 0)], nan=0.0)
+        split = (g > 1.0) & (span > _SPAN_SPLIT_DECADES)
+        n_a = np.where(split, g_at + 1, deg)
+    pos = k[None, :m]
+    from_b = np.take_along_axis(xb, np.clip(pos - n_a[:, None], 0, m - 1), axis=1)
+    x = np.where(pos < n_a[:, None], xa, np.where(pos < deg[:, None], from_b, 0.0))
+    with np.errstate(invalid="ignore"):
+        paired = np.all(np.isclose(np.sort_complex(x), np.sort_complex(np.conj(x)), rtol=1e-9, atol=0), axis=1)
+    x = np.where((paired & np.all(np.isfinite(x), axis=1))[:, None], x, np.where(pos < deg[:, None], xa, 0.0))
+    w = x / w_ref[:, None]
     # exact zeros where the degree is short (eigvals of a zero block can be ~1e-300)
     order = np.argsort(-np.abs(w), axis=1)
     w = np.take_along_axis(w, order, axis=1)

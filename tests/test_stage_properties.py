@@ -68,15 +68,15 @@ def designs(draw, topology=None, rectifier=None, light_load=None):
     i_max = draw(st.floats(0.1, 10.0))
     loads = (i_max * draw(st.floats(0.01, 0.3)), i_max * draw(st.floats(0.3, 0.9)), i_max)
     r_min = abs(vout) / i_max
-    l_h = draw(st.floats(0.2, 20.0)) * r_min / fsw  # around the CCM/DCM boundary over the loads
+    l_h = draw(st.floats(0.2, 20.0)) * r_min * n * n / fsw  # around the CCM/DCM boundary over the loads
     rect = rectifier or draw(st.sampled_from(["synchronous", "diode"]))
     if light_load is not None:
         ll = light_load
     else:
         ll = "dcm" if rect == "diode" else draw(st.sampled_from(["dcm", "forced-ccm"]))
 
-    def par():
-        return r_min * draw(st.floats(0.0, 0.01))
+    def par(primary=False):  # flyback primary-side parts are compared with the load referred, n^2 R
+        return r_min * (n * n if primary else 1.0) * draw(st.floats(0.0, 0.01))
 
     banks = tuple(
         CapacitorBank(draw(st.floats(1e-6, 1e-3)), draw(st.sampled_from([0.0, 1e-3, 5e-3, 0.02, 0.08])),
@@ -84,7 +84,7 @@ def designs(draw, topology=None, rectifier=None, light_load=None):
         for _ in range(draw(st.integers(1, 2)))
     )
     stage = Stage(
-        topology=topo, fsw=fsw, inductance=l_h, output_caps=banks, dcr=par(), r_switch=par(), rectifier=rect,
+        topology=topo, fsw=fsw, inductance=l_h, output_caps=banks, dcr=par(True), r_switch=par(True), rectifier=rect,
         r_rectifier=par(), diode_drop=draw(st.floats(0.0, 0.8)) if rect == "diode" else 0.0,
         light_load=ll, turns_ratio=n, buck_max_duty=0.85, boost_min_duty=0.12,
     )
@@ -157,9 +157,9 @@ def _seeded_design(topology, seed, eps):
         vin, vout = (v1 * 0.6, v1 * 1.6), v1
     i_max = rng.uniform(0.1, 10.0)
     r_min = abs(vout) / i_max
-    pars = eps * r_min * rng.uniform(0.0, 0.01, 3)
+    pars = eps * r_min * rng.uniform(0.0, 0.01, 3) * np.array([n * n, n * n, 1.0])  # primary parts vs n^2 R
     banks = (CapacitorBank(rng.uniform(10e-6, 500e-6), eps * rng.uniform(0, 0.05), 2),)
-    stage = Stage(topology=topology, fsw=fsw, inductance=rng.uniform(0.5, 5) * r_min / fsw, output_caps=banks,
+    stage = Stage(topology=topology, fsw=fsw, inductance=rng.uniform(0.5, 5) * r_min * n * n / fsw, output_caps=banks,
                   dcr=pars[0], r_switch=pars[1], rectifier="synchronous", r_rectifier=pars[2],
                   light_load="forced-ccm", turns_ratio=n, buck_max_duty=0.85, boost_min_duty=0.12)
     sensing = Sensing(kind="differential") if vout < 0 else Sensing()
