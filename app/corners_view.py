@@ -94,6 +94,7 @@ class CornersView(QWidget):
         self._plain = QFont()
         self._worst_row = -2
         self._findings_key = None
+        self._stale = True
         model.results_changed.connect(self._on_results_changed)
         model.highlight_changed.connect(self._on_highlight_changed)
         self._on_results_changed(model.result)
@@ -115,9 +116,18 @@ class CornersView(QWidget):
                     item.setBackground(QBrush())
         return True
 
+    def showEvent(self, event) -> None:
+        super().showEvent(event)
+        if self._stale:
+            self._on_results_changed(self._model.result)
+
     def _on_results_changed(self, result) -> None:
         if result is None:
             return
+        if not self.isVisible():  # hidden tab: bring it up to date when shown
+            self._stale = True
+            return
+        self._stale = False
         stage = result.stage
         n = stage.n_corners
         fresh = self._ensure_rows(n)

@@ -89,6 +89,7 @@ class ValueEdit(QLineEdit, _Keyed):
         self.key = key
         self.unit = unit
         self.plain = plain
+        self.value_shown = None
         self._shown = ""
         self.setObjectName(key)
         self.setMinimumWidth(56)
@@ -96,9 +97,17 @@ class ValueEdit(QLineEdit, _Keyed):
 
     def set_value(self, value: float) -> None:
         """Show ``value`` (SI) and clear any mark."""
+        self.value_shown = value
         self._shown = plain_text(value) if self.plain else exact_text(value, self.unit)
         self.setText(self._shown)
         self.setCursorPosition(0)
+        self.mark_valid()
+
+    def clear_value(self) -> None:
+        """Show no value (an optional field left empty) and clear any mark."""
+        self.value_shown = None
+        self._shown = ""
+        self.setText("")
         self.mark_valid()
 
     def _on_editing_finished(self) -> None:

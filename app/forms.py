@@ -273,9 +273,7 @@ class DesignForm(QScrollArea):
                 if key in co.opto:
                     w.set_value(co.opto[key])
                 else:
-                    w.setText("")
-                    w._shown = ""
-                    w.mark_valid()
+                    w.clear_value()
         for key, value in values.items():
             w = self._widgets[key]
             with QSignalBlocker(w):
@@ -283,9 +281,7 @@ class DesignForm(QScrollArea):
         w = self._widgets["operating.vin_nominal"]
         with QSignalBlocker(w):
             if op.vin_nominal is None:
-                w.setText("")
-                w._shown = ""
-                w.mark_valid()
+                w.clear_value()
             else:
                 w.set_value(op.vin_nominal)
         for key, vals in (("operating.vin", op.vin), ("operating.load", op.load)):
@@ -327,9 +323,14 @@ class DesignForm(QScrollArea):
         self._set_row_visible("stage.diode_drop", st.rectifier == "diode")
         self._set_row_visible("sensing.diff_bandwidth", se.kind == "differential")
         self._set_row_visible("sensing.divider_current", se.kind == "divider")
+        self._targets_key = None
         self._update_parts_note()
 
     def _on_targets_changed(self, targets) -> None:
+        key = (targets.design_corner, targets.network, self._model.parts_given)
+        if key == getattr(self, "_targets_key", None):
+            return  # a crossover or phase-margin move: nothing here changes
+        self._targets_key = key
         w = self._widgets["compensator.design_corner"]
         with QSignalBlocker(w):
             w.set_choice(targets.design_corner)

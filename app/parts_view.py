@@ -102,6 +102,7 @@ class PartsView(QWidget):
         self._model = model
         self._request = 0
         self._drawn_key = None
+        self._stale = True
         self._pool = QThreadPool(self)
         self._pool.setMaxThreadCount(1)
         self._draw_signals = _DrawSignals(self)
@@ -187,9 +188,19 @@ class PartsView(QWidget):
             with QSignalBlocker(box):
                 box.setCurrentIndex(max(box.findData(value), 0))
 
+    def showEvent(self, event) -> None:
+        super().showEvent(event)
+        if self._stale:
+            self._on_results_changed(self._model.result)
+
     def _on_results_changed(self, result) -> None:
         if result is None:
             return
+        if not self.isVisible():  # hidden tab: bring it up to date when shown
+            self._stale = True
+            self._schedule_drawing()
+            return
+        self._stale = False
         names = sorted(result.parts, key=_order)
         if self.table.rowCount() != len(names):
             self.table.setRowCount(len(names))

@@ -13,9 +13,9 @@ import math
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import QSignalBlocker, Qt, Signal
+from PySide6.QtCore import QRectF, QSignalBlocker, Qt, Signal
 from PySide6.QtGui import QColor, QFont, QPen
-from PySide6.QtWidgets import QVBoxLayout, QWidget
+from PySide6.QtWidgets import QGraphicsView, QVBoxLayout, QWidget
 
 from loopkit import format_value
 
@@ -94,6 +94,116 @@ class PhaseAxis(pg.AxisItem):
         return [(major, list(np.arange(first, maxVal + 1e-9, major)))]
 
 
+class _Grid:
+    """Grid lines as two line-pair curves (major, minor) at the axes' own ticks.
+
+    pyqtgraph's axis grid costs about 20 ms a repaint here; two cosmetic
+    line-pair paths cost well under one.
+    """
+
+    def __init__(self, plot, x_axis, y_axis):
+        self._plot, self._x_axis, self._y_axis = plot, x_axis, y_axis
+        self._major = pg.PlotCurveItem(pen=_pen("#000000", Qt.SolidLine, 1.0, 46), connect="pairs")
+        self._minor = pg.PlotCurveItem(pen=_pen("#000000", Qt.SolidLine, 1.0, 18), connect="pairs")
+        for item in (self._major, self._minor):
+            item.setZValue(-10)
+            plot.addItem(item, ignoreBounds=True)
+        vb = plot.getViewBox()
+        vb.sigRangeChanged.connect(self.update)
+        vb.sigResized.connect(self.update)
+
+    @staticmethod
+    def _levels(axis, lo, hi, size):
+        levels = axis.tickValues(lo, hi, size) if size > 0 else []
+        major = list(levels[0][1]) if levels else []
+        minor = [v for _, vals in levels[1:] for v in vals]
+        return major, minor
+
+    def update(self, *_) -> None:
+        vb = self._plot.getViewBox()
+        (x0, x1), (y0, y1) = vb.viewRange()
+        xs_major, xs_minor = self._levels(self._x_axis, x0, x1, vb.width())
+        ys_major, ys_minor = self._levels(self._y_axis, y0, y1, vb.height())
+        for item, xs, ys in ((self._major, xs_major, ys_major), (self._minor, xs_minor, ys_minor)):
+            px, py = [], []
+            for x in xs:
+                px += [x, x]
+                py += [y0, y1]
+            for y in ys:
+                px += [x0, x1]
+                py += [y, y]
+            item.setData(np.asarray(px, float), np.asarray(py, float), connect="pairs")
+
+
+class CurveBundle(pg.GraphicsObject):
+    """Many curves that share one x grid, drawn by one item (one per plot and kind).
+
+    One item instead of one PlotCurveItem per corner: the bounds of all
+    curves come from one vectorised min/max and the paint loop is a plain
+    ``drawPath`` per curve, which keeps a 21-corner redraw within a frame.
+
+    Parameters
+    ----------
+    connect : str
+        ``"all"`` (finite data) or ``"finite"`` (gaps where data is not finite).
+    """
+
+    def __init__(self, connect: str = "all"):
+        super().__init__()
+        self._connect = connect
+        self._paths: list = []
+        self._pens: list[QPen] = []
+        self._order: list[int] = []
+        self._rect = QRectF()
+        self._x = np.zeros(0)
+        self._y = np.zeros((0, 0))
+
+    @property
+    def n(self) -> int:
+        return len(self._paths)
+
+    def set_pens(self, pens, order=None) -> None:
+        """One pen per curve; ``order`` is the drawing order (last on top)."""
+        self._pens = list(pens)
+        self._order = list(range(len(self._pens))) if order is None else list(order)
+        self.update()
+
+    def set_data(self, x: np.ndarray, y: np.ndarray) -> None:
+        """``x`` (nf,) view coordinates shared by all curves, ``y`` (curves, nf)."""
+        self._x, self._y = x, y
+        self._paths = [pg.arrayToQPath(x, row, connect=self._connect) for row in y]
+        finite = y[np.isfinite(y)] if self._connect == "finite" else y
+        if finite.size and x.size:
+            y0, y1 = float(np.min(finite)), float(np.max(finite))
+            rect = QRectF(float(x[0]), y0, float(x[-1] - x[0]), max(y1 - y0, 1e-12))
+        else:
+            rect = QRectF()
+        if rect != self._rect:
+            self.prepareGeometryChange()
+            self._rect = rect
+        self.update()
+
+    def curve(self, k: int) -> np.ndarray:
+        """The y data of curve ``k`` as drawn."""
+        return self._y[k]
+
+    def boundingRect(self) -> QRectF:
+        return QRectF(self._rect)
+
+    def dataBounds(self, ax, frac=1.0, orthoRange=None):
+        if self._rect.isNull():
+            return (None, None)
+        r = self._rect
+        return (r.left(), r.right()) if ax == 0 else (r.top(), r.bottom())
+
+    def paint(self, p, *args) -> None:
+        p.setRenderHint(p.RenderHint.Antialiasing, False)
+        for k in self._order:
+            if k < len(self._paths) and k < len(self._pens):
+                p.setPen(self._pens[k])
+                p.drawPath(self._paths[k])
+
+
 def _pen(colour, style=Qt.SolidLine, width=1.0, alpha=255) -> QPen:
     c = QColor(colour)
     c.setAlpha(alpha)
@@ -135,6 +245,8 @@ class BodeView(QWidget):
         layout.setContentsMargins(0, 0, 0, 0)
         self.canvas = pg.GraphicsLayoutWidget()
         self.canvas.setObjectName("bode_canvas")
+        # one clip rectangle per repaint: many small update rectangles make every drawPath slow
+        self.canvas.setViewportUpdateMode(QGraphicsView.FullViewportUpdate)
         layout.addWidget(self.canvas)
         self.canvas.ci.setSpacing(2)
         self.mag = self.canvas.addPlot(row=0, col=0, axisItems={"bottom": FrequencyAxis("bottom")})
@@ -142,7 +254,6 @@ class BodeView(QWidget):
                                                                  "left": PhaseAxis("left")})
         self.phase.setXLink(self.mag)
         for plot in (self.mag, self.phase):
-            plot.showGrid(x=True, y=True, alpha=0.18)
             plot.setMenuEnabled(False)
             plot.hideButtons()
             plot.getViewBox().setMouseMode(pg.ViewBox.PanMode)
@@ -152,6 +263,7 @@ class BodeView(QWidget):
         self.phase.getAxis("left").setLabel("Phase of T (°)", **label_style)
         self.phase.getAxis("bottom").setLabel("Frequency (Hz)", **label_style)
         self.mag.getAxis("bottom").setStyle(showValues=False)
+        self._grids = [_Grid(p, p.getAxis("bottom"), p.getAxis("left")) for p in (self.mag, self.phase)]
         self.canvas.ci.layout.setRowStretchFactor(0, 5)
         self.canvas.ci.layout.setRowStretchFactor(1, 4)
 
@@ -169,11 +281,17 @@ class BodeView(QWidget):
         self._ref180 = pg.InfiniteLine(pos=-180.0, angle=0, pen=grey)
         self.phase.addItem(self._ref180, ignoreBounds=True)
 
-        # curve pools (sized on a design change)
-        self._mag_curves: list[pg.PlotCurveItem] = []
-        self._phase_curves: list[pg.PlotCurveItem] = []
-        self._plant_mag: list[pg.PlotCurveItem] = []
-        self._plant_phase_curves: list[pg.PlotCurveItem] = []
+        # every corner's curves: one bundle item per plot and kind
+        self.loop_mag = CurveBundle()
+        self.loop_phase = CurveBundle()
+        self.plant_mag = CurveBundle("finite")
+        self.plant_phase = CurveBundle("finite")
+        for plot, item, z in ((self.mag, self.loop_mag, 2), (self.phase, self.loop_phase, 2),
+                              (self.mag, self.plant_mag, 1), (self.phase, self.plant_phase, 1)):
+            item.setZValue(z)
+            plot.addItem(item)
+        self.plant_mag.setVisible(False)
+        self.plant_phase.setVisible(False)
         self._comp_mag = pg.PlotCurveItem(pen=_pen("#1b1b1b", Qt.DashDotLine, 1.4))
         self._comp_phase = pg.PlotCurveItem(pen=_pen("#1b1b1b", Qt.DashDotLine, 1.4))
         for plot, item in ((self.mag, self._comp_mag), (self.phase, self._comp_phase)):
@@ -244,8 +362,8 @@ class BodeView(QWidget):
     # ------------------------------------------------------------------ options
     def set_show_plant(self, on: bool) -> None:
         self._show_plant = bool(on)
-        for c in self._plant_mag + self._plant_phase_curves:
-            c.setVisible(self._show_plant)
+        self.plant_mag.setVisible(self._show_plant)
+        self.plant_phase.setVisible(self._show_plant)
         self._fit_pending = True
         self._on_results_changed(self._model.result)
 
@@ -262,24 +380,12 @@ class BodeView(QWidget):
         self._on_results_changed(self._model.result)
 
     # ------------------------------------------------------------------ model -> items
-    def _resize_pool(self, pool: list, plot, n: int, z: float) -> None:
-        while len(pool) > n:
-            plot.removeItem(pool.pop())
-        while len(pool) < n:
-            item = pg.PlotCurveItem(skipFiniteCheck=False)
-            item.setZValue(z)
-            plot.addItem(item)
-            pool.append(item)
-
     def _on_design_changed(self, design) -> None:
         result = self._model.result
         stage = result.stage
         n = stage.n_corners
         self._n = n
         self._x = hz_to_view(result.f_hz)
-        for pool, plot, z in ((self._mag_curves, self.mag, 2), (self._phase_curves, self.phase, 2),
-                              (self._plant_mag, self.mag, 1), (self._plant_phase_curves, self.phase, 1)):
-            self._resize_pool(pool, plot, n, z)
         vmin, vmax = float(np.min(stage.vin)), float(np.max(stage.vin))
         if vmax - vmin < 1e-9:
             vmin, vmax = vmin - 0.5, vmax + 0.5
@@ -289,15 +395,11 @@ class BodeView(QWidget):
         self._corner_styles = [styles[float(x)] for x in stage.load]
         # plant: fixed for this design
         self._plant_phase = stage.gvd.phase_deg(result.f_hz)
-        plant_db = magnitude_db(result.plant_resp)
-        for k in range(n):
-            pen = _pen(self._corner_colours[k], self._corner_styles[k], 1.0, 90)
-            self._plant_mag[k].setPen(pen)
-            self._plant_phase_curves[k].setPen(pen)
-            self._plant_mag[k].setData(self._x, plant_db[k], connect="finite")
-            self._plant_phase_curves[k].setData(self._x, self._plant_phase[k], connect="finite")
-            self._plant_mag[k].setVisible(self._show_plant)
-            self._plant_phase_curves[k].setVisible(self._show_plant)
+        self.plant_mag.set_data(self._x, magnitude_db(result.plant_resp))
+        self.plant_phase.set_data(self._x, self._plant_phase)
+        faint = [_pen(self._corner_colours[k], self._corner_styles[k], 1.0, 90) for k in range(n)]
+        self.plant_mag.set_pens(faint)
+        self.plant_phase.set_pens(faint)
         self._apply_pens()
         # legend: one entry per load (line style), in the design's units
         self.legend.clear()
@@ -309,15 +411,14 @@ class BodeView(QWidget):
 
     def _apply_pens(self) -> None:
         highlight = set(self._model.highlight)
+        pens = []
         for k in range(self._n):
             dim = bool(highlight) and k not in highlight
             width = 2.0 if k in highlight else 1.0
-            pen = _pen(self._corner_colours[k], self._corner_styles[k], width, 60 if dim else 255)
-            self._mag_curves[k].setPen(pen)
-            self._phase_curves[k].setPen(pen)
-            z = 6 if k in highlight else 2
-            self._mag_curves[k].setZValue(z)
-            self._phase_curves[k].setZValue(z)
+            pens.append(_pen(self._corner_colours[k], self._corner_styles[k], width, 55 if dim else 255))
+        order = [k for k in range(self._n) if k not in highlight] + sorted(highlight)
+        self.loop_mag.set_pens(pens, order)
+        self.loop_phase.set_pens(pens, order)
 
     def _on_highlight_changed(self, corners) -> None:
         self._apply_pens()
@@ -336,9 +437,8 @@ class BodeView(QWidget):
         x = self._x
         feasible = result.feasible
         self._infeasible_text.setVisible(not feasible)
-        for items in (self._mag_curves, self._phase_curves):
-            for c in items:
-                c.setVisible(feasible)
+        self.loop_mag.setVisible(feasible)
+        self.loop_phase.setVisible(feasible)
         for item in (self._worst_mag, self._worst_phase, self._pm_bar, self._pm_ref, self._gm_bar, self._fc_dot_mag,
                      self._fc_dot_phase, self._f180_dot, self._f180_dot_mag, self._pm_text, self._gm_text):
             item.setVisible(feasible)
@@ -353,9 +453,8 @@ class BodeView(QWidget):
             return
         mag = magnitude_db(result.loop_resp)
         phase = result.loop_phase_deg
-        for k in range(self._n):
-            self._mag_curves[k].setData(x, mag[k], skipFiniteCheck=True)
-            self._phase_curves[k].setData(x, phase[k], skipFiniteCheck=True)
+        self.loop_mag.set_data(x, mag)
+        self.loop_phase.set_data(x, phase)
         if self._show_comp:
             self._comp_mag.setData(x, magnitude_db(result.comp_resp[0]), connect="finite")
             self._comp_phase.setData(x, result.compensator.phase_deg(result.f_hz)[0], connect="finite")
@@ -367,7 +466,7 @@ class BodeView(QWidget):
     def _draw_worst(self, result, mag_w: np.ndarray, phase_w: np.ndarray) -> None:
         w = result.worst_corner
         x = self._x
-        pen = _pen(self._corner_colours[w], self._corner_styles[w], 2.6)
+        pen = _pen(self._corner_colours[w], self._corner_styles[w], 2.0)
         self._worst_mag.setPen(pen)
         self._worst_phase.setPen(pen)
         self._worst_mag.setData(x, mag_w, skipFiniteCheck=True)

@@ -155,9 +155,10 @@ class TargetsBar(QWidget):
         self._on_targets_changed(self._model.targets)
 
     def _on_targets_changed(self, t) -> None:
-        with QSignalBlocker(self.network):
-            self.network.setCurrentIndex(max(self.network.findData(t.network), 0))
-        mark(self.network, None)
+        if self.network.currentData() != t.network or self.network.property("invalid"):
+            with QSignalBlocker(self.network):
+                self.network.setCurrentIndex(max(self.network.findData(t.network), 0))
+            mark(self.network, None)
         if not self.fc_slider.isSliderDown():
             with QSignalBlocker(self.fc_slider):
                 self.fc_slider.setValue(self.fc_to_slider(t.fc_hz))
@@ -167,14 +168,15 @@ class TargetsBar(QWidget):
         if not self.split_slider.isSliderDown():
             with QSignalBlocker(self.split_slider):
                 self.split_slider.setValue(round(t.boost_split * 100))
-        with QSignalBlocker(self.fc_edit):
-            self.fc_edit.set_value(t.fc_hz)
-        with QSignalBlocker(self.pm_edit):
-            self.pm_edit.set_value(t.pm_deg)
+        for edit, value in ((self.fc_edit, t.fc_hz), (self.pm_edit, t.pm_deg)):
+            if edit.value_shown != value or edit.invalid:
+                with QSignalBlocker(edit):
+                    edit.set_value(value)
         self.split_value.setText(f"{t.boost_split:.0%}")
         type3 = t.network == "type3"
-        for w in (self.split_label, self.split_slider, self.split_value):
-            w.setEnabled(type3)
+        if self.split_slider.isEnabled() != type3:
+            for w in (self.split_label, self.split_slider, self.split_value):
+                w.setEnabled(type3)
 
     def _on_highlight_changed(self, corners) -> None:
         if not corners:

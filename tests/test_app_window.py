@@ -26,7 +26,7 @@ from app.corners_view import fc_text, gm_text, pm_text
 from app.testing import drag_marker, move_marker, press_marker, release_marker, settle
 from app.viewmodel import DesignModel
 from app.window import MainWindow
-from loopkit import export, load_design
+from loopkit import export, format_value, load_design
 from loopkit.loop import Targets, design_loop
 
 ROOT = __import__("conftest").ROOT
@@ -111,9 +111,13 @@ def assert_shows(window, want) -> None:
     text = window.readout.worst.text()
     assert pm_text(float(want.margins.pm_deg[w])) in text and gm_text(float(want.margins.gm_db[w])) in text
     assert window.corners.table.item(w, 0).text().startswith("▶")
+    window.side_tabs.setCurrentWidget(window.parts)  # the hidden tab catches up when shown
     shown_parts = {window.parts.table.item(r, 0).text(): window.parts.table.item(r, 2).text()
                    for r in range(window.parts.table.rowCount())}
+    window.side_tabs.setCurrentWidget(window.corners)
     assert set(shown_parts) == set(want.parts)
+    for name, text in shown_parts.items():
+        assert text == format_value(want.parts[name], "Ω" if name.startswith("R") else "F", digits=4)
 
 
 # ---------------------------------------------------------------------- margins as the CLI gives them
@@ -287,7 +291,7 @@ def test_fill_range_and_corner_count(window):
     form._on_fill_vin()
     assert len(model.design.operating.vin) in (7, 8)  # the nominal input is kept in a range
     assert window.corners.table.rowCount() == model.design.operating.n_corners
-    assert len(window.bode._mag_curves) == model.design.operating.n_corners
+    assert window.bode.loop_mag.n == model.design.operating.n_corners
 
 
 # ---------------------------------------------------------------------- files
@@ -301,6 +305,7 @@ def test_save_reopen_identical(window, make_window, tmp_path, monkeypatch):
     assert not model.dirty and not window.isWindowModified()
     assert load_design(out) == model.design
     other = make_window()
+    other.show()
     assert other.open_path(out, ask=False)
     assert other.model.design == model.design
     assert table_margins(other) == table_margins(window)
@@ -345,6 +350,7 @@ def test_recovery_restores_work(make_window, tmp_path, monkeypatch):
     assert len(list((data / "recovery").glob("*.toml"))) == 1
 
     second = make_window()
+    second.show()
     monkeypatch.setattr(QMessageBox, "question", lambda *a, **k: QMessageBox.Yes)
     assert second.offer_recovery()
     assert second.model.design == edited
@@ -471,11 +477,12 @@ def test_plant_and_compensator_toggles(window):
     window.plant_action.setChecked(True)
     window.comp_action.setChecked(True)
     r = window.model.result
-    assert all(c.isVisible() for c in window.bode._plant_mag)
-    np.testing.assert_array_equal(window.bode._plant_mag[0].yData, 20 * np.log10(np.abs(r.plant_resp[0])))
+    assert window.bode.plant_mag.isVisible()
+    np.testing.assert_array_equal(window.bode.plant_mag.curve(0), 20 * np.log10(np.abs(r.plant_resp[0])))
+    np.testing.assert_array_equal(window.bode.plant_phase.curve(0), r.stage.gvd.phase_deg(r.f_hz)[0])
     np.testing.assert_array_equal(window.bode._comp_phase.yData, r.compensator.phase_deg(r.f_hz)[0])
     window.plant_action.setChecked(False)
-    assert not any(c.isVisible() for c in window.bode._plant_mag)
+    assert not window.bode.plant_mag.isVisible()
 
 
 def test_cautions_banner(window, make_window):

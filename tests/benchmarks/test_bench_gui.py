@@ -1,0 +1,152 @@
+"""Benchmark: from a slider move to the repainted plot, and the app's cold start.
+
+21 corners (7 input voltages x 3 loads of the 24 V buck sample) x 1000
+frequencies, window 1400 x 900, offscreen.  One move = the crossover slider's
+value changes while it is held down (the drag path: re-synthesis, margins at
+every corner, table, read-out, every curve updated with setData), then
+``QApplication.processEvents()`` paints every widget that changed; a paint
+counter on the plot's viewport checks that the plot itself was repainted
+(if not, ``viewport().repaint()`` is forced and counted).  Reported over 200 moves: median and 95th percentile,
+with the bare ``LoopSession.run`` of the same targets in the same process as
+the reference (ratio), and the share spent outside the library.  Cold start:
+a subprocess starts the app on a sample design and prints when the plot has
+first been painted; wall time from launch.  Reported, never asserted as times.
+Run: pytest tests/benchmarks/test_bench_gui.py --benchmark-enable -s
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import time
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+pytest.importorskip("pytestqt")
+pytestmark = pytest.mark.gui
+
+from loopkit import load_design
+from loopkit.design import Operating
+from loopkit.loop import LoopSession
+
+ROOT = Path(__file__).resolve().parents[2]
+SAMPLE = ROOT / "sample_designs" / "buck_24v_3v3.toml"
+MOVES = 200
+
+
+def _design():
+    design = load_design(SAMPLE)
+    return replace(design, operating=Operating(3.3, tuple(np.linspace(18, 32, 7)), (0.3, 1.5, 3.0)))
+
+
+def _stats(times) -> dict:
+    t = np.asarray(times) * 1e3
+    return {"median_ms": round(float(np.median(t)), 2), "p95_ms": round(float(np.percentile(t, 95)), 2),
+            "max_ms": round(float(np.max(t)), 2)}
+
+
+def test_bench_slider_to_repaint(qtbot, tmp_path, monkeypatch, benchmark):
+    monkeypatch.setenv("LOOPKIT_APP_DIR", str(tmp_path))
+    from app.testing import settle
+    from app.viewmodel import DesignModel
+    from app.window import MainWindow
+
+    model = DesignModel(_design())
+    window = MainWindow(model, data_dir=tmp_path)
+    window.resize(1400, 900)
+    window.show()
+    qtbot.waitExposed(window)
+    settle(0.3)
+    assert model.result.stage.n_corners == 21 and model.result.f_hz.size == 1000
+    slider = window.targets_bar.fc_slider
+    viewport = window.bode.canvas.viewport()
+    start = slider.value()
+    positions = [start + round(40 * np.sin(2 * np.pi * k / 50)) for k in range(1, MOVES + 1)]
+    positions = [p if p != positions[i - 1] else p + 1 for i, p in enumerate(positions)]
+    from PySide6.QtCore import QEvent, QObject
+    from PySide6.QtWidgets import QApplication
+
+    app = QApplication.instance()
+
+    class PaintCount(QObject):
+        n = 0
+
+        def eventFilter(self, obj, event):
+            if event.type() == QEvent.Paint:
+                PaintCount.n += 1
+            return False
+
+    counter = PaintCount()
+    viewport.installEventFilter(counter)
+    slider.setSliderDown(True)
+    move_times, paint_times, forced = [], [], 0
+    for pos in positions:
+        before = PaintCount.n
+        t0 = time.perf_counter()
+        slider.setValue(pos)  # re-synthesis, margins, every view updated
+        t1 = time.perf_counter()
+        app.processEvents()  # every widget repaints (the plot included)
+        if PaintCount.n == before:  # the plot must have been painted for the move to count
+            viewport.repaint()
+            forced += 1
+        t2 = time.perf_counter()
+        move_times.append(t2 - t0)
+        paint_times.append(t2 - t1)
+    slider.setSliderDown(False)
+    viewport.removeEventFilter(counter)
+    assert model.undo_stack.count() == 1
+
+    # reference in the same process: the library's run for the same targets, no Qt
+    session = LoopSession(model.design)
+    targets = [replace(model.targets, fc_hz=window.targets_bar.slider_to_fc(p)) for p in positions]
+    run_times = []
+    for t in targets:
+        t0 = time.perf_counter()
+        session.run(t)
+        run_times.append(time.perf_counter() - t0)
+
+    total, paint, run = _stats(move_times), _stats(paint_times), _stats(run_times)
+    ratio = total["median_ms"] / run["median_ms"]
+    benchmark.extra_info.update({"move_to_repaint": total, "repaint_only": paint, "loop_run_reference": run,
+                                 "moves_needing_forced_repaint": forced,
+                                 "ratio_move_over_run": round(ratio, 2), "corners": 21, "frequencies": 1000})
+    print(f"\nslider move -> repainted plot, {MOVES} moves, 21 corners x 1000 f: median {total['median_ms']} ms,"
+          f" p95 {total['p95_ms']} ms (goal 16 / 33 ms); painting (all widgets) median {paint['median_ms']} ms;"
+          f" LoopSession.run alone median {run['median_ms']} ms, p95 {run['p95_ms']} ms;"
+          f" ratio move/run {ratio:.2f}; forced repaints {forced}")
+    benchmark.pedantic(lambda: (slider.setValue(start), viewport.repaint()), rounds=1, iterations=1)
+    model.undo_stack.setClean()
+    window.close()
+
+
+def _cold_start(env) -> tuple[float, float]:
+    t0 = time.perf_counter()
+    proc = subprocess.run([sys.executable, "-m", "app", str(SAMPLE)], env=env, capture_output=True, text=True,
+                          timeout=60, cwd=ROOT, check=False)
+    wall = time.perf_counter() - t0
+    line = next((ln for ln in proc.stdout.splitlines() if ln.startswith("first-plot")), None)
+    assert line is not None, proc.stderr[-2000:]
+    return wall, float(line.split()[1])
+
+
+def test_bench_cold_start(tmp_path, benchmark):
+    env = dict(os.environ, QT_QPA_PLATFORM="offscreen", LOOPKIT_APP_DIR=str(tmp_path), LOOPKIT_GUI_TIME_START="1")
+    runs = [_cold_start(env) for _ in range(3)]
+    # reference in the same run: a bare interpreter that imports numpy and exits
+    t0 = time.perf_counter()
+    subprocess.run([sys.executable, "-c", "import numpy"], check=True, timeout=60)
+    bare = time.perf_counter() - t0
+    walls = sorted(r[0] for r in runs)
+    inside = sorted(r[1] for r in runs)
+    benchmark.extra_info.update({"cold_start_wall_s": [round(w, 3) for w in walls],
+                                 "after_interpreter_s": [round(w, 3) for w in inside],
+                                 "bare_python_numpy_s": round(bare, 3),
+                                 "ratio_start_over_bare": round(walls[1] / bare, 2)})
+    print(f"\ncold start to the first painted plot (launch -> paint): median {walls[1]:.2f} s"
+          f" (runs {', '.join(f'{w:.2f}' for w in walls)}); of which after the app module loaded"
+          f" {inside[1]:.2f} s; bare python+numpy {bare:.2f} s; ratio {walls[1] / bare:.1f}")
+    benchmark.pedantic(lambda: None, rounds=1, iterations=1)
