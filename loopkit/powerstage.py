@@ -102,7 +102,8 @@ def _range_check(design: Design, vin: np.ndarray) -> None:
     if bad is not None:
         v = design.operating.vin[bad]
         raise DesignError(
-            f"operating.vin[{bad}]", format_value(v, "V"),
+            f"operating.vin[{bad}]",
+            format_value(v, "V"),
             f"a {stage.topology} cannot make {format_value(vout, 'V')} from {format_value(v, 'V')}"
             f" (a {stage.topology} needs vin {'above' if stage.topology == 'buck' else 'below'} vout)",
         )
@@ -149,8 +150,21 @@ def analyse_stage(design: Design) -> StageResult:
     _range_check(design, vin)
     n = vin.shape[0]
     r_load = abs(vout) / load
-    out = {name: np.full(n, np.nan) for name in (
-        "duty", "i_l", "ripple_pp", "i_peak", "load_boundary", "f0_hz", "q", "fp_hz", "f_hf_hz", "f_rhp_hz")}
+    out = {
+        name: np.full(n, np.nan)
+        for name in (
+            "duty",
+            "i_l",
+            "ripple_pp",
+            "i_peak",
+            "load_boundary",
+            "f0_hz",
+            "q",
+            "fp_hz",
+            "f_hf_hz",
+            "f_rhp_hz",
+        )
+    }
     dcm_mask = np.zeros(n, bool)
     submode = np.full(n, "", dtype=object)
     parts_vd, parts_vg, parts_zo, order = [], [], [], []
@@ -161,7 +175,8 @@ def analyse_stage(design: Design) -> StageResult:
         if np.any(~np.isfinite(cp.duty) | (cp.duty >= 1.0) | (cp.duty <= 0.0)):
             k = idx[np.nonzero(~np.isfinite(cp.duty) | (cp.duty >= 1.0) | (cp.duty <= 0.0))[0][0]]
             raise DesignError(
-                "operating.load", format_value(load[k], "A"),
+                "operating.load",
+                format_value(load[k], "A"),
                 f"the {stage.topology} cannot deliver {format_value(vout, 'V')} at {format_value(vin[k], 'V')} in"
                 f" with this load: conduction losses need a duty of 100 % or more (lower the load or the resistances)",
             )
@@ -202,11 +217,27 @@ def analyse_stage(design: Design) -> StageResult:
     f_esr = np.array([1.0 / (TWO_PI * b.esr_total * b.c_total) if b.esr > 0 else np.nan for b in stage.output_caps])
     findings.extend(_stage_findings(design, vin, load, out, dcm_mask, submode))
     return StageResult(
-        vin=vin, load=load, vout=vout, duty=out["duty"], dcm=dcm_mask, submode=submode.astype(str),
-        i_l=out["i_l"], ripple_pp=out["ripple_pp"], i_peak=out["i_peak"], load_boundary=out["load_boundary"],
-        gd0=gvd.dc_gain(), f0_hz=out["f0_hz"], q=out["q"], fp_hz=out["fp_hz"], f_hf_hz=out["f_hf_hz"],
-        f_esr_hz=np.broadcast_to(f_esr, (n, f_esr.size)).copy(), f_rhp_hz=out["f_rhp_hz"],
-        gvd=gvd, gvg=gvg, zout=zout, findings=tuple(findings),
+        vin=vin,
+        load=load,
+        vout=vout,
+        duty=out["duty"],
+        dcm=dcm_mask,
+        submode=submode.astype(str),
+        i_l=out["i_l"],
+        ripple_pp=out["ripple_pp"],
+        i_peak=out["i_peak"],
+        load_boundary=out["load_boundary"],
+        gd0=gvd.dc_gain(),
+        f0_hz=out["f0_hz"],
+        q=out["q"],
+        fp_hz=out["fp_hz"],
+        f_hf_hz=out["f_hf_hz"],
+        f_esr_hz=np.broadcast_to(f_esr, (n, f_esr.size)).copy(),
+        f_rhp_hz=out["f_rhp_hz"],
+        gvd=gvd,
+        gvg=gvg,
+        zout=zout,
+        findings=tuple(findings),
     )
 
 
@@ -218,21 +249,32 @@ def _stage_findings(design, vin, load, out, dcm_mask, submode) -> list[Finding]:
     found = []
     dmax = design.modulator.max_duty
     for k in np.nonzero(out["duty"] > dmax)[0]:
-        found.append(Finding(
-            "duty-limit",
-            f"duty {out['duty'][k]:.1%} at {corner_label(vin[k], load[k])} exceeds modulator.max_duty {dmax:.0%}:"
-            " the output will fall out of regulation there", int(k)))
+        found.append(
+            Finding(
+                "duty-limit",
+                f"duty {out['duty'][k]:.1%} at {corner_label(vin[k], load[k])} exceeds modulator.max_duty {dmax:.0%}:"
+                " the output will fall out of regulation there",
+                int(k),
+            )
+        )
     for k in np.nonzero(dcm_mask)[0]:
-        found.append(Finding(
-            "dcm",
-            f"{corner_label(vin[k], load[k])} runs in DCM (boundary at {format_value(out['load_boundary'][k], 'A')}):"
-            " modelled with the DCM averaged model (conduction losses other than the diode drop neglected)",
-            int(k), "note"))
+        found.append(
+            Finding(
+                "dcm",
+                f"{corner_label(vin[k], load[k])} runs in DCM (boundary at {format_value(out['load_boundary'][k], 'A')}):"
+                " modelled with the DCM averaged model (conduction losses other than the diode drop neglected)",
+                int(k),
+                "note",
+            )
+        )
     for k in np.nonzero(submode == "transition")[0]:
-        found.append(Finding(
-            "transition-band",
-            f"{corner_label(vin[k], load[k])} is in the four-switch transition band (buck duty above "
-            f"{design.stage.buck_max_duty:.0%}, boost duty below {design.stage.boost_min_duty:.0%}): modelled in "
-            "the pure mode that can regulate; a real controller blends modes here, so verify on the bench",
-            int(k)))
+        found.append(
+            Finding(
+                "transition-band",
+                f"{corner_label(vin[k], load[k])} is in the four-switch transition band (buck duty above "
+                f"{design.stage.buck_max_duty:.0%}, boost duty below {design.stage.boost_min_duty:.0%}): modelled in "
+                "the pure mode that can regulate; a real controller blends modes here, so verify on the bench",
+                int(k),
+            )
+        )
     return found

@@ -25,7 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Rational", "poly_roots_inverse", "TWO_PI"]
+__all__ = ["TWO_PI", "Rational", "poly_roots_inverse"]
 
 TWO_PI = 2.0 * np.pi
 
@@ -222,7 +222,7 @@ class Rational:
 
     # ------------------------------------------------------------------ constructors
     @classmethod
-    def from_factors(cls, gain, num=(), den=(), delay_s=0.0) -> "Rational":
+    def from_factors(cls, gain, num=(), den=(), delay_s=0.0) -> Rational:
         """Build from a gain and factor lists ``[(a0, a1), ...]`` (any scaling).
 
         ``gain`` may be a scalar or an array over corners; factor arrays may be
@@ -248,7 +248,7 @@ class Rational:
         return cls(g * ratio.real, nf, df, np.broadcast_to(d, (n,)).astype(float))
 
     @classmethod
-    def from_roots_hz(cls, gain, zeros_hz=(), poles_hz=()) -> "Rational":
+    def from_roots_hz(cls, gain, zeros_hz=(), poles_hz=()) -> Rational:
         """Gain times ``prod(1 - s/z) / prod(1 - s/p)`` with roots given in Hz (s/2 pi).
 
         A root at 0 becomes ``s/(2 pi)``-free factor ``s``; the gain is then the
@@ -270,7 +270,7 @@ class Rational:
         return cls.from_factors(gain, fac(zeros_hz), fac(poles_hz))
 
     @classmethod
-    def from_polys(cls, num, den, delay_s=0.0) -> "Rational":
+    def from_polys(cls, num, den, delay_s=0.0) -> Rational:
         """Build from ascending polynomial coefficients in s (rad/s), shape (n, k)."""
         num = np.atleast_2d(np.asarray(num, dtype=float))
         den = np.atleast_2d(np.asarray(den, dtype=float))
@@ -282,7 +282,7 @@ class Rational:
         return cls(gn / gd, fn, fd, np.broadcast_to(np.asarray(delay_s, float), (n,)).copy())
 
     @classmethod
-    def constant(cls, value, n: int | None = None) -> "Rational":
+    def constant(cls, value, n: int | None = None) -> Rational:
         v = np.atleast_1d(np.asarray(value, dtype=float))
         if n is not None:
             v = np.broadcast_to(v, (n,))
@@ -295,7 +295,7 @@ class Rational:
     def n_corners(self) -> int:
         return self.gain.shape[0]
 
-    def broadcast(self, n: int) -> "Rational":
+    def broadcast(self, n: int) -> Rational:
         if self.n_corners == n:
             return self
         if self.n_corners != 1:
@@ -307,7 +307,7 @@ class Rational:
             np.broadcast_to(self.delay_s, (n,)).copy(),
         )
 
-    def __mul__(self, other) -> "Rational":
+    def __mul__(self, other) -> Rational:
         if not isinstance(other, Rational):
             return Rational(self.gain * np.asarray(other, dtype=float), self.num, self.den, self.delay_s)
         n = max(self.n_corners, other.n_corners)
@@ -321,24 +321,24 @@ class Rational:
 
     __rmul__ = __mul__
 
-    def inverse(self) -> "Rational":
+    def inverse(self) -> Rational:
         return Rational(1.0 / self.gain, self.den, self.num, -self.delay_s)
 
-    def __truediv__(self, other) -> "Rational":
+    def __truediv__(self, other) -> Rational:
         if not isinstance(other, Rational):
             return self * (1.0 / np.asarray(other, dtype=float))
         return self * other.inverse()
 
-    def __neg__(self) -> "Rational":
+    def __neg__(self) -> Rational:
         return Rational(-self.gain, self.num, self.den, self.delay_s)
 
-    def take(self, index) -> "Rational":
+    def take(self, index) -> Rational:
         """The corners selected by ``index`` (int, slice, mask or index array)."""
         idx = np.atleast_1d(np.arange(self.n_corners)[index])
         return Rational(self.gain[idx], self.num[idx], self.den[idx], self.delay_s[idx])
 
     @staticmethod
-    def stack(parts: list["Rational"], order: np.ndarray | None = None) -> "Rational":
+    def stack(parts: list[Rational], order: np.ndarray | None = None) -> Rational:
         """Concatenate corners of several Rationals (padding factor lists)."""
         kz = max(p.num.shape[1] for p in parts)
         kp = max(p.den.shape[1] for p in parts)

@@ -210,7 +210,7 @@ def test_from_polys_round_trip(num, den):
     scale = d2[0, np.argmax(d2[0] != 0)] / den[np.argmax(den != 0)]
     np.testing.assert_allclose(n2[0, : num.size], num * scale, rtol=1e-8, atol=1e-12 * np.max(np.abs(num * scale)))
     np.testing.assert_allclose(d2[0, : den.size], den * scale, rtol=1e-8, atol=1e-12 * np.max(np.abs(den * scale)))
-    assert np.all(n2[0, num.size:] == 0) and np.all(d2[0, den.size:] == 0)
+    assert np.all(n2[0, num.size :] == 0) and np.all(d2[0, den.size :] == 0)
     s = 1j * TWO_PI * F_HZ
     expected = np.polyval(num[::-1], s) / np.polyval(den[::-1], s)
     np.testing.assert_allclose(h.response(F_HZ)[0], expected, rtol=1e-9)
@@ -229,8 +229,12 @@ def test_from_polys_many_rows_one_call():
         expected = np.polyval(num[k, ::-1], s) / np.polyval(den[k, ::-1], s)
         np.testing.assert_allclose(h.response(F_HZ)[k], expected, rtol=1e-12)
     assert np.sum(np.isfinite(h.zeros_hz()[0])) == 1 and np.sum(np.isfinite(h.poles_hz()[1])) == 1
-    np.testing.assert_allclose(np.sort(h.zeros_hz()[1][np.isfinite(h.zeros_hz()[1])].real),
-                               np.sort(np.roots([1e-3, 1.0, 0.0]).real) / TWO_PI, rtol=1e-12, atol=0)
+    np.testing.assert_allclose(
+        np.sort(h.zeros_hz()[1][np.isfinite(h.zeros_hz()[1])].real),
+        np.sort(np.roots([1e-3, 1.0, 0.0]).real) / TWO_PI,
+        rtol=1e-12,
+        atol=0,
+    )
 
 
 @SETTINGS

@@ -79,14 +79,25 @@ def designs(draw, topology=None, rectifier=None, light_load=None):
         return r_min * (n * n if primary else 1.0) * draw(st.floats(0.0, 0.01))
 
     banks = tuple(
-        CapacitorBank(draw(st.floats(1e-6, 1e-3)), draw(st.sampled_from([0.0, 1e-3, 5e-3, 0.02, 0.08])),
-                      draw(st.integers(1, 4)))
+        CapacitorBank(
+            draw(st.floats(1e-6, 1e-3)), draw(st.sampled_from([0.0, 1e-3, 5e-3, 0.02, 0.08])), draw(st.integers(1, 4))
+        )
         for _ in range(draw(st.integers(1, 2)))
     )
     stage = Stage(
-        topology=topo, fsw=fsw, inductance=l_h, output_caps=banks, dcr=par(True), r_switch=par(True), rectifier=rect,
-        r_rectifier=par(), diode_drop=draw(st.floats(0.0, 0.8)) if rect == "diode" else 0.0,
-        light_load=ll, turns_ratio=n, buck_max_duty=0.85, boost_min_duty=0.12,
+        topology=topo,
+        fsw=fsw,
+        inductance=l_h,
+        output_caps=banks,
+        dcr=par(True),
+        r_switch=par(True),
+        rectifier=rect,
+        r_rectifier=par(),
+        diode_drop=draw(st.floats(0.0, 0.8)) if rect == "diode" else 0.0,
+        light_load=ll,
+        turns_ratio=n,
+        buck_max_duty=0.85,
+        boost_min_duty=0.12,
     )
     sensing = Sensing(kind="differential") if vout < 0 else Sensing()
     return Design(stage=stage, operating=Operating(vout=vout, vin=vin, load=loads), sensing=sensing)
@@ -119,8 +130,9 @@ def test_ratio_tends_to_ideal_as_parasitics_vanish(topology, seed):
                 assert ratio[k] == pytest.approx(textbook_ratio(topology, res.duty[k], mode=mode), rel=1e-12)
             elif topology == "flyback":
                 ratio[k] = module.ideal_ratio(res.duty[k], design.stage.turns_ratio)
-                assert ratio[k] == pytest.approx(textbook_ratio(topology, res.duty[k], n=design.stage.turns_ratio),
-                                                 rel=1e-12)
+                assert ratio[k] == pytest.approx(
+                    textbook_ratio(topology, res.duty[k], n=design.stage.turns_ratio), rel=1e-12
+                )
             else:
                 ratio[k] = module.ideal_ratio(res.duty[k])
                 assert ratio[k] == pytest.approx(textbook_ratio(topology, res.duty[k]), rel=1e-12)
@@ -159,9 +171,20 @@ def _seeded_design(topology, seed, eps):
     r_min = abs(vout) / i_max
     pars = eps * r_min * rng.uniform(0.0, 0.01, 3) * np.array([n * n, n * n, 1.0])  # primary parts vs n^2 R
     banks = (CapacitorBank(rng.uniform(10e-6, 500e-6), eps * rng.uniform(0, 0.05), 2),)
-    stage = Stage(topology=topology, fsw=fsw, inductance=rng.uniform(0.5, 5) * r_min * n * n / fsw, output_caps=banks,
-                  dcr=pars[0], r_switch=pars[1], rectifier="synchronous", r_rectifier=pars[2],
-                  light_load="forced-ccm", turns_ratio=n, buck_max_duty=0.85, boost_min_duty=0.12)
+    stage = Stage(
+        topology=topology,
+        fsw=fsw,
+        inductance=rng.uniform(0.5, 5) * r_min * n * n / fsw,
+        output_caps=banks,
+        dcr=pars[0],
+        r_switch=pars[1],
+        rectifier="synchronous",
+        r_rectifier=pars[2],
+        light_load="forced-ccm",
+        turns_ratio=n,
+        buck_max_duty=0.85,
+        boost_min_duty=0.12,
+    )
     sensing = Sensing(kind="differential") if vout < 0 else Sensing()
     return Design(stage=stage, operating=Operating(vout=vout, vin=vin, load=(0.3 * i_max, i_max)), sensing=sensing)
 
@@ -224,8 +247,11 @@ def test_sweep_50_vin_by_5_loads_is_one_call(topology):
     """A 50 x 5 sweep is one analyse_stage call returning (250,) arrays, equal to
     single-corner calls (every third corner)."""
     base = _seeded_design(topology, 12345, 1.0)
-    stage = replace(base.stage, rectifier="diode", light_load="dcm", diode_drop=0.4) \
-        if topology != "four-switch-buck-boost" else base.stage
+    stage = (
+        replace(base.stage, rectifier="diode", light_load="dcm", diode_drop=0.4)
+        if topology != "four-switch-buck-boost"
+        else base.stage
+    )
     lo, hi = base.operating.vin
     vin = tuple(np.linspace(lo, hi, 50))
     design = replace(base, stage=stage, operating=replace(base.operating, vin=vin))
@@ -241,8 +267,9 @@ def test_sweep_50_vin_by_5_loads_is_one_call(topology):
     if stage.light_load == "dcm":
         assert res.dcm.any() and (~res.dcm).any(), "the sweep should cross the CCM/DCM boundary"
     for k in range(0, 250, 3):
-        single = analyse_stage(replace(design, operating=Operating(
-            vout=design.operating.vout, vin=(vin[k // 5],), load=(loads[k % 5],))))
+        single = analyse_stage(
+            replace(design, operating=Operating(vout=design.operating.vout, vin=(vin[k // 5],), load=(loads[k % 5],)))
+        )
         assert single.dcm[0] == res.dcm[k] and single.submode[0] == res.submode[k]
         for name in ("duty", "i_l", "ripple_pp", "load_boundary", "gd0"):
             assert getattr(single, name)[0] == pytest.approx(getattr(res, name)[k], rel=1e-12), name

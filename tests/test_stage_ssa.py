@@ -47,12 +47,19 @@ def deviations(design: Design, result=None) -> list[dict]:
         pt = ssa.solve(ssa.params_from_stage(st, mode), vg, vout, io)
         f = _grid(st.fsw)
         ref = ssa.responses(pt, f)
-        row = {"corner": int(k), "duty": (r.duty[k], pt.duty), "i_l": (r.i_l[k], pt.i_l),
-               "ripple": (r.ripple_pp[k], pt.ripple_pp), "y": pt.y}
+        row = {
+            "corner": int(k),
+            "duty": (r.duty[k], pt.duty),
+            "i_l": (r.i_l[k], pt.i_l),
+            "ripple": (r.ripple_pp[k], pt.ripple_pp),
+            "y": pt.y,
+        }
         for name in ("gvd", "gvg", "zout"):
             ratio = getattr(r, name).take(int(k)).response(f)[0] / ref[name]
-            row[name] = (float(np.max(np.abs(20.0 * np.log10(np.abs(ratio))))),
-                         float(np.max(np.abs(np.degrees(np.angle(ratio))))))
+            row[name] = (
+                float(np.max(np.abs(20.0 * np.log10(np.abs(ratio))))),
+                float(np.max(np.abs(np.degrees(np.angle(ratio))))),
+            )
         out.append(row)
     return out
 
@@ -120,7 +127,8 @@ def random_design(rng: np.random.Generator, topology: str, ideal: bool = False) 
     vg = float(np.mean(vin))
     m = abs(vout) / vg * (turns if topology == "flyback" else 1.0)
     d_ideal = {"buck": m, "boost": 1 - 1 / m, "inverting-buck-boost": m / (1 + m), "flyback": m / (1 + m)}.get(
-        topology, min(m, 0.9) if m < 1 else 1 - 1 / m)
+        topology, min(m, 0.9) if m < 1 else 1 - 1 / m
+    )
     i_l = load[0] / (1.0 - d_ideal) if topology != "buck" else load[0]
     i_l = i_l / turns if topology == "flyback" else i_l
     l_h = vg * d_ideal / (fsw * rng.uniform(0.2, 0.8) * max(i_l, 1e-3))
@@ -137,15 +145,24 @@ def random_design(rng: np.random.Generator, topology: str, ideal: bool = False) 
         esr = 0.0 if (ideal or rng.random() < 0.2) else _log_uniform(rng, 1e-3, 0.1)
         banks.append(CapacitorBank(c, esr, int(rng.integers(1, 5))))
     stage = Stage(
-        topology=topology, fsw=fsw, inductance=l_h, output_caps=tuple(banks), dcr=par(), r_switch=par(),
-        rectifier="diode" if diode else "synchronous", r_rectifier=par(),
+        topology=topology,
+        fsw=fsw,
+        inductance=l_h,
+        output_caps=tuple(banks),
+        dcr=par(),
+        r_switch=par(),
+        rectifier="diode" if diode else "synchronous",
+        r_rectifier=par(),
         diode_drop=0.0 if (ideal or not diode) else rng.uniform(0.2, 0.8),
-        light_load="dcm" if diode else "forced-ccm", turns_ratio=turns,
-        buck_max_duty=0.85, boost_min_duty=0.12,
+        light_load="dcm" if diode else "forced-ccm",
+        turns_ratio=turns,
+        buck_max_duty=0.85,
+        boost_min_duty=0.12,
     )
     sensing = Sensing(kind="differential") if vout < 0 else Sensing()
-    return Design(stage=stage, operating=Operating(vout=vout, vin=vin, load=load), sensing=sensing,
-                  title=f"random {topology}")
+    return Design(
+        stage=stage, operating=Operating(vout=vout, vin=vin, load=load), sensing=sensing, title=f"random {topology}"
+    )
 
 
 @pytest.mark.parametrize("topology", TOPOLOGIES)

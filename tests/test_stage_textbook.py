@@ -27,12 +27,34 @@ from loopkit.design import CapacitorBank, Design, Operating, Sensing, Stage
 TWO_PI = 2.0 * np.pi
 
 
-def make_design(topology, vg, vout, r_load, l_h, c_f, fsw=100e3, esr=0.0, dcr=0.0, turns=1.0,
-                rectifier="synchronous", light_load="forced-ccm", vin=None, loads=None, banks=None, **extra):
+def make_design(
+    topology,
+    vg,
+    vout,
+    r_load,
+    l_h,
+    c_f,
+    fsw=100e3,
+    esr=0.0,
+    dcr=0.0,
+    turns=1.0,
+    rectifier="synchronous",
+    light_load="forced-ccm",
+    vin=None,
+    loads=None,
+    banks=None,
+    **extra,
+):
     stage = Stage(
-        topology=topology, fsw=fsw, inductance=l_h,
+        topology=topology,
+        fsw=fsw,
+        inductance=l_h,
         output_caps=tuple(banks) if banks else (CapacitorBank(c_f, esr, 1),),
-        dcr=dcr, rectifier=rectifier, light_load=light_load, turns_ratio=turns, **extra,
+        dcr=dcr,
+        rectifier=rectifier,
+        light_load=light_load,
+        turns_ratio=turns,
+        **extra,
     )
     op = Operating(vout=vout, vin=tuple(vin) if vin else (vg,), load=tuple(loads) if loads else (abs(vout) / r_load,))
     sensing = Sensing(kind="differential") if vout < 0 else Sensing()
@@ -48,16 +70,28 @@ def table_8_2(topology, vg, v, r, l_h, c_f):
     """Ideal-parts salient features, [EM] Table 8.2 (from memory). Frequencies in rad/s."""
     if topology == "buck":
         d = v / vg
-        return dict(d=d, gg0=d, gd0=v / d, w0=1 / np.sqrt(l_h * c_f), q=r * np.sqrt(c_f / l_h), wz=np.inf)
+        return {"d": d, "gg0": d, "gd0": v / d, "w0": 1 / np.sqrt(l_h * c_f), "q": r * np.sqrt(c_f / l_h), "wz": np.inf}
     if topology == "boost":
         dp = vg / v
-        return dict(d=1 - dp, gg0=1 / dp, gd0=v / dp, w0=dp / np.sqrt(l_h * c_f), q=dp * r * np.sqrt(c_f / l_h),
-                    wz=dp**2 * r / l_h)
+        return {
+            "d": 1 - dp,
+            "gg0": 1 / dp,
+            "gd0": v / dp,
+            "w0": dp / np.sqrt(l_h * c_f),
+            "q": dp * r * np.sqrt(c_f / l_h),
+            "wz": dp**2 * r / l_h,
+        }
     # buck-boost: V = -D Vg / D'
     d = -v / (vg - v)
     dp = 1 - d
-    return dict(d=d, gg0=-d / dp, gd0=v / (d * dp), w0=dp / np.sqrt(l_h * c_f), q=dp * r * np.sqrt(c_f / l_h),
-                wz=dp**2 * r / (d * l_h))
+    return {
+        "d": d,
+        "gg0": -d / dp,
+        "gd0": v / (d * dp),
+        "w0": dp / np.sqrt(l_h * c_f),
+        "q": dp * r * np.sqrt(c_f / l_h),
+        "wz": dp**2 * r / (d * l_h),
+    }
 
 
 TABLE_CASES = [
@@ -151,8 +185,7 @@ def test_boost_rhp_zero_with_dcr(dcr):
     z = res.gvd.zeros_hz()[0]
     assert np.any(np.isclose(z, expected, rtol=1e-9)), z
     # it moves down as the load rises and as Vin falls ([EM] Table 8.2: D'^2 R / L)
-    res2 = analyse_stage(make_design("boost", vg, v, r, l_h, 47e-6, 300e3, dcr=dcr, vin=(4.0, 5.0),
-                                     loads=(0.5, 1.0)))
+    res2 = analyse_stage(make_design("boost", vg, v, r, l_h, 47e-6, 300e3, dcr=dcr, vin=(4.0, 5.0), loads=(0.5, 1.0)))
     rhp = res2.f_rhp_hz.reshape(2, 2)
     assert rhp[0, 1] < rhp[0, 0] and rhp[1, 1] < rhp[1, 0]  # heavier load -> lower
     assert rhp[0, 0] < rhp[1, 0] and rhp[0, 1] < rhp[1, 1]  # lower Vin -> lower
@@ -185,11 +218,23 @@ def test_flyback_is_buck_boost_referred_through_n(n):
     Rr' = n^2 Rr, VD' = n VD; then Gvd = -Gvd'/n, Gvg = -Gvg'/n, Zout = Zout'/n^2.
     (Primary DCR set to 0: it conducts in D Ts only, the buck-boost inductor in both.)"""
     vg, v, io, lm, c, esr, ron, rr, vd = 48.0, 12.0, 2.0, 150e-6, 300e-6, 5e-3, 0.06, 0.015, 0.5
-    common = dict(fsw=250e3, rectifier="diode", light_load="dcm")
-    fly = make_design("flyback", vg, v, v / io, lm, c, esr=esr, turns=n, r_switch=ron, r_rectifier=rr,
-                      diode_drop=vd, **common)
-    bb = make_design("inverting-buck-boost", vg, -n * v, n * n * v / io, lm, c / n**2, esr=n * n * esr,
-                     r_switch=ron, r_rectifier=n * n * rr, diode_drop=n * vd, **common)
+    common = {"fsw": 250e3, "rectifier": "diode", "light_load": "dcm"}
+    fly = make_design(
+        "flyback", vg, v, v / io, lm, c, esr=esr, turns=n, r_switch=ron, r_rectifier=rr, diode_drop=vd, **common
+    )
+    bb = make_design(
+        "inverting-buck-boost",
+        vg,
+        -n * v,
+        n * n * v / io,
+        lm,
+        c / n**2,
+        esr=n * n * esr,
+        r_switch=ron,
+        r_rectifier=n * n * rr,
+        diode_drop=n * vd,
+        **common,
+    )
     rf, rb = analyse_stage(fly), analyse_stage(bb)
     assert not rf.dcm[0] and not rb.dcm[0]
     assert rf.duty[0] == pytest.approx(rb.duty[0], rel=1e-12)
@@ -238,8 +283,7 @@ DCM_CASES = [
 @pytest.mark.parametrize("case", DCM_CASES, ids=[f"{c[0]}-{c[1]:g}V-{c[2]:g}V" for c in DCM_CASES])
 def test_dcm_reduced_order_chapter_11(case):
     topology, vg, v, r, l_h, c_f, fsw = case
-    res = analyse_stage(make_design(topology, vg, v, r, l_h, c_f, fsw, rectifier="diode", light_load="dcm",
-                                    turns=2.0))
+    res = analyse_stage(make_design(topology, vg, v, r, l_h, c_f, fsw, rectifier="diode", light_load="dcm", turns=2.0))
     ts = 1 / fsw
     k = 2 * l_h / (r * ts)
     d = res.duty[0]
@@ -256,8 +300,12 @@ def test_dcm_reduced_order_chapter_11(case):
     # [S01] / [EM] 11.3 (from memory): high-frequency pole f2 = fs / (pi D2), D2 from the
     # volt-second balance of the inductor (buck: D (Vg - V)/V; boost: D Vg/(V - Vg);
     # buck-boost: D Vg/|V|; flyback: D Vg/(n V))
-    d2 = {"buck": d * (vg - v) / v, "boost": d * vg / (v - vg), "inverting-buck-boost": d * vg / abs(v),
-          "flyback": d * vg / (2.0 * v)}[topology]
+    d2 = {
+        "buck": d * (vg - v) / v,
+        "boost": d * vg / (v - vg),
+        "inverting-buck-boost": d * vg / abs(v),
+        "flyback": d * vg / (2.0 * v),
+    }[topology]
     assert res.f_hf_hz[0] == pytest.approx(fsw / (np.pi * d2), rel=1e-9)
     assert d + d2 < 1
     # inductor peak current and average ([EM] ch. 5): ipk = (on-interval voltage) D Ts / L
@@ -269,8 +317,11 @@ def test_dcm_reduced_order_chapter_11(case):
 def test_ccm_dcm_boundary_kcrit(topology):
     """[EM] ch. 5: DCM when K < Kcrit(D); at K = Kcrit the DCM M equals the CCM M, so the
     duty is continuous across the boundary load."""
-    vg, v, l_h, c_f, fsw = {"buck": (12.0, 5.0, 4.7e-6, 47e-6, 300e3), "boost": (5.0, 12.0, 4.7e-6, 22e-6, 300e3),
-                            "inverting-buck-boost": (12.0, -15.0, 10e-6, 22e-6, 300e3)}[topology]
+    vg, v, l_h, c_f, fsw = {
+        "buck": (12.0, 5.0, 4.7e-6, 47e-6, 300e3),
+        "boost": (5.0, 12.0, 4.7e-6, 22e-6, 300e3),
+        "inverting-buck-boost": (12.0, -15.0, 10e-6, 22e-6, 300e3),
+    }[topology]
     table_topo = "buck-boost" if topology == "inverting-buck-boost" else topology
     d_ccm = table_8_2(topology, vg, v, 1.0, l_h, c_f)["d"]
     ts = 1 / fsw
@@ -280,8 +331,20 @@ def test_ccm_dcm_boundary_kcrit(topology):
     m_dcm = dcm_table(table_topo, d_ccm, kcrit(table_topo, d_ccm), abs(v), r_crit, c_f)[0]
     assert m_dcm == pytest.approx(abs(v) / vg, rel=1e-12)
     eps = 1e-4
-    res = analyse_stage(make_design(topology, vg, v, 1.0, l_h, c_f, fsw, rectifier="diode", light_load="dcm",
-                                    loads=(i_crit * (1 - eps), i_crit * (1 + eps))))
+    res = analyse_stage(
+        make_design(
+            topology,
+            vg,
+            v,
+            1.0,
+            l_h,
+            c_f,
+            fsw,
+            rectifier="diode",
+            light_load="dcm",
+            loads=(i_crit * (1 - eps), i_crit * (1 + eps)),
+        )
+    )
     np.testing.assert_allclose(res.load_boundary, i_crit, rtol=1e-12)
     assert list(res.dcm) == [True, False]
     assert res.duty[0] == pytest.approx(d_ccm, rel=10 * eps)

@@ -12,7 +12,7 @@ from types import ModuleType
 
 from . import boost, buck, flyback, four_switch, inverting_buck_boost
 
-__all__ = ["TOPOLOGY_MODULES", "topology_module", "groups"]
+__all__ = ["TOPOLOGY_MODULES", "groups", "topology_module"]
 
 TOPOLOGY_MODULES: dict[str, ModuleType] = {
     "buck": buck,

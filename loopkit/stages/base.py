@@ -45,15 +45,15 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..design import Stage
-from ..rational import Rational, TWO_PI, poly_roots_inverse
+from ..rational import TWO_PI, Rational, poly_roots_inverse
 
 __all__ = [
     "CcmPoint",
     "DcmPoint",
-    "output_admittance",
-    "pulsed_esr_resistance",
     "ccm_transfer_functions",
     "dcm_transfer_functions",
+    "output_admittance",
+    "pulsed_esr_resistance",
     "solve_quadratic_dprime",
 ]
 

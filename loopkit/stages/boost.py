@@ -45,9 +45,17 @@ def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
     i_l = io / dp
     n = vg.shape[0]
     return CcmPoint(
-        duty=duty, i_l=i_l, ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
-        out_per_il=dp, l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr + duty * dp * rp,
-        a_g=np.ones(n), a_v=-dp, b_i=dp, b_d=-i_l, e=v + vd - i_l * (ron - rr) - (1.0 - 2.0 * duty) * rp * i_l,
+        duty=duty,
+        i_l=i_l,
+        ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
+        out_per_il=dp,
+        l_h=np.full(n, stage.inductance),
+        r_series=rl + duty * ron + dp * rr + duty * dp * rp,
+        a_g=np.ones(n),
+        a_v=-dp,
+        b_i=dp,
+        b_d=-i_l,
+        e=v + vd - i_l * (ron - rr) - (1.0 - 2.0 * duty) * rp * i_l,
     )
 
 
@@ -59,7 +67,11 @@ def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
     duty = np.sqrt(2.0 * lh * io * (v1 - vg) / (ts * vg**2))
     re = 2.0 * lh / (duty**2 * ts)
     return DcmPoint(
-        duty=duty, d2=duty * vg / (v1 - vg), i_peak=vg * duty * ts / lh,
-        j2=2.0 * io / duty, g2=vg * (2.0 * v1 - vg) / (re * (v1 - vg) ** 2),
-        r2=re * ((v1 - vg) / vg) ** 2, sign=1.0,
+        duty=duty,
+        d2=duty * vg / (v1 - vg),
+        i_peak=vg * duty * ts / lh,
+        j2=2.0 * io / duty,
+        g2=vg * (2.0 * v1 - vg) / (re * (v1 - vg) ** 2),
+        r2=re * ((v1 - vg) / vg) ** 2,
+        sign=1.0,
     )

@@ -44,9 +44,16 @@ def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
     ripple = (vg - i_l * (ron + rl) - v) * duty / (stage.inductance * stage.fsw)
     n = vg.shape[0]
     return CcmPoint(
-        duty=duty, i_l=i_l, ripple=ripple, out_per_il=np.ones(n),
-        l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr,
-        a_g=duty, a_v=-np.ones(n), b_i=np.ones(n), b_d=np.zeros(n),
+        duty=duty,
+        i_l=i_l,
+        ripple=ripple,
+        out_per_il=np.ones(n),
+        l_h=np.full(n, stage.inductance),
+        r_series=rl + duty * ron + dp * rr,
+        a_g=duty,
+        a_v=-np.ones(n),
+        b_i=np.ones(n),
+        b_d=np.zeros(n),
         e=vg - i_l * (ron - rr) + vd,
     )
 
@@ -59,6 +66,11 @@ def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
     duty = np.sqrt(2.0 * lh * io * v1 / (ts * vg1 * (vg1 - v1)))
     re = 2.0 * lh / (duty**2 * ts)
     return DcmPoint(
-        duty=duty, d2=duty * (vg1 - v1) / v1, i_peak=(vg1 - v1) * duty * ts / lh,
-        j2=2.0 * io / duty, g2=(2.0 * vg1 - v1) / (re * v1), r2=re * (v1 / vg1) ** 2, sign=1.0,
+        duty=duty,
+        d2=duty * (vg1 - v1) / v1,
+        i_peak=(vg1 - v1) * duty * ts / lh,
+        j2=2.0 * io / duty,
+        g2=(2.0 * vg1 - v1) / (re * v1),
+        r2=re * (v1 / vg1) ** 2,
+        sign=1.0,
     )

@@ -52,10 +52,16 @@ def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
     i_l = io / (n_t * dp)
     n = vg.shape[0]
     return CcmPoint(
-        duty=duty, i_l=i_l, ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
-        out_per_il=n_t * dp, l_h=np.full(n, stage.inductance),
+        duty=duty,
+        i_l=i_l,
+        ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
+        out_per_il=n_t * dp,
+        l_h=np.full(n, stage.inductance),
         r_series=duty * (ron + rl) + dp * n_t**2 * rr + duty * dp * n_t**2 * rp,
-        a_g=duty, a_v=-n_t * dp, b_i=n_t * dp, b_d=-n_t * i_l,
+        a_g=duty,
+        a_v=-n_t * dp,
+        b_i=n_t * dp,
+        b_d=-n_t * i_l,
         e=vg + n_t * (v + vd) - i_l * (ron + rl - n_t**2 * rr) - (1.0 - 2.0 * duty) * n_t**2 * rp * i_l,
     )
 
@@ -63,5 +69,4 @@ def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
 def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
     vg = np.asarray(vin, float)
     v1 = float(vout) + stage.vf
-    return energy_dcm(vg, v1, np.asarray(load, float), stage.inductance, 1.0 / stage.fsw,
-                      vg / (stage.turns_ratio * v1))
+    return energy_dcm(vg, v1, np.asarray(load, float), stage.inductance, 1.0 / stage.fsw, vg / (stage.turns_ratio * v1))

@@ -27,7 +27,7 @@ import numpy as np
 from ..design import Stage
 from . import boost, buck
 
-__all__ = ["split", "ideal_ratio", "range_problem", "buck_mode"]
+__all__ = ["buck_mode", "ideal_ratio", "range_problem", "split"]
 
 
 def ideal_ratio(duty, mode="buck"):

@@ -45,9 +45,17 @@ def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
     i_l = io / dp
     n = vg.shape[0]
     return CcmPoint(
-        duty=duty, i_l=i_l, ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
-        out_per_il=dp, l_h=np.full(n, stage.inductance), r_series=rl + duty * ron + dp * rr + duty * dp * rp,
-        a_g=duty, a_v=dp, b_i=-dp, b_d=i_l, e=vg + vm + vd - i_l * (ron - rr) - (1.0 - 2.0 * duty) * rp * i_l,
+        duty=duty,
+        i_l=i_l,
+        ripple=(vg - i_l * (ron + rl)) * duty / (stage.inductance * stage.fsw),
+        out_per_il=dp,
+        l_h=np.full(n, stage.inductance),
+        r_series=rl + duty * ron + dp * rr + duty * dp * rp,
+        a_g=duty,
+        a_v=dp,
+        b_i=-dp,
+        b_d=i_l,
+        e=vg + vm + vd - i_l * (ron - rr) - (1.0 - 2.0 * duty) * rp * i_l,
     )
 
 
@@ -56,8 +64,13 @@ def energy_dcm(vg, v1, io, lh, ts, d2_per_d) -> DcmPoint:
     duty = np.sqrt(2.0 * lh * io * v1 / (ts * vg**2))
     re = 2.0 * lh / (duty**2 * ts)
     return DcmPoint(
-        duty=duty, d2=duty * d2_per_d, i_peak=vg * duty * ts / lh,
-        j2=2.0 * io / duty, g2=2.0 * vg / (re * v1), r2=re * (v1 / vg) ** 2, sign=1.0,
+        duty=duty,
+        d2=duty * d2_per_d,
+        i_peak=vg * duty * ts / lh,
+        j2=2.0 * io / duty,
+        g2=2.0 * vg / (re * v1),
+        r2=re * (v1 / vg) ** 2,
+        sign=1.0,
     )
 
 

@@ -78,7 +78,8 @@ def test_plant_response_250_corners_vs_python_control(benchmark, sample):
     t_fr = _median_s(control_frequency_response, repeat)
     t_ev = _median_s(control_tf_eval, repeat)
     info = {
-        "corners": stage.n_corners, "frequencies": N_F,
+        "corners": stage.n_corners,
+        "frequencies": N_F,
         "loopkit_median_ms": 1e3 * t_ours,
         "control_frequency_response_median_ms": 1e3 * t_fr,
         "control_tf_eval_median_ms": 1e3 * t_ev,

@@ -75,7 +75,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import brentq
 
-__all__ = ["SsaParams", "SsaPoint", "params_from_stage", "four_switch_mode", "solve", "responses"]
+__all__ = ["SsaParams", "SsaPoint", "four_switch_mode", "params_from_stage", "responses", "solve"]
 
 _TOPOLOGIES = ("buck", "boost", "inverting-buck-boost", "flyback", "four-switch-buck", "four-switch-boost")
 
@@ -119,8 +119,15 @@ def params_from_stage(stage, mode: str = "") -> SsaParams:
     # a bank of `count` parts in parallel: C times count, ESR over count
     banks = tuple((b.capacitance * b.count, b.esr / b.count) for b in stage.output_caps)
     return SsaParams(
-        topology=topo, fsw_hz=stage.fsw, l_h=stage.inductance, dcr=stage.dcr, r_on=stage.r_switch,
-        r_rect=stage.r_rectifier, vd=stage.diode_drop if diode else 0.0, diode=diode, banks=banks,
+        topology=topo,
+        fsw_hz=stage.fsw,
+        l_h=stage.inductance,
+        dcr=stage.dcr,
+        r_on=stage.r_switch,
+        r_rect=stage.r_rectifier,
+        vd=stage.diode_drop if diode else 0.0,
+        diode=diode,
+        banks=banks,
         turns_ratio=stage.turns_ratio,
     )
 
@@ -142,8 +149,7 @@ def _intervals(p: SsaParams):
         return (1.0, 0.0, 0.0, ron + rl, 0.0), (0.0, -n, -n, n * n * rr, n)
     if t == "four-switch-buck":
         always_vd = -1.0 if p.diode else 0.0  # D4 conducts in both intervals
-        return ((1.0, -1.0, always_vd, ron + rl + rr, 1.0),
-                (0.0, -1.0, -1.0 + always_vd, rr + rl + rr, 1.0))
+        return ((1.0, -1.0, always_vd, ron + rl + rr, 1.0), (0.0, -1.0, -1.0 + always_vd, rr + rl + rr, 1.0))
     # four-switch boost mode: Q1 (Ron) always on
     return (1.0, 0.0, 0.0, ron + rl + ron, 0.0), (1.0, -1.0, -1.0, ron + rl + rr, 1.0)
 
@@ -217,7 +223,7 @@ def _dc_output(m1, m2, u, duties):
     c = duties[:, None, None] * m1[2] + (1 - duties)[:, None, None] * m2[2]
     e = duties[:, None, None] * m1[3] + (1 - duties)[:, None, None] * m2[3]
     x = -np.linalg.solve(a, (b @ u)[..., None])
-    return ((c @ x)[..., 0, 0] + (e @ u)[..., 0])
+    return (c @ x)[..., 0, 0] + (e @ u)[..., 0]
 
 
 def solve(p: SsaParams, vg: float, vout: float, load: float) -> SsaPoint:
@@ -265,7 +271,7 @@ def responses(pt: SsaPoint, f_hz) -> dict[str, np.ndarray]:
     si_a = s[:, None, None] * np.eye(nx)[None] - a[None]
     rhs = np.stack([f_vec, b[:, 0], b[:, 2]], axis=1).astype(complex)  # (nx, 3)
     sol = np.linalg.solve(si_a, np.broadcast_to(rhs, (s.size,) + rhs.shape))
-    y = (c[0] @ sol)  # (nf, 3)
+    y = c[0] @ sol  # (nf, 3)
     return {"gvd": y[:, 0] + g_vec, "gvg": y[:, 1] + e[0, 0], "zout": y[:, 2] + e[0, 2]}
 
 
