@@ -403,8 +403,10 @@ def _cmd_bode(args) -> int:
     _write_text(args.csv, text)
     what = " + ".join(kinds)
     print(
-        f"wrote {args.csv}: {what}, {len(curves)} column sets x {f_hz.size} frequencies "
-        f"({_fmt(f_hz[0], 'Hz')} to {_fmt(f_hz[-1], 'Hz')})"
+        wrap_note(
+            f"wrote {args.csv}: {what}, {len(curves)} column sets x {f_hz.size} frequencies "
+            f"({_fmt(f_hz[0], 'Hz')} to {_fmt(f_hz[-1], 'Hz')})"
+        )
     )
     print(CAUTION)
     return 0
@@ -528,7 +530,7 @@ def _cmd_export(args) -> int:
         if path:
             _write_text(path, writer(result))
             written.append(path)
-    print(f"wrote {', '.join(written)}")
+    print(wrap_note(f"wrote {', '.join(written)}"))
     print(CAUTION)
     return 0
 

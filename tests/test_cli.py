@@ -112,7 +112,7 @@ def test_bode_plant_csv_header_shape_and_values(capsys, sample_path, tmp_path):
         capsys, "bode", sample_path, "--plant", "--csv", out_csv, "--points", 200, "--fmin", "20", "--fmax", "200k"
     )
     assert code == 0 and err == ""
-    assert CAUTION in out
+    assert CAUTION in out and max(len(line) for line in out.splitlines()) <= 80
     header, data = _read_csv(out_csv.read_text())
     stage = analyse_stage(load_design(sample_path))
     n = stage.n_corners
@@ -392,7 +392,7 @@ def test_export_writes_the_files(capsys, tmp_path):
     result = _loop(BUCK)
     bom, cir, js, svg = tmp_path / "bom.csv", tmp_path / "net.cir", tmp_path / "res.json", tmp_path / "net.svg"
     code, out, _ = run(capsys, "export", BUCK, "--bom", bom, "--spice", cir, "--json", js, "--svg", svg)
-    assert code == 0 and CAUTION in out
+    assert code == 0 and CAUTION in out and max(len(line) for line in out.splitlines()) <= 80
     assert bom.read_text() == export.bom_csv(result)
     assert cir.read_text() == export.spice_netlist(result)
     assert js.read_text() == export.results_json(result)
