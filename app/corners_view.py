@@ -27,9 +27,17 @@ from loopkit import format_value
 
 __all__ = ["COLUMNS", "CornersView", "fc_text", "gm_text", "pm_text"]
 
-COLUMNS = ("Vin", "Load", "Mode", "fc", "PM", "GM")
+COLUMNS = ("Vin (V)", "Load (A)", "Mode", "fc (Hz)", "PM (°)", "GM (dB)")
 _WORST_BG = QColor("#fff1c9")
 _BAD_FG = QColor("#b02a00")
+
+
+def cell_texts(vin, load, fc_hz, pm_deg, gm_db) -> tuple[str, str, str, str, str]:
+    """The table's numbers: units are in the column headings."""
+    gm = "∞" if math.isinf(gm_db) and gm_db > 0 else (f"{gm_db:.1f}" if math.isfinite(gm_db) else "—")
+    return (format_value(vin, digits=4), format_value(load, digits=3),
+            format_value(fc_hz, digits=3) if math.isfinite(fc_hz) else "none",
+            f"{pm_deg:.1f}" if math.isfinite(pm_deg) else "—", gm)
 
 
 def fc_text(fc_hz: float) -> str:
@@ -72,6 +80,8 @@ class CornersView(QWidget):
         self.table.setSelectionMode(QAbstractItemView.ExtendedSelection)
         self.table.horizontalHeader().setSectionResizeMode(QHeaderView.Stretch)
         self.table.horizontalHeader().setMinimumSectionSize(36)
+        self.table.horizontalHeader().setSectionResizeMode(2, QHeaderView.ResizeToContents)
+        self.table.setToolTip("Mode: CCM or DCM; a four-switch stage shows buck, boost or trans(ition band)")
         self.table.verticalHeader().setDefaultSectionSize(20)
         self.table.itemSelectionChanged.connect(self._on_table_selection_changed)
         tl.addWidget(self.table)
@@ -139,13 +149,16 @@ class CornersView(QWidget):
         with QSignalBlocker(self.table):
             for k in range(n):
                 mode = str(modes[k])
-                if stage.submode[k]:
-                    mode = f"{mode} {stage.submode[k]}"
-                cells = [format_value(stage.vin[k], "V"), format_value(stage.load[k], "A"), mode]
+                if stage.submode[k]:  # four-switch: which mode runs, and DCM if so
+                    sub = {"transition": "trans."}.get(stage.submode[k], stage.submode[k])
+                    mode = sub if mode == "CCM" else f"{mode} {sub}"
                 if m is None:
-                    cells += ["—", "—", "—"]
+                    vin, load = cell_texts(stage.vin[k], stage.load[k], math.nan, math.nan, math.nan)[:2]
+                    cells = [vin, load, mode, "—", "—", "—"]
                 else:
-                    cells += [fc_text(float(m.fc_hz[k])), pm_text(float(m.pm_deg[k])), gm_text(float(m.gm_db[k]))]
+                    vin, load, fc, pm, gm = cell_texts(stage.vin[k], stage.load[k], float(m.fc_hz[k]),
+                                                       float(m.pm_deg[k]), float(m.gm_db[k]))
+                    cells = [vin, load, mode, fc, pm, gm]
                 is_worst = k == worst
                 restyle = k in (worst, self._worst_row) and worst != self._worst_row
                 for c, text in enumerate(cells):
@@ -176,12 +189,10 @@ class CornersView(QWidget):
             self.findings.clear()
             order = sorted(findings, key=lambda f: (f.severity != "warning", f.corner is not None))
             for f in order:
-                mark = "⚠" if f.severity == "warning" else "ⓘ"
-                item = QListWidgetItem(f"{mark} {f.message}")
+                item = QListWidgetItem(f"⚠ {f.message}" if f.severity == "warning" else f"Note: {f.message}")
                 item.setData(Qt.UserRole, -1 if f.corner is None else int(f.corner))
                 item.setToolTip(f"{f.code}: {f.message}")
-                if f.severity == "warning":
-                    item.setForeground(QBrush(QColor("#8a3b00")))
+                item.setForeground(QBrush(QColor("#8a3b00" if f.severity == "warning" else "#555555")))
                 self.findings.addItem(item)
             if not findings:
                 self.findings.addItem(QListWidgetItem("No warnings."))

@@ -84,19 +84,26 @@ class ValueEdit(QLineEdit, _Keyed):
 
     edited = Signal(str, object)
 
-    def __init__(self, key: str, unit: str = "", parent=None, plain: bool = False):
+    def __init__(self, key: str, unit: str = "", parent=None, plain: bool = False, zero_text: str = ""):
         super().__init__(parent)
         self.key = key
         self.unit = unit
         self.plain = plain
+        self.zero_text = zero_text
         self.value_shown = None
         self._shown = ""
         self.setObjectName(key)
         self.setMinimumWidth(56)
+        if zero_text:
+            self.setPlaceholderText(zero_text)
         self.editingFinished.connect(self._on_editing_finished)
 
     def set_value(self, value: float) -> None:
-        """Show ``value`` (SI) and clear any mark."""
+        """Show ``value`` (SI) and clear any mark; 0 shows as empty where ``zero_text`` names its meaning."""
+        if value == 0 and self.zero_text:
+            self.clear_value()
+            self.value_shown = value
+            return
         self.value_shown = value
         self._shown = plain_text(value) if self.plain else exact_text(value, self.unit)
         self.setText(self._shown)
@@ -114,6 +121,8 @@ class ValueEdit(QLineEdit, _Keyed):
         text = self.text().strip()
         if text == self._shown and not self.invalid:
             return
+        if not text and self.zero_text:
+            text = "0"
         self.edited.emit(self.key, text)
 
 

@@ -71,6 +71,13 @@ class DesignForm(QScrollArea):
         self._layout.setContentsMargins(6, 6, 6, 6)
         self._layout.setSpacing(8)
         self.setWidget(body)
+        self.error_strip = QLabel()
+        self.error_strip.setObjectName("form_error")
+        self.error_strip.setWordWrap(True)
+        self.error_strip.setStyleSheet("background: #fdecea; color: #8a1c0c; border: 1px solid #e6a39a;"
+                                       " border-radius: 3px; padding: 4px;")
+        self.error_strip.setVisible(False)
+        self._layout.addWidget(self.error_strip)
         self._build()
         self._layout.addStretch(1)
         model.design_changed.connect(self._on_design_changed)
@@ -99,8 +106,9 @@ class DesignForm(QScrollArea):
         widget.edited.connect(self._on_widget_edited)
         form.addRow(label, widget)
 
-    def _value(self, form, key: str, label: str, unit: str, help_text: str = "", plain: bool = False) -> ValueEdit:
-        w = ValueEdit(key, unit, plain=plain)
+    def _value(self, form, key: str, label: str, unit: str, help_text: str = "", plain: bool = False,
+               zero_text: str = "") -> ValueEdit:
+        w = ValueEdit(key, unit, plain=plain, zero_text=zero_text)
         self._add(form, label, w, f"{help_text}\n{_NOTATION}".strip())
         return w
 
@@ -124,9 +132,10 @@ class DesignForm(QScrollArea):
         self._value(f, "stage.r_rectifier", "Rectifier resistance", "Ω",
                     "On-resistance of the synchronous switch, or the diode's series resistance")
         self._value(f, "stage.diode_drop", "Diode forward drop", "V")
-        self._add(f, "Light load", ChoiceBox("stage.light_load", [("Enters DCM", "dcm"),
+        self._add(f, "Light load", ChoiceBox("stage.light_load", [("Automatic", ""), ("Enters DCM", "dcm"),
                                                                    ("Forced CCM", "forced-ccm")]),
-                  "Whether the inductor current may stop at zero at light load")
+                  "Whether the inductor current may stop at zero at light load.\nAutomatic: DCM with a diode, "
+                  "forced CCM with a synchronous switch")
         self._value(f, "stage.turns_ratio", "Turns ratio Np/Ns", "", plain=True)
         self._value(f, "stage.buck_max_duty", "Buck mode up to duty", "", plain=True)
         self._value(f, "stage.boost_min_duty", "Boost mode from duty", "", plain=True)
@@ -184,9 +193,9 @@ class DesignForm(QScrollArea):
         self._add(f, "Sensing", ChoiceBox("sensing.kind", [("Resistor divider", "divider"),
                                                             ("Differential amplifier", "differential")]))
         self._value(f, "sensing.reference", "Reference voltage", "V")
-        self._value(f, "sensing.r_top", "Top resistor R1", "Ω", "0 = chosen by the synthesis")
+        self._value(f, "sensing.r_top", "Top resistor R1", "Ω", "Empty: set by the divider current", zero_text="from divider current")
         self._value(f, "sensing.divider_current", "Divider current", "A")
-        self._value(f, "sensing.diff_bandwidth", "Diff. amp bandwidth", "Hz", "0 = ideal")
+        self._value(f, "sensing.diff_bandwidth", "Diff. amp bandwidth", "Hz", "Empty: ideal", zero_text="ideal")
         self._value(f, "modulator.ramp", "Ramp (peak-peak)", "V")
         self._value(f, "modulator.max_duty", "Maximum duty", "", plain=True)
         self._add(f, "", FlagBox("modulator.feedforward", "Vin feed-forward"))
@@ -194,10 +203,11 @@ class DesignForm(QScrollArea):
         f = self._group("Compensator")
         self._add(f, "Design at", ChoiceBox("compensator.design_corner", [("Worst corner", None)]),
                   "The corner the synthesis places poles and zeros for")
-        self._value(f, "compensator.opamp.gain_db", "Op-amp gain (dB)", "", "0 = ideal", plain=True)
-        self._value(f, "compensator.opamp.gbw", "Op-amp GBW", "Hz", "0 = ideal")
+        self._value(f, "compensator.opamp.gain_db", "Op-amp gain (dB)", "", "Empty: ideal", plain=True,
+                    zero_text="ideal")
+        self._value(f, "compensator.opamp.gbw", "Op-amp GBW", "Hz", "Empty: ideal", zero_text="ideal")
         self._value(f, "compensator.opamp.gm", "Amplifier gm", "S")
-        self._value(f, "compensator.opamp.r_out", "Amplifier Ro", "Ω", "0 = infinite")
+        self._value(f, "compensator.opamp.r_out", "Amplifier Ro", "Ω", "Empty: infinite", zero_text="infinite")
         self._value(f, "compensator.opto.ctr", "Optocoupler CTR", "", "Current-transfer ratio (1 = 100 %)", plain=True)
         self._value(f, "compensator.opto.r_pull", "Pull-up resistor", "Ω")
         self._value(f, "compensator.opto.r_led", "LED resistor", "Ω")
@@ -217,6 +227,9 @@ class DesignForm(QScrollArea):
             row = self._cap_rows.pop()
             for w in row:
                 self._widgets.pop(getattr(w, "key", None), None)
+                self._caps_grid.removeWidget(w)
+                w.hide()
+                w.setParent(None)
                 w.deleteLater()
         while len(self._cap_rows) < n:
             i = len(self._cap_rows)
@@ -255,6 +268,7 @@ class DesignForm(QScrollArea):
         st, op, se, mo, co = design.stage, design.operating, design.sensing, design.modulator, design.compensator
         with QSignalBlocker(self._title):
             self._title.setText(design.title)
+            self._title.setCursorPosition(0)
         values = {
             "stage.fsw": st.fsw, "stage.inductance": st.inductance, "stage.dcr": st.dcr,
             "stage.r_switch": st.r_switch, "stage.r_rectifier": st.r_rectifier, "stage.diode_drop": st.diode_drop,
@@ -295,6 +309,8 @@ class DesignForm(QScrollArea):
             w = self._widgets[key]
             with QSignalBlocker(w):
                 w.set_choice(value)
+        auto = self._widgets["stage.light_load"]
+        auto.setItemText(0, "Automatic (enters DCM)" if st.light_load_mode == "dcm" else "Automatic (forced CCM)")
         w = self._widgets["modulator.feedforward"]
         with QSignalBlocker(w):
             w.set_flag(mo.feedforward)
@@ -324,6 +340,7 @@ class DesignForm(QScrollArea):
         self._set_row_visible("sensing.diff_bandwidth", se.kind == "differential")
         self._set_row_visible("sensing.divider_current", se.kind == "divider")
         self._targets_key = None
+        self._show_error()
         self._update_parts_note()
 
     def _on_targets_changed(self, targets) -> None:
@@ -373,11 +390,22 @@ class DesignForm(QScrollArea):
         """Show the amplifier rows ``network`` needs (also before it is accepted, to fill them in)."""
         self._network_rows(network)
 
+    def _show_error(self) -> None:
+        """The strip above the form lists the fields that hold a rejected value."""
+        bad = [w for w in self._widgets.values() if w.invalid]
+        if not bad:
+            self.error_strip.setVisible(False)
+            return
+        lines = [f"<b>{self._labels.get(w.key, w.key)}</b>: {w.toolTip()}" for w in bad]
+        self.error_strip.setText("<br>".join(lines) + "<br><i>Not applied: the last valid design is in use.</i>")
+        self.error_strip.setVisible(True)
+
     def _on_field_invalid(self, field: str, message: str) -> None:
         w = self.widget_for(field)
         if w is None:
             return
         w.mark_invalid(message)
+        self._show_error()
         self.ensureWidgetVisible(w)
         self.message.emit(message)
 
@@ -385,6 +413,7 @@ class DesignForm(QScrollArea):
         w = self.widget_for(field)
         if w is not None:
             w.mark_valid()
+        self._show_error()
 
     # ------------------------------------------------------------------ widgets -> model
     def _on_widget_edited(self, key: str, value) -> None:

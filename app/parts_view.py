@@ -15,7 +15,9 @@ from PySide6.QtSvgWidgets import QSvgWidget
 from PySide6.QtWidgets import (
     QAbstractItemView,
     QComboBox,
+    QDialog,
     QGridLayout,
+    QHBoxLayout,
     QHeaderView,
     QLabel,
     QPushButton,
@@ -38,12 +40,6 @@ def _unit(designator: str) -> str:
     return "Ω" if designator.startswith("R") else "F" if designator.startswith("C") else ""
 
 
-def _order(name: str):
-    letters = "".join(ch for ch in name if not ch.isdigit())
-    digits = "".join(ch for ch in name if ch.isdigit())
-    return (letters, int(digits) if digits else 0)
-
-
 def parts_text(result) -> str:
     """The parts as plain text (for the clipboard): one line per part, snapped and computed values."""
     if result is None or not result.feasible:
@@ -51,7 +47,7 @@ def parts_text(result) -> str:
     t = result.targets
     lines = [(f"{result.design.title or 'design'}: {result.network} network, resistors {t.resistor_series}, "
               f"capacitors {t.capacitor_series}")]
-    for name in sorted(result.parts, key=_order):
+    for name in result.parts:
         u = _unit(name)
         exact = result.parts_exact.get(name, result.parts[name])
         lines.append(f"{name:6s} {format_value(result.parts[name], u, digits=4):>10s}   "
@@ -141,7 +137,6 @@ class PartsView(QWidget):
         self.table.horizontalHeader().setSectionResizeMode(QHeaderView.Stretch)
         self.table.verticalHeader().setDefaultSectionSize(20)
         self.table.setSizePolicy(QSizePolicy.Expanding, QSizePolicy.Preferred)
-        self.table.setMinimumHeight(130)
         layout.addWidget(self.table)
         self.roots = QLabel()
         self.roots.setObjectName("roots")
@@ -159,9 +154,17 @@ class PartsView(QWidget):
         self.drawing.renderer().setAspectRatioMode(Qt.KeepAspectRatio)
         self.drawing.setStyleSheet("background: white;")
         layout.addWidget(self.drawing, 1)
+        note_row = QHBoxLayout()
         self.drawing_note = QLabel("")
         self.drawing_note.setStyleSheet("color: #666;")
-        layout.addWidget(self.drawing_note)
+        note_row.addWidget(self.drawing_note, 1)
+        self.enlarge_button = QPushButton("Larger view…")
+        self.enlarge_button.setObjectName("enlarge_drawing")
+        self.enlarge_button.setEnabled(False)
+        self.enlarge_button.clicked.connect(self.show_drawing_large)
+        note_row.addWidget(self.enlarge_button)
+        layout.addLayout(note_row)
+        self._svg = b""
 
         buttons = QGridLayout()
         self.copy_button = QPushButton("Copy parts")
@@ -201,9 +204,11 @@ class PartsView(QWidget):
             self._schedule_drawing()
             return
         self._stale = False
-        names = sorted(result.parts, key=_order)
+        names = list(result.parts)  # the network's own order (R1, Rb, R2..., C1...)
         if self.table.rowCount() != len(names):
             self.table.setRowCount(len(names))
+            rows = max(len(names), 3)
+            self.table.setFixedHeight(self.table.horizontalHeader().height() + rows * 20 + 4)
             for r in range(len(names)):
                 for c in range(4):
                     if self.table.item(r, c) is None:
@@ -265,9 +270,25 @@ class PartsView(QWidget):
         if error:
             self.drawing_note.setText(error)
             return
-        self.drawing.load(QByteArray(svg.encode("utf-8")))
+        self._svg = svg.encode("utf-8")
+        self.drawing.load(QByteArray(self._svg))
         self.drawing.renderer().setAspectRatioMode(Qt.KeepAspectRatio)
-        self.drawing_note.setText("Network with the snapped values (drawn by loopkit.schematic)")
+        self.enlarge_button.setEnabled(True)
+        self.drawing_note.setText("Network with the snapped values")
+
+    def show_drawing_large(self) -> QDialog:
+        """The network drawing in its own window (resizable)."""
+        dialog = QDialog(self)
+        dialog.setWindowTitle("Compensator network")
+        dialog.resize(1000, 560)
+        view = QSvgWidget(dialog)
+        view.load(QByteArray(self._svg))
+        view.renderer().setAspectRatioMode(Qt.KeepAspectRatio)
+        view.setStyleSheet("background: white;")
+        box = QVBoxLayout(dialog)
+        box.addWidget(view)
+        dialog.show()
+        return dialog
 
     def wait_for_drawing(self, timeout_ms: int = 5000) -> bool:
         """Start any pending drawing now and wait for it (used by tests and screenshots)."""

@@ -28,6 +28,7 @@ pg.setConfigOptions(antialias=False, background="w", foreground="#222")
 #: Colour map for input voltage: a perceptual map, cut before its palest end so every curve reads on white.
 _MAP_NAME = "plasma"
 _MAP_SPAN = (0.0, 0.82)
+_LABEL_STYLE = {"font-size": "10pt"}
 _STYLES = (Qt.SolidLine, Qt.DashLine, Qt.DotLine, Qt.DashDotLine, Qt.DashDotDotLine)
 
 
@@ -239,6 +240,7 @@ class BodeView(QWidget):
         self._show_comp = False
         self._plant_phase = None
         self._corner_pens: list[QPen] = []
+        self._styles: dict = {}
         self._corner_colours: list[QColor] = []
 
         layout = QVBoxLayout(self)
@@ -258,7 +260,7 @@ class BodeView(QWidget):
             plot.hideButtons()
             plot.getViewBox().setMouseMode(pg.ViewBox.PanMode)
             plot.getAxis("left").setWidth(62)
-        label_style = {"font-size": "10pt"}
+        label_style = _LABEL_STYLE
         self.mag.getAxis("left").setLabel("Loop gain |T| (dB)", **label_style)
         self.phase.getAxis("left").setLabel("Phase of T (°)", **label_style)
         self.phase.getAxis("bottom").setLabel("Frequency (Hz)", **label_style)
@@ -317,8 +319,8 @@ class BodeView(QWidget):
         font = QFont()
         font.setPointSizeF(9.0)
         font.setBold(True)
-        self._pm_text = pg.TextItem(color="#0a7d32", anchor=(0.0, 0.5))
-        self._gm_text = pg.TextItem(color="#b02a00", anchor=(0.0, 0.5))
+        self._pm_text = pg.TextItem(color="#0a7d32", anchor=(0.0, 0.5), fill=(255, 255, 255, 200))
+        self._gm_text = pg.TextItem(color="#b02a00", anchor=(0.0, 0.5), fill=(255, 255, 255, 200))
         for t in (self._pm_text, self._gm_text):
             t.setFont(font)
         for plot, items in ((self.phase, (self._pm_ref, self._pm_bar, self._fc_dot_phase, self._f180_dot,
@@ -364,6 +366,7 @@ class BodeView(QWidget):
         self._show_plant = bool(on)
         self.plant_mag.setVisible(self._show_plant)
         self.plant_phase.setVisible(self._show_plant)
+        self._fill_legend()
         self._fit_pending = True
         self._on_results_changed(self._model.result)
 
@@ -371,6 +374,7 @@ class BodeView(QWidget):
         self._show_comp = bool(on)
         self._comp_mag.setVisible(self._show_comp)
         self._comp_phase.setVisible(self._show_comp)
+        self._fill_legend()
         self._fit_pending = True
         self._on_results_changed(self._model.result)
 
@@ -401,13 +405,23 @@ class BodeView(QWidget):
         self.plant_mag.set_pens(faint)
         self.plant_phase.set_pens(faint)
         self._apply_pens()
-        # legend: one entry per load (line style), in the design's units
-        self.legend.clear()
-        for x, style in sorted(styles.items(), key=lambda kv: -kv[0]):
-            sample = pg.PlotDataItem(pen=_pen("#333", style, 1.2))
-            self.legend.addItem(sample, f"load {format_value(x, 'A')}")
+        self._styles = styles
+        self._fill_legend()
         self.marker.setBounds((self._x[0], self._x[-1]))
         self._fit_pending = True
+
+    def _fill_legend(self) -> None:
+        """One entry per load (line style), then the plant and compensator when shown."""
+        self.legend.clear()
+        for x, style in sorted(self._styles.items(), key=lambda kv: -kv[0]):
+            self.legend.addItem(pg.PlotDataItem(pen=_pen("#333", style, 1.2)), f"loop T, load {format_value(x, 'A')}")
+        if self._show_plant:
+            self.legend.addItem(pg.PlotDataItem(pen=_pen("#333", Qt.SolidLine, 1.0, 90)), "plant Gvd (faint)")
+        if self._show_comp:
+            self.legend.addItem(pg.PlotDataItem(pen=self._comp_mag.opts["pen"]), "compensator −Gc")
+        extra = self._show_plant or self._show_comp
+        self.mag.getAxis("left").setLabel("Gain (dB)" if extra else "Loop gain |T| (dB)", **_LABEL_STYLE)
+        self.phase.getAxis("left").setLabel("Phase (°)" if extra else "Phase of T (°)", **_LABEL_STYLE)
 
     def _apply_pens(self) -> None:
         highlight = set(self._model.highlight)
@@ -456,8 +470,9 @@ class BodeView(QWidget):
         self.loop_mag.set_data(x, mag)
         self.loop_phase.set_data(x, phase)
         if self._show_comp:
+            # the network as the loop sees it: T = -Tu Gc (loopkit.loop's sign convention)
             self._comp_mag.setData(x, magnitude_db(result.comp_resp[0]), connect="finite")
-            self._comp_phase.setData(x, result.compensator.phase_deg(result.f_hz)[0], connect="finite")
+            self._comp_phase.setData(x, (-result.compensator).phase_deg(result.f_hz)[0], connect="finite")
         w = result.worst_corner
         self._draw_worst(result, mag[w], phase[w])
         if self._fit_pending:
@@ -519,6 +534,7 @@ class BodeView(QWidget):
             phases.append(self._plant_phase)
         if self._show_comp and self._model.result.feasible:
             mags.append(magnitude_db(self._model.result.comp_resp))
+            phases.append(self._comp_phase.yData)
         lo_db, hi_db = -60.0, 60.0
         if mags:
             allm = np.concatenate([m.ravel() for m in mags])

@@ -119,15 +119,17 @@ class SweepDialog(QDialog):
         layout.addWidget(self.status)
         self.canvas = pg.GraphicsLayoutWidget()
         self.pm_plot = self.canvas.addPlot(row=0, col=0)
-        self.fc_plot = self.canvas.addPlot(row=1, col=0)
-        self.fc_plot.setXLink(self.pm_plot)
+        self.gm_plot = self.canvas.addPlot(row=1, col=0)
+        self.fc_plot = self.canvas.addPlot(row=2, col=0)
+        for p in (self.gm_plot, self.fc_plot):
+            p.setXLink(self.pm_plot)
         self.pm_plot.getAxis("left").setLabel("Phase margin (°)")
-        self.fc_plot.getAxis("left").setLabel("Crossover (Hz)")
-        self.fc_plot.setLogMode(x=False, y=True)
-        self.fc_plot.getAxis("left").enableAutoSIPrefix(False)
+        self.gm_plot.getAxis("left").setLabel("Gain margin (dB)")
+        self.fc_plot.getAxis("left").setLabel("Crossover", units="Hz")
         self.fc_plot.getAxis("bottom").setLabel("Input voltage (V)")
-        for p in (self.pm_plot, self.fc_plot):
+        for p in (self.pm_plot, self.gm_plot, self.fc_plot):
             p.showGrid(x=True, y=True, alpha=0.2)
+            p.getAxis("left").setWidth(70)
         self.legend = self.pm_plot.addLegend(offset=(-8, 8), labelTextSize="8pt")
         layout.addWidget(self.canvas, 1)
         buttons = QDialogButtonBox(QDialogButtonBox.Close)
@@ -172,8 +174,8 @@ class SweepDialog(QDialog):
     def _on_sweep_finished(self, data: dict) -> None:
         self._done()
         self.data = data
-        self.pm_plot.clear()
-        self.fc_plot.clear()
+        for p in (self.pm_plot, self.gm_plot, self.fc_plot):
+            p.clear()
         self.legend.clear()
         styles = load_styles(data["load"])
         cmap = vin_colour_map()
@@ -183,6 +185,8 @@ class SweepDialog(QDialog):
             pen = pg.mkPen(colour, width=1.5, style=style)
             self.pm_plot.plot(data["vin"][sel], data["pm_deg"][sel], pen=pen, name=f"load {format_value(load, 'A')}")
             self.fc_plot.plot(data["vin"][sel], data["fc_hz"][sel], pen=pen)
+            gm = np.where(np.isfinite(data["gm_db"][sel]), data["gm_db"][sel], np.nan)  # no phase crossover: gap
+            self.gm_plot.plot(data["vin"][sel], gm, pen=pen, connect="finite")
         k = int(np.nanargmin(data["pm_deg"])) if np.any(np.isfinite(data["pm_deg"])) else 0
         self.status.setText(
             f"{len(data['vin'])} corners. Lowest phase margin {data['pm_deg'][k]:.1f}° at "

@@ -86,9 +86,15 @@ def table_margins(window) -> list[tuple[str, str, str]]:
 
 
 def expected_rows(result) -> list[tuple[str, str, str]]:
+    """The table's texts written out here: fc in engineering notation (Hz), PM (deg) and GM (dB) to 0.1."""
     m = result.margins
-    return [(fc_text(float(m.fc_hz[k])), pm_text(float(m.pm_deg[k])), gm_text(float(m.gm_db[k])))
-            for k in range(result.stage.n_corners)]
+    rows = []
+    for k in range(result.stage.n_corners):
+        fc, pm, gm = float(m.fc_hz[k]), float(m.pm_deg[k]), float(m.gm_db[k])
+        rows.append((format_value(fc, digits=3) if np.isfinite(fc) else "none",
+                     f"{pm:.1f}" if np.isfinite(pm) else "—",
+                     "∞" if gm == np.inf else f"{gm:.1f}"))
+    return rows
 
 
 def assert_shows(window, want) -> None:
@@ -263,12 +269,14 @@ def test_invalid_field_shows_message_and_keeps_design(window, qtbot, key, text, 
     assert words in field.toolTip() and key in field.toolTip()
     assert words in window.statusBar().currentMessage()
     assert "border" in field.styleSheet()
+    assert window.form.error_strip.isVisible() and words in window.form.error_strip.text()
     assert not model.dirty
     # a valid value clears the mark
     field.selectAll()
     qtbot.keyClicks(field, {"stage.inductance": "5.6u", "stage.fsw": "350k", "operating.vout": "3.4"}[key])
     qtbot.keyClick(field, Qt.Key_Return)
     assert field.property("invalid") is False
+    assert not window.form.error_strip.isVisible()
     assert model.design is not before
 
 
@@ -282,6 +290,26 @@ def test_invalid_topology_change_reverts(window):
     box.activated.emit(i)
     assert model.design is before
     assert "boost" in box.toolTip() and box.property("invalid") is True
+
+
+def test_empty_means_zero_fields(window, qtbot):
+    """Fields whose 0 means 'automatic' or 'ideal' show empty with that word, and an empty entry writes 0."""
+    model = open_sample(window, next(p for p in SAMPLES if p.stem.startswith("flyback")))
+    field = window.form.widget_for("sensing.r_top")
+    assert model.design.sensing.r_top == 0 and field.text() == "" and field.placeholderText()
+    field.setText("47k")
+    field.editingFinished.emit()
+    assert model.design.sensing.r_top == 47e3
+    field.setText("")
+    field.editingFinished.emit()
+    assert model.design.sensing.r_top == 0.0
+
+
+def test_light_load_automatic(window):
+    model = open_sample(window, next(p for p in SAMPLES if p.stem.startswith("flyback")))
+    box = window.form.widget_for("stage.light_load")
+    assert model.design.stage.light_load == "" and box.currentData() == ""
+    assert "DCM" in box.currentText()  # what automatic means for this diode rectifier
 
 
 def test_fill_range_and_corner_count(window):
@@ -480,7 +508,7 @@ def test_plant_and_compensator_toggles(window):
     assert window.bode.plant_mag.isVisible()
     np.testing.assert_array_equal(window.bode.plant_mag.curve(0), 20 * np.log10(np.abs(r.plant_resp[0])))
     np.testing.assert_array_equal(window.bode.plant_phase.curve(0), r.stage.gvd.phase_deg(r.f_hz)[0])
-    np.testing.assert_array_equal(window.bode._comp_phase.yData, r.compensator.phase_deg(r.f_hz)[0])
+    np.testing.assert_array_equal(window.bode._comp_phase.yData, (-r.compensator).phase_deg(r.f_hz)[0])
     window.plant_action.setChecked(False)
     assert not window.bode.plant_mag.isVisible()
 
@@ -495,3 +523,33 @@ def test_cautions_banner(window, make_window):
     assert not window.caution_banner.isVisible()
     again = make_window()
     assert not again.caution_banner.isVisibleTo(again)
+
+
+def test_start_up_and_slider_do_not_import_control(tmp_path):
+    """python-control pulls in matplotlib (about 2 s): the app must not import it to start or to move a target."""
+    code = (
+        "import os, sys\n"
+        "os.environ['QT_QPA_PLATFORM'] = 'offscreen'\n"
+        "from PySide6.QtWidgets import QApplication\n"
+        "app = QApplication([])\n"
+        "from app.main import build_window\n"
+        f"w = build_window({str(SAMPLES[1])!r}); w.show()\n"
+        "from app.testing import settle; settle(0.5)\n"
+        "w.targets_bar.fc_slider.setValue(w.targets_bar.fc_slider.value() + 20); settle(0.3)\n"
+        "print(sorted(m for m in ('control', 'matplotlib') if m in sys.modules))\n"
+        "w.model.undo_stack.setClean()\n"
+    )
+    env = dict(__import__("os").environ, LOOPKIT_APP_DIR=str(tmp_path))
+    run = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, env=env,
+                         timeout=120, check=True)
+    assert run.stdout.strip().splitlines()[-1] == "[]"
+
+
+def test_gui_entry_point_opens_file(tmp_path):
+    """``loopkit-gui FILE`` (app.main.main) starts, paints the plot of that file and exits when asked."""
+    env = dict(__import__("os").environ, LOOPKIT_APP_DIR=str(tmp_path), LOOPKIT_GUI_TIME_START="1",
+               QT_QPA_PLATFORM="offscreen")
+    run = subprocess.run([sys.executable, "-c", "import sys; from app.main import main; sys.exit(main(sys.argv[1:]))",
+                          str(SAMPLES[0])], capture_output=True, text=True, cwd=ROOT, env=env, timeout=120, check=False)
+    assert run.returncode == 0, run.stderr[-2000:]
+    assert any(line.startswith("first-plot") for line in run.stdout.splitlines())
