@@ -18,16 +18,16 @@ from .eseries import SERIES_NAMES
 from .units import format_value
 
 __all__ = [
-    "TOPOLOGIES",
     "NETWORKS",
+    "TOPOLOGIES",
     "CapacitorBank",
-    "Stage",
-    "Operating",
-    "Sensing",
-    "Modulator",
-    "OpAmp",
     "Compensator",
     "Design",
+    "Modulator",
+    "OpAmp",
+    "Operating",
+    "Sensing",
+    "Stage",
     "with_changes",
 ]
 

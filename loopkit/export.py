@@ -11,13 +11,12 @@ import io
 import json
 import math
 
-
 from . import __version__, eseries
 from .loop import CAUTION, LoopResult
 from .networks import network_module
 from .units import format_value
 
-__all__ = ["bom_csv", "spice_netlist", "results_document", "results_json"]
+__all__ = ["bom_csv", "results_document", "results_json", "spice_netlist"]
 
 
 def _num(x):

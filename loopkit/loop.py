@@ -29,8 +29,18 @@ from .rational import Rational
 from .synthesis import Placement, place
 from .units import format_value
 
-__all__ = ["Targets", "LoopSession", "LoopResult", "design_loop", "apply_parts", "frequency_grid",
-           "network_context", "modulator_transfer", "closed_loop", "CAUTION"]
+__all__ = [
+    "CAUTION",
+    "LoopResult",
+    "LoopSession",
+    "Targets",
+    "apply_parts",
+    "closed_loop",
+    "design_loop",
+    "frequency_grid",
+    "modulator_transfer",
+    "network_context",
+]
 
 CAUTION = ("loopkit is a design aid: verify every loop on the bench (measured loop gain, load steps) before use."
            " Converters store energy and may carry hazardous voltages; follow local codes and licensed practice.")
@@ -55,7 +65,7 @@ class Targets:
     method: str = "k-factor"
 
     @classmethod
-    def from_design(cls, design: Design) -> "Targets":
+    def from_design(cls, design: Design) -> Targets:
         c = design.compensator
         return cls(c.network, c.fc, c.pm, c.boost_split, c.design_corner, c.resistor_series,
                    c.capacitor_series, c.method)

@@ -30,7 +30,7 @@ import numpy as np
 from .errors import Finding, InfeasibleDesign
 from .units import format_value
 
-__all__ = ["Placement", "place", "boost_limits", "pair_k"]
+__all__ = ["Placement", "boost_limits", "pair_k", "place"]
 
 #: Hard limits of the phase boost (deg) each network can give: one zero-pole pair
 #: tends to 90 deg as K -> infinity, two pairs to 180 deg.

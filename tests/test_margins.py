@@ -11,8 +11,8 @@ import pytest
 
 control = pytest.importorskip("control")
 
-from loopkit.margins import loop_margins  # noqa: E402
-from loopkit.rational import TWO_PI, Rational  # noqa: E402
+from loopkit.margins import loop_margins
+from loopkit.rational import TWO_PI, Rational
 
 F = np.geomspace(1.0, 1e7, 1000)
 

@@ -38,7 +38,7 @@ from types import ModuleType
 
 from ..design import OpAmp
 
-__all__ = ["NetworkContext", "network_module", "NETWORK_MODULE_NAMES"]
+__all__ = ["NETWORK_MODULE_NAMES", "NetworkContext", "network_module"]
 
 NETWORK_MODULE_NAMES = {
     "type1": "type1",

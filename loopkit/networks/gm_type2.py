@@ -47,6 +47,7 @@ __all__ = [
     "poles_zeros",
     "synthesise",
     "transfer",
+    "type2_inputs",
 ]
 
 #: Parts the transfer function needs.  The divider's bottom resistor ``Rb``
@@ -57,6 +58,31 @@ OPTIONAL_DESIGNATORS = ("Rb",)
 DESIGNATORS = ("R1", "Rc", "Cc", "Chf")
 ZEROS = 1
 POLES = 1
+
+
+def type2_inputs(name: str, fc_hz, gain_at_fc, zeros_hz, poles_hz, fixed: dict) -> tuple[float, float, float]:
+    """Check the synthesis inputs of a one-zero, one-pole network: (fz, fp, R1).
+
+    Shared by the gm and optocoupler Type II networks.
+    """
+    if len(zeros_hz) != 1 or len(poles_hz) != 1:
+        raise InfeasibleDesign("compensator.placement", (tuple(zeros_hz), tuple(poles_hz)),
+                               f"{name} places exactly one zero and one pole")
+    fz, fp = float(zeros_hz[0]), float(poles_hz[0])
+    if not (fc_hz > 0 and gain_at_fc > 0 and math.isfinite(gain_at_fc)):
+        raise InfeasibleDesign("compensator.fc", (fc_hz, gain_at_fc), "crossover and gain at crossover must be > 0")
+    if not (0 < fz < fp < math.inf):
+        raise InfeasibleDesign(
+            "compensator.placement", f"fz = {format_value(fz, 'Hz')}, fp = {format_value(fp, 'Hz')}",
+            "the zero must be above 0 and below the pole",
+            reasons=("a Type II gives phase boost only with its zero below its pole",),
+        )
+    if "R1" not in fixed:
+        raise DesignError("compensator.parts.R1", "missing", "synthesis needs the divider's top resistor R1 fixed")
+    r1 = float(fixed["R1"])
+    if not (r1 > 0):
+        raise DesignError("compensator.parts.R1", r1, "must be > 0")
+    return fz, fp, r1
 
 
 def divider_bottom(r1: float, ctx: NetworkContext) -> float:
@@ -202,23 +228,7 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
         Zero not below the pole, non-positive frequencies, or more gain at fc than
         the amplifier's dc gain.
     """
-    if len(zeros_hz) != ZEROS or len(poles_hz) != POLES:
-        raise InfeasibleDesign("compensator.placement", (tuple(zeros_hz), tuple(poles_hz)),
-                               "gm-type2 places exactly one zero and one pole")
-    fz, fp = float(zeros_hz[0]), float(poles_hz[0])
-    if not (fc_hz > 0 and gain_at_fc > 0 and math.isfinite(gain_at_fc)):
-        raise InfeasibleDesign("compensator.fc", (fc_hz, gain_at_fc), "crossover and gain at crossover must be > 0")
-    if not (0 < fz < fp < math.inf):
-        raise InfeasibleDesign(
-            "compensator.placement", f"fz = {format_value(fz, 'Hz')}, fp = {format_value(fp, 'Hz')}",
-            "the zero must be above 0 and below the pole",
-            reasons=("a Type II gives phase boost only with its zero below its pole",),
-        )
-    if "R1" not in fixed:
-        raise DesignError("compensator.parts.R1", "missing", "synthesis needs the divider's top resistor R1 fixed")
-    r1 = float(fixed["R1"])
-    if not (r1 > 0):
-        raise DesignError("compensator.parts.R1", r1, "must be > 0")
+    fz, fp, r1 = type2_inputs("gm-type2", fc_hz, gain_at_fc, zeros_hz, poles_hz, fixed)
     rb = divider_bottom(r1, ctx)
     hdiv = _hdiv(r1, rb)
     gm = _gm(ctx)

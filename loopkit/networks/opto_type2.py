@@ -56,6 +56,7 @@ from ..errors import DesignError, InfeasibleDesign
 from ..rational import TWO_PI, Rational
 from ..units import format_value
 from . import NetworkContext
+from .gm_type2 import divider_bottom, type2_inputs
 from .spice import OPAMP_SUBCKT, ac_deck, opamp_subcircuit, spice_number
 
 __all__ = [
@@ -102,19 +103,6 @@ def _opto(ctx: NetworkContext) -> tuple[float, float, float, float]:
     return tuple(values)
 
 
-def _divider_bottom(r1: float, ctx: NetworkContext) -> float:
-    """``R1 vref / (v_sensed - vref)``; inf (no bottom resistor) when the sensed voltage equals vref."""
-    if not (ctx.vref > 0 and ctx.v_sensed >= ctx.vref * (1 - 1e-9)):
-        raise DesignError(
-            "sensing.reference",
-            format_value(ctx.vref, "V"),
-            f"must be > 0 and not above the sensed voltage {format_value(ctx.v_sensed, 'V')}",
-        )
-    if ctx.v_sensed - ctx.vref <= 1e-9 * ctx.vref:
-        return math.inf
-    return r1 * ctx.vref / (ctx.v_sensed - ctx.vref)
-
-
 def _part(parts: dict, name: str, default: float | None = None) -> float:
     if name not in parts:
         if default is not None:
@@ -129,7 +117,7 @@ def _part(parts: dict, name: str, default: float | None = None) -> float:
 def _values(parts: dict, ctx: NetworkContext) -> tuple[float, float, float, float, float]:
     """(R1, Rb, Rz, Cz, Cpole); Rb defaults to the dc divider, Rz to 0 (a short)."""
     r1 = _part(parts, "R1")
-    rb = _part(parts, "Rb") if "Rb" in parts else _divider_bottom(r1, ctx)
+    rb = _part(parts, "Rb") if "Rb" in parts else divider_bottom(r1, ctx)
     return r1, rb, _part(parts, "Rz", 0.0), _part(parts, "Cz"), _part(parts, "Cpole")
 
 
@@ -243,24 +231,8 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
         least the gain needed (``Rz`` would not be positive); the message says
         what to change.
     """
-    if len(zeros_hz) != ZEROS or len(poles_hz) != POLES:
-        raise InfeasibleDesign("compensator.placement", (tuple(zeros_hz), tuple(poles_hz)),
-                               "opto-type2 places exactly one zero and one pole")
-    fz, fp = float(zeros_hz[0]), float(poles_hz[0])
-    if not (fc_hz > 0 and gain_at_fc > 0 and math.isfinite(gain_at_fc)):
-        raise InfeasibleDesign("compensator.fc", (fc_hz, gain_at_fc), "crossover and gain at crossover must be > 0")
-    if not (0 < fz < fp < math.inf):
-        raise InfeasibleDesign(
-            "compensator.placement", f"fz = {format_value(fz, 'Hz')}, fp = {format_value(fp, 'Hz')}",
-            "the zero must be above 0 and below the pole",
-            reasons=("a Type II gives phase boost only with its zero below its pole",),
-        )
-    if "R1" not in fixed:
-        raise DesignError("compensator.parts.R1", "missing", "synthesis needs the divider's top resistor R1 fixed")
-    r1 = float(fixed["R1"])
-    if not (r1 > 0):
-        raise DesignError("compensator.parts.R1", r1, "must be > 0")
-    rb = _divider_bottom(r1, ctx)
+    fz, fp, r1 = type2_inputs("opto-type2", fc_hz, gain_at_fc, zeros_hz, poles_hz, fixed)
+    rb = divider_bottom(r1, ctx)
     ctr, r_pull, r_led, c_opto = _opto(ctx)
 
     c_total = 1.0 / (TWO_PI * fp * r_pull)
