@@ -21,11 +21,12 @@ from __future__ import annotations
 import copy
 import re
 import sys
+import time
 import traceback
 from dataclasses import fields, replace
 from pathlib import Path
 
-from PySide6.QtCore import QObject, Signal
+from PySide6.QtCore import QObject, QRunnable, QThreadPool, QTimer, Signal
 from PySide6.QtGui import QUndoStack
 
 from loopkit import DesignError, dumps_design, load_design, save_design
@@ -40,6 +41,11 @@ __all__ = ["TARGET_FIELDS", "DesignModel", "starter_design"]
 #: Compensator fields that are loop targets: changing them re-runs the session only.
 TARGET_FIELDS = ("network", "fc", "pm", "boost_split", "design_corner", "method", "resistor_series",
                  "capacitor_series")
+
+_FRAME_S = 1.0 / 60.0
+
+#: Designs with more corners than this are computed in a worker thread when edited.
+HEAVY_CORNERS = 60
 
 _PATH_TOKEN = re.compile(r"([A-Za-z_][A-Za-z0-9_]*)(?:\[(\d+)\])?")
 
@@ -97,6 +103,27 @@ def _targets_only(a: Design, b: Design) -> bool:
     return all(getattr(ca, f.name) == getattr(cb, f.name) for f in fields(Compensator) if f.name not in TARGET_FIELDS)
 
 
+class _JobSignals(QObject):
+    done = Signal(int, object)  # job id, (session, targets, result) or the exception
+
+
+class _ComputeJob(QRunnable):
+    """A new session and its result for a design with many corners, in a worker thread (numpy only)."""
+
+    def __init__(self, job_id: int, design: Design, signals: _JobSignals):
+        super().__init__()
+        self._job_id, self._design, self._signals = job_id, design, signals
+
+    def run(self) -> None:
+        try:
+            session = LoopSession(self._design)
+            targets, result = DesignModel._run(session, self._design)
+            outcome = (session, targets, result)
+        except Exception as exc:  # noqa: BLE001 - handed back to the UI thread, reported at the field
+            outcome = exc
+        self._signals.done.emit(self._job_id, outcome)
+
+
 class DesignModel(QObject):
     """Current design, targets, loop session and cached result; emits what changed.
 
@@ -120,6 +147,8 @@ class DesignModel(QObject):
         Corner indices to highlight (empty: none).
     compute_failed(str)
         The loop path raised something other than a design error (a bug).
+    busy_changed(bool, str)
+        A design with many corners is being computed in the background (True), or that ended.
     """
 
     design_changed = Signal(object)
@@ -131,6 +160,7 @@ class DesignModel(QObject):
     path_changed = Signal(str)
     highlight_changed = Signal(object)
     compute_failed = Signal(str)
+    busy_changed = Signal(bool, str)
 
     def __init__(self, design: Design | None = None, parent=None):
         super().__init__(parent)
@@ -144,6 +174,15 @@ class DesignModel(QObject):
         self._highlight: tuple = ()
         self._prepared: tuple | None = None  # (design, session, result) checked by propose()
         self._drag_start: Design | None = None
+        self._job_id = 0
+        self._pending: tuple | None = None
+        self._job_signals = _JobSignals(self)
+        self._job_signals.done.connect(self._on_job_done)
+        self._last_compute_s = 0.0
+        self._queued_preview: Design | None = None
+        self._preview_timer = QTimer(self)
+        self._preview_timer.setSingleShot(True)
+        self._preview_timer.timeout.connect(self._flush_preview)
         self.reset(design or starter_design())
 
     # ------------------------------------------------------------------ state
@@ -191,11 +230,13 @@ class DesignModel(QObject):
         """(session, targets, result) for ``design``; raises DesignError for input it cannot use."""
         if self._prepared is not None and self._prepared[0] is design:
             return self._prepared[1:]
+        t0 = time.perf_counter()
         if self._session is not None and _targets_only(self._design, design):
             session = self._session
         else:
             session = LoopSession(design)
         targets, result = self._run(session, design)
+        self._last_compute_s = time.perf_counter() - t0
         return session, targets, result
 
     def _apply(self, design: Design) -> None:
@@ -230,11 +271,18 @@ class DesignModel(QObject):
         """Check ``design`` on the loop path and, if it is usable, make it an undo step.
 
         Returns False (and emits ``field_invalid(field, message)``) when loopkit
-        rejects it; the current design stays.
+        rejects it; the current design stays.  A design with many corners
+        (more than :data:`HEAVY_CORNERS`) is computed in a worker thread:
+        ``busy_changed`` reports it, :meth:`cancel_pending` drops it, and the
+        step is pushed (or the field marked) when it is done.
         """
+        self.cancel_pending()
         if design == self._design:
             if field:
                 self.field_valid.emit(field)
+            return True
+        if design.operating.n_corners > HEAVY_CORNERS and not _targets_only(self._design, design):
+            self._start_job(design, text, field, merge_key)
             return True
         try:
             session, targets, result = self._compute(design)
@@ -250,6 +298,41 @@ class DesignModel(QObject):
         if field:
             self.field_valid.emit(field)
         return True
+
+    # ------------------------------------------------------------------ heavy designs off the UI thread
+    def _start_job(self, design: Design, text: str, field: str, merge_key: str | None) -> None:
+        self._job_id += 1
+        job = _ComputeJob(self._job_id, design, self._job_signals)
+        self._pending = (self._job_id, design, text, field, merge_key)
+        self.busy_changed.emit(True, f"Computing {design.operating.n_corners} corners…")
+        QThreadPool.globalInstance().start(job)
+
+    def cancel_pending(self) -> None:
+        """Drop a design still being computed in the background (the current one stays)."""
+        if self._pending is not None:
+            self._pending = None
+            self._job_id += 1
+            self.busy_changed.emit(False, "cancelled")
+
+    @property
+    def pending(self) -> bool:
+        return self._pending is not None
+
+    def _on_job_done(self, job_id: int, outcome) -> None:
+        if self._pending is None or job_id != self._pending[0]:
+            return  # cancelled or superseded
+        _, design, text, field, merge_key = self._pending
+        self._pending = None
+        self.busy_changed.emit(False, "")
+        if isinstance(outcome, BaseException):
+            message = str(outcome) if isinstance(outcome, DesignError) else (
+                f"internal error while computing the loop: {outcome!r}")
+            self.field_invalid.emit(field, message)
+            return
+        self._prepared = (design, *outcome)
+        self.undo_stack.push(DesignStep(self, self._design, design, text, merge_key))
+        if field:
+            self.field_valid.emit(field)
 
     # ------------------------------------------------------------------ edits from forms
     def edit(self, changes: dict, text: str, field: str = "") -> bool:
@@ -315,11 +398,24 @@ class DesignModel(QObject):
         except DesignError as exc:
             self.field_invalid.emit(f"compensator.{next(iter(changes))}", str(exc))
             return False
+        if self._last_compute_s > _FRAME_S:
+            # slow designs: moves that arrive while one is computed collapse into the latest
+            self._queued_preview = design
+            if not self._preview_timer.isActive():
+                self._preview_timer.start(0)
+            return True
         self._apply(design)
         return True
 
+    def _flush_preview(self) -> None:
+        design, self._queued_preview = self._queued_preview, None
+        if design is not None:
+            self._apply(design)
+
     def end_preview(self, text: str) -> None:
         """Finish the gesture: one undo step from where it started to where it ended."""
+        self._preview_timer.stop()
+        self._flush_preview()
         start, self._drag_start = self._drag_start, None
         if start is None or start is self._design or start == self._design:
             return
@@ -354,6 +450,7 @@ class DesignModel(QObject):
     # ------------------------------------------------------------------ files
     def reset(self, design: Design, path: str = "") -> None:
         """Replace everything (New, Open): a new session, an empty undo history."""
+        self.cancel_pending()
         session = LoopSession(design)  # may raise DesignError: the caller reports it
         targets, result = self._run(session, design)
         self._prepared = (design, session, targets, result)

@@ -13,6 +13,7 @@ from PySide6.QtWidgets import (
     QLabel,
     QMainWindow,
     QMessageBox,
+    QProgressBar,
     QPushButton,
     QSplitter,
     QTabWidget,
@@ -106,6 +107,16 @@ class MainWindow(QMainWindow):
         self.model.compute_failed.connect(self._on_compute_failed)
         self.model.dirty_changed.connect(self._on_dirty_changed)
         self.model.path_changed.connect(self._on_path_changed)
+        self.model.busy_changed.connect(self._on_busy_changed)
+        self.busy_bar = QProgressBar()
+        self.busy_bar.setRange(0, 0)  # the loop path has no progress steps: a busy indicator
+        self.busy_bar.setMaximumWidth(160)
+        self.busy_cancel = QPushButton("Cancel")
+        self.busy_cancel.clicked.connect(self.model.cancel_pending)
+        self.busy_label = QLabel()
+        for w in (self.busy_label, self.busy_bar, self.busy_cancel):
+            self.statusBar().addPermanentWidget(w)
+            w.setVisible(False)
 
         self._autosave_timer = QTimer(self)
         self._autosave_timer.setInterval(_AUTOSAVE_MS)
@@ -234,6 +245,13 @@ class MainWindow(QMainWindow):
     def _on_form_message(self, message: str) -> None:
         if message:
             self.statusBar().showMessage(f"Not applied — {message}", 20000)
+
+    def _on_busy_changed(self, busy: bool, text: str) -> None:
+        for w in (self.busy_label, self.busy_bar, self.busy_cancel):
+            w.setVisible(busy)
+        self.busy_label.setText(text)
+        if not busy and text == "cancelled":
+            self.statusBar().showMessage("Computation cancelled: the previous design stays.", 5000)
 
     def _on_compute_failed(self, message: str) -> None:
         self.statusBar().showMessage(message, 20000)

@@ -216,3 +216,52 @@ def test_vin_range_fill(model, some_path):
     assert model.edit({"operating.vin": None, "operating.vin_min": lo, "operating.vin_max": hi,
                        "operating.vin_points": 7, "operating.vin_nominal": None}, "fill")
     np.testing.assert_allclose(model.design.operating.vin, np.linspace(lo, hi, 7), rtol=1e-12)
+
+
+def test_many_corners_are_computed_off_the_ui_thread(model, qtbot):
+    """A 120-corner design is computed in a worker; the result equals the library's, undo goes back."""
+    model.open(SOME[0])
+    before = model.design
+    busy = Spy(model.busy_changed)
+    assert model.edit({"operating.vin": None, "operating.vin_min": "18", "operating.vin_max": "32",
+                       "operating.vin_points": 40, "operating.vin_nominal": None}, "dense")
+    assert model.pending and model.design is before  # returns at once; the old design stays meanwhile
+    qtbot.waitUntil(lambda: not model.pending, timeout=60000)
+    assert model.design.operating.n_corners == 120
+    assert [c[0] for c in busy.calls] == [True, False]
+    same_result(model.result, design_loop(model.design))
+    model.undo_stack.undo()
+    assert model.design == before
+
+
+def test_many_corners_cancel_keeps_design(model, qtbot):
+    model.open(SOME[0])
+    before, result = model.design, model.result
+    model.edit({"operating.vin": None, "operating.vin_min": "18", "operating.vin_max": "32",
+                "operating.vin_points": 60, "operating.vin_nominal": None}, "dense")
+    assert model.pending
+    model.cancel_pending()
+    assert not model.pending
+    qtbot.wait(300)
+    from PySide6.QtCore import QThreadPool
+
+    QThreadPool.globalInstance().waitForDone(60000)
+    qtbot.wait(50)
+    assert model.design is before and model.result is result and model.undo_stack.count() == 0
+
+
+def test_slow_previews_collapse_into_the_latest(model, qtbot):
+    """When one computation takes longer than a frame, queued moves collapse: the latest one wins."""
+    model.open(SOME[0])
+    fc0 = model.targets.fc_hz
+    runs = Spy(model.results_changed)
+    model._last_compute_s = 1.0  # as if the last run had taken a second
+    for k in (1.1, 1.2, 1.3):
+        model.preview_targets(fc=fc0 * k)
+    assert runs.calls == []  # nothing computed yet: the moves wait for the event loop
+    qtbot.waitUntil(lambda: len(runs.calls) == 1, timeout=5000)
+    assert model.targets.fc_hz == fc0 * 1.3
+    model._last_compute_s = 1.0
+    model.preview_targets(fc=fc0 * 1.4)
+    model.end_preview("drag")  # the release applies the last move first
+    assert model.targets.fc_hz == fc0 * 1.4 and model.undo_stack.count() == 1
