@@ -573,8 +573,7 @@ class BodeView(QWidget):
         if str(path).lower().endswith(".svg"):
             exporter = ex.SVGExporter(self.canvas.scene())
         else:
-            exporter = ex.ImageExporter(self.canvas.scene())
-            exporter.parameters()["width"] = max(1600, self.canvas.width() * 2)
+            exporter = ex.ImageExporter(self.canvas.scene())  # at screen scale: pyqtgraph does not scale the legend
         exporter.export(str(path))
 
 
