@@ -205,6 +205,32 @@ class CurveBundle(pg.GraphicsObject):
                 p.drawPath(self._paths[k])
 
 
+class Dot(pg.GraphicsObject):
+    """A small open circle of fixed pixel size at one point (cheaper to move than a ScatterPlotItem)."""
+
+    _RADIUS_PX = 4.5
+
+    def __init__(self, colour: str):
+        super().__init__()
+        self._pen = _pen(colour, Qt.SolidLine, 1.5)
+        self._x = self._y = 0.0
+        self.setFlag(self.GraphicsItemFlag.ItemIgnoresTransformations)  # draw in pixels around the point
+
+    def set_pos(self, x: float, y: float) -> None:
+        self.setPos(x, y)
+
+    def boundingRect(self) -> QRectF:
+        r = self._RADIUS_PX + 2
+        return QRectF(-r, -r, 2 * r, 2 * r)
+
+    def paint(self, p, *args) -> None:
+        p.setRenderHint(p.RenderHint.Antialiasing, True)
+        p.setPen(self._pen)
+        p.setBrush(QColor("white"))
+        r = self._RADIUS_PX
+        p.drawEllipse(QRectF(-r, -r, 2 * r, 2 * r))
+
+
 def _pen(colour, style=Qt.SolidLine, width=1.0, alpha=255) -> QPen:
     c = QColor(colour)
     c.setAlpha(alpha)
@@ -312,10 +338,10 @@ class BodeView(QWidget):
         self._pm_bar = pg.PlotCurveItem(pen=mark_pen)
         self._pm_ref = pg.PlotCurveItem(pen=_pen("#0a7d32", Qt.DashLine, 1.0))
         self._gm_bar = pg.PlotCurveItem(pen=gm_pen)
-        self._fc_dot_mag = pg.ScatterPlotItem(size=9, pen=pg.mkPen("#0a7d32", width=1.5), brush=pg.mkBrush("w"))
-        self._fc_dot_phase = pg.ScatterPlotItem(size=9, pen=pg.mkPen("#0a7d32", width=1.5), brush=pg.mkBrush("w"))
-        self._f180_dot = pg.ScatterPlotItem(size=9, pen=pg.mkPen("#b02a00", width=1.5), brush=pg.mkBrush("w"))
-        self._f180_dot_mag = pg.ScatterPlotItem(size=9, pen=pg.mkPen("#b02a00", width=1.5), brush=pg.mkBrush("w"))
+        self._fc_dot_mag = Dot("#0a7d32")
+        self._fc_dot_phase = Dot("#0a7d32")
+        self._f180_dot = Dot("#b02a00")
+        self._f180_dot_mag = Dot("#b02a00")
         font = QFont()
         font.setPointSizeF(9.0)
         font.setBold(True)
@@ -494,8 +520,8 @@ class BodeView(QWidget):
             ref = ph_fc - pm
             self._pm_bar.setData([xc, xc], [ref, ph_fc])
             self._pm_ref.setData([xc - 0.35, xc + 0.35], [ref, ref])
-            self._fc_dot_mag.setData([xc], [0.0])
-            self._fc_dot_phase.setData([xc], [ph_fc])
+            self._fc_dot_mag.set_pos(xc, 0.0)
+            self._fc_dot_phase.set_pos(xc, ph_fc)
             self._pm_text.setText(f"PM {pm:.1f}°\nfc {format_value(fc, 'Hz')}")
             self._place_label(self._pm_text, xc, (ref + ph_fc) / 2)
             for item in (self._pm_bar, self._pm_ref, self._fc_dot_mag, self._fc_dot_phase, self._pm_text):
@@ -506,8 +532,8 @@ class BodeView(QWidget):
         x180 = hz_to_view(f180)
         if math.isfinite(x180) and math.isfinite(gm):
             self._gm_bar.setData([x180, x180], [-gm, 0.0])
-            self._f180_dot_mag.setData([x180], [-gm])
-            self._f180_dot.setData([x180], [float(np.interp(x180, x, phase_w))])
+            self._f180_dot_mag.set_pos(x180, -gm)
+            self._f180_dot.set_pos(x180, float(np.interp(x180, x, phase_w)))
             self._gm_text.setText(f"GM {gm:.1f} dB")
             self._place_label(self._gm_text, x180, -gm / 2)
             for item in (self._gm_bar, self._f180_dot_mag, self._f180_dot, self._gm_text):
