@@ -327,12 +327,8 @@ class BodeView(QWidget):
             item.setVisible(False)
             plot.addItem(item)
 
-        # worst corner: a heavier copy of its curves and the margin markers
-        self._worst_mag = pg.PlotCurveItem()
-        self._worst_phase = pg.PlotCurveItem()
-        for plot, item in ((self.mag, self._worst_mag), (self.phase, self._worst_phase)):
-            item.setZValue(8)
-            plot.addItem(item)
+        # worst corner: drawn heavier, last, by the bundles; and the margin markers
+        self._worst = -1
         mark_pen = _pen("#0a7d32", Qt.SolidLine, 2.2)
         gm_pen = _pen("#b02a00", Qt.SolidLine, 2.2)
         self._pm_bar = pg.PlotCurveItem(pen=mark_pen)
@@ -416,6 +412,7 @@ class BodeView(QWidget):
         n = stage.n_corners
         self._n = n
         self._x = hz_to_view(result.f_hz)
+        self._worst = result.worst_corner if result.feasible else -1
         vmin, vmax = float(np.min(stage.vin)), float(np.max(stage.vin))
         if vmax - vmin < 1e-9:
             vmin, vmax = vmin - 0.5, vmax + 0.5
@@ -450,13 +447,16 @@ class BodeView(QWidget):
         self.phase.getAxis("left").setLabel("Phase (°)" if extra else "Phase of T (°)", **_LABEL_STYLE)
 
     def _apply_pens(self) -> None:
+        """Pens per corner: highlighted and worst corners heavier and on top, the rest dimmed while highlighting."""
         highlight = set(self._model.highlight)
+        worst = self._worst
         pens = []
         for k in range(self._n):
-            dim = bool(highlight) and k not in highlight
-            width = 2.0 if k in highlight else 1.0
+            dim = bool(highlight) and k not in highlight and k != worst
+            width = 2.0 if (k in highlight or k == worst) else 1.0
             pens.append(_pen(self._corner_colours[k], self._corner_styles[k], width, 55 if dim else 255))
-        order = [k for k in range(self._n) if k not in highlight] + sorted(highlight)
+        top = sorted(highlight) + ([worst] if 0 <= worst < self._n and worst not in highlight else [])
+        order = [k for k in range(self._n) if k not in top] + top
         self.loop_mag.set_pens(pens, order)
         self.loop_phase.set_pens(pens, order)
 
@@ -479,7 +479,7 @@ class BodeView(QWidget):
         self._infeasible_text.setVisible(not feasible)
         self.loop_mag.setVisible(feasible)
         self.loop_phase.setVisible(feasible)
-        for item in (self._worst_mag, self._worst_phase, self._pm_bar, self._pm_ref, self._gm_bar, self._fc_dot_mag,
+        for item in (self._pm_bar, self._pm_ref, self._gm_bar, self._fc_dot_mag,
                      self._fc_dot_phase, self._f180_dot, self._f180_dot_mag, self._pm_text, self._gm_text):
             item.setVisible(feasible)
         self._comp_mag.setVisible(feasible and self._show_comp)
@@ -507,11 +507,9 @@ class BodeView(QWidget):
     def _draw_worst(self, result, mag_w: np.ndarray, phase_w: np.ndarray) -> None:
         w = result.worst_corner
         x = self._x
-        pen = _pen(self._corner_colours[w], self._corner_styles[w], 2.0)
-        self._worst_mag.setPen(pen)
-        self._worst_phase.setPen(pen)
-        self._worst_mag.setData(x, mag_w, skipFiniteCheck=True)
-        self._worst_phase.setData(x, phase_w, skipFiniteCheck=True)
+        if w != self._worst:
+            self._worst = w
+            self._apply_pens()
         m = result.margins
         fc, pm, gm, f180 = (float(m.fc_hz[w]), float(m.pm_deg[w]), float(m.gm_db[w]), float(m.f180_hz[w]))
         xc = hz_to_view(fc)
