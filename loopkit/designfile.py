@@ -106,7 +106,7 @@ _PLAIN_NUMBERS = {
     "gain",
 }
 #: Keys of [compensator.placement] (Hz, except the dimensionless ``gain``).
-PLACEMENT_KEYS = ("fz", "fp", "fz1", "fz2", "fp1", "fp2", "gain")
+PLACEMENT_KEYS = ("fz", "fp", "fz1", "fz2", "fp1", "fp2")
 
 
 def _table(value, where: str, header: str = "") -> dict:

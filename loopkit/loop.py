@@ -196,13 +196,22 @@ class LoopSession:
 
     # ------------------------------------------------------------------ corners
     def design_corner(self, targets: Targets) -> int:
-        """The corner to design at: the given one, or the one needing the most boost at fc."""
+        """The corner to design at: the given one, or the worst one.
+
+        The worst corner is the CCM corner whose uncompensated loop has the
+        least phase at fc, i.e. needs the most boost (ties: the most gain).
+        DCM corners are left out unless every corner is in DCM: at light load
+        the plant's gain at fc is far lower, so a network designed there would
+        push the crossover of every CCM corner far above the target.
+        """
         if targets.design_corner is not None:
             return int(targets.design_corner)
-        phase = self.uncompensated.phase_deg(np.array([targets.fc_hz]))[:, 0]
-        mag = np.abs(self.uncompensated.response(np.array([targets.fc_hz]))[:, 0])
-        order = np.lexsort((mag, phase))  # lowest phase first, then lowest gain
-        return int(order[0])
+        f = np.array([targets.fc_hz])
+        mag = np.abs(self.uncompensated.response(f)[:, 0])
+        phase = self.uncompensated.phase_deg(f)[:, 0]
+        candidates = np.nonzero(~self.stage.dcm)[0] if np.any(~self.stage.dcm) else np.arange(mag.size)
+        order = np.lexsort((-mag[candidates], np.round(phase[candidates], 9)))  # least phase, then most gain
+        return int(candidates[order[0]])
 
     # ------------------------------------------------------------------ synthesis
     def _synthesise(self, targets: Targets) -> LoopResult:

@@ -403,7 +403,7 @@ ERRORS = [
         ("pm = 60", 'pm = 60\n[compensator.placement]\nfz0 = "1k"'),
         "compensator.placement.fz0",
         "1k",
-        "unknown key; allowed here: fp, fp1, fp2, fz, fz1, fz2, gain",
+        "unknown key; allowed here: fp, fp1, fp2, fz, fz1, fz2",
     ),
     (
         ("pm = 60", 'pm = 60\n[compensator.placement]\nfz = "1kV"'),
