@@ -14,6 +14,7 @@ loop therefore has T(0) > 0 and is analysed in the form 1 + T.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -98,16 +99,44 @@ class LoopResult:
     comp_resp: np.ndarray | None
     loop_resp: np.ndarray | None
     loop_phase_deg: np.ndarray | None
-    loop_resp_exact: np.ndarray | None
     margins: Margins | None
-    margins_exact: Margins | None
     worst_corner: int
     design_corner: int
     findings: tuple = field(default_factory=tuple)
+    session: "LoopSession | None" = field(default=None, repr=False)
 
     @property
     def corner_labels(self) -> list[str]:
         return [corner_label(v, i) for v, i in zip(self.stage.vin, self.stage.load)]
+
+    @functools.cached_property
+    def _exact_on_grid(self):
+        if self.loop_exact is None:
+            return None
+        if self.compensator_exact is self.compensator:
+            return self.loop_resp, self.loop_phase_deg
+        _, _, resp, phase = self.session._loop_on_grid(self.compensator_exact)
+        return resp, phase
+
+    @property
+    def loop_resp_exact(self) -> np.ndarray | None:
+        """T on ``f_hz`` with the computed (unrounded) parts; worked out on first use."""
+        return None if self._exact_on_grid is None else self._exact_on_grid[0]
+
+    @functools.cached_property
+    def margins_exact(self) -> Margins | None:
+        """Margins with the computed (unrounded) parts; worked out on first use."""
+        if self.loop_exact is None:
+            return None
+        if self.compensator_exact is self.compensator:
+            return self.margins
+        resp, phase = self._exact_on_grid
+        return loop_margins(self.loop_exact, self.f_hz, resp, phase)
+
+    @functools.cached_property
+    def loop_mag_db(self) -> np.ndarray | None:
+        """|T| in dB on ``f_hz`` with the parts to build, (corners, frequencies)."""
+        return None if self.loop_resp is None else 20.0 * np.log10(np.abs(self.loop_resp))
 
     def closed_loop_response(self, which: str) -> np.ndarray:
         """Closed-loop ``"zout"`` (output impedance, ohm) or ``"gvg"`` (line to output) on ``f_hz``.
@@ -289,13 +318,17 @@ class LoopSession:
         corner = targets.design_corner if targets.design_corner is not None else self.design_corner(targets)
         return self._assemble(targets, parts, None, int(corner), findings, snap=False)
 
-    def _loop_on_grid(self, gc: Rational) -> tuple[Rational, np.ndarray, np.ndarray, np.ndarray]:
-        loop = -(self.uncompensated * gc)
+    def _loop_on_grid(self, gc: Rational, corner: int | None = None):
+        """(T, Gc on the grid, T on the grid, continuous phase of T) for every corner or one."""
+        tu = self.uncompensated if corner is None else self.uncompensated.take(corner)
+        tu_resp = self.tu_resp if corner is None else self.tu_resp[corner:corner + 1]
+        tu_phase = self.tu_phase if corner is None else self.tu_phase[corner:corner + 1]
+        loop = -(tu * gc)
         comp_resp = gc.response(self.f_hz)
-        resp = -self.tu_resp * comp_resp
+        resp = -tu_resp * comp_resp
         # continuous phase of the product: sum of the parts' factor angles, sign of the product's gain
-        phase = (self.tu_phase + gc.phase_deg(self.f_hz)
-                 - np.where(self.uncompensated.gain < 0, -180.0, 0.0)[:, None]
+        phase = (tu_phase + gc.phase_deg(self.f_hz)
+                 - np.where(tu.gain < 0, -180.0, 0.0)[:, None]
                  - np.where(gc.gain < 0, -180.0, 0.0)[:, None]
                  + np.where(loop.gain < 0, -180.0, 0.0)[:, None])
         return loop, comp_resp, resp, phase
@@ -307,28 +340,28 @@ class LoopSession:
                  if snap else dict(parts_exact))
         gc_exact = module.transfer(parts_exact, self.ctx)
         gc = module.transfer(parts, self.ctx) if snap else gc_exact
-        loop_x, _, resp_x, phase_x = self._loop_on_grid(gc_exact)
-        margins_x = loop_margins(loop_x, self.f_hz, resp_x, phase_x)
-        if placement is not None and (margins_x.n_crossovers[corner] != 1 or not margins_x.stable[corner]):
-            return self._infeasible(targets, findings, "compensator.fc", format_value(targets.fc_hz, "Hz"),
-                                    _why_not_single_crossover(self.stage, corner, margins_x))
-        if snap:
-            loop, comp_resp, resp, phase = self._loop_on_grid(gc)
-            margins = loop_margins(loop, self.f_hz, resp, phase)
-        else:
-            loop, comp_resp, resp, phase, margins = loop_x, gc.response(self.f_hz), resp_x, phase_x, margins_x
+        loop_x = -(self.uncompensated * gc_exact)
+        if placement is not None:  # the synthesised loop must cross once, stably, at the design corner
+            _, _, resp_c, phase_c = self._loop_on_grid(gc_exact, corner)
+            at_corner = loop_margins(loop_x.take(corner), self.f_hz, resp_c, phase_c)
+            if at_corner.n_crossovers[0] != 1 or not at_corner.stable[0]:
+                return self._infeasible(targets, findings, "compensator.fc", format_value(targets.fc_hz, "Hz"),
+                                        _why_not_single_crossover(self.stage, corner, at_corner, 0))
+        loop, comp_resp, resp, phase = self._loop_on_grid(gc)
+        margins = loop_margins(loop, self.f_hz, resp, phase)
         zeros, poles = module.poles_zeros(parts, self.ctx)
         worst = _worst_corner(margins)
         findings.extend(eseries.part_warnings(parts))
         findings.extend(self._loop_findings(margins, targets))
         findings.extend(self._opamp_findings(module, parts))
         return LoopResult(
-            design=self.design, stage=self.stage, targets=targets, f_hz=self.f_hz, feasible=True,
+            design=_with_targets(self.design, targets), stage=self.stage, targets=targets, f_hz=self.f_hz,
+            feasible=True,
             network=targets.network, parts_exact=dict(parts_exact), parts=parts, zeros_hz=tuple(zeros),
             poles_hz=tuple(poles), placement=placement, compensator=gc, compensator_exact=gc_exact, loop=loop,
             loop_exact=loop_x, plant_resp=self.plant_resp, comp_resp=comp_resp, loop_resp=resp,
-            loop_phase_deg=phase, loop_resp_exact=resp_x, margins=margins, margins_exact=margins_x,
-            worst_corner=worst, design_corner=corner, findings=tuple(_unique(findings)),
+            loop_phase_deg=phase, margins=margins, worst_corner=worst, design_corner=corner,
+            findings=tuple(_unique(findings)), session=self,
         )
 
     def _infeasible(self, targets, findings, field_name, value, allowed, reasons=()) -> LoopResult:
@@ -337,11 +370,11 @@ class LoopSession:
             message += " (" + "; ".join(reasons) + ")"
         findings = list(findings) + [Finding("infeasible", message, None)]
         return LoopResult(
-            design=self.design, stage=self.stage, targets=targets, f_hz=self.f_hz, feasible=False,
+            design=_with_targets(self.design, targets), stage=self.stage, targets=targets, f_hz=self.f_hz,
+            feasible=False,
             network=targets.network, parts_exact={}, parts={}, zeros_hz=(), poles_hz=(), placement=None,
             compensator=None, compensator_exact=None, loop=None, loop_exact=None, plant_resp=self.plant_resp,
-            comp_resp=None, loop_resp=None, loop_phase_deg=None, loop_resp_exact=None, margins=None,
-            margins_exact=None, worst_corner=-1, design_corner=-1, findings=tuple(_unique(findings)),
+            comp_resp=None, loop_resp=None, loop_phase_deg=None, margins=None, worst_corner=-1, design_corner=-1, findings=tuple(_unique(findings)),
         )
 
     # ------------------------------------------------------------------ findings
@@ -407,17 +440,30 @@ class LoopSession:
                         f" {format_value(short, 'Hz')}: choose an op-amp with more gain-bandwidth", None)]
 
 
-def _why_not_single_crossover(stage: StageResult, corner: int, m: Margins) -> str:
-    crossings = ", ".join(format_value(x, "Hz") for x in m.crossovers_hz[corner])
+def _why_not_single_crossover(stage: StageResult, corner: int, m: Margins, row: int) -> str:
+    crossings = ", ".join(format_value(x, "Hz") for x in m.crossovers_hz[row])
     where = corner_label(stage.vin[corner], stage.load[corner])
     text = (f"the network puts a crossover at the target, but at {where} the loop gain crosses 0 dB"
-            f" {m.n_crossovers[corner]} times ({crossings})")
-    if not m.stable[corner]:
+            f" {m.n_crossovers[row]} times ({crossings})")
+    if not m.stable[row]:
         text += " and the closed loop is unstable"
     if np.isfinite(stage.f0_hz[corner]):
         text += (f"; the double pole at {format_value(stage.f0_hz[corner], 'Hz')} (Q {stage.q[corner]:.1f})"
                  " peaks above 0 dB: cross over above it with Type III, or lower fc well below it")
     return text
+
+
+def _with_targets(design: Design, t: Targets) -> Design:
+    """The design as the targets set it (parts as they were)."""
+    c = design.compensator
+    if (c.network, c.fc, c.pm, c.boost_split, c.design_corner, c.resistor_series, c.capacitor_series, c.method) == (
+            t.network, t.fc_hz, t.pm_deg, t.boost_split, t.design_corner, t.resistor_series, t.capacitor_series,
+            t.method):
+        return design
+    comp = replace(c, network=t.network, fc=t.fc_hz, pm=t.pm_deg, boost_split=t.boost_split,
+                   design_corner=t.design_corner, resistor_series=t.resistor_series,
+                   capacitor_series=t.capacitor_series, method=t.method)
+    return replace(design, compensator=comp)
 
 
 def _worst_corner(m: Margins) -> int:
@@ -462,12 +508,9 @@ def design_loop(design: Design, targets: Targets | None = None, f_hz=None) -> Lo
 
 def apply_parts(design: Design, result: LoopResult) -> Design:
     """The design with the result's targets and snapped parts written back."""
-    t = result.targets
-    comp = replace(design.compensator, network=t.network, fc=t.fc_hz, pm=t.pm_deg, boost_split=t.boost_split,
-                   design_corner=t.design_corner, resistor_series=t.resistor_series,
-                   capacitor_series=t.capacitor_series, method=t.method,
-                   parts={k: float(v) for k, v in result.parts.items()})
-    return replace(design, compensator=comp)
+    targeted = _with_targets(design, result.targets)
+    comp = replace(targeted.compensator, parts={k: float(v) for k, v in result.parts.items()})
+    return replace(targeted, compensator=comp)
 
 
 def targets_with(targets: Targets, **changes) -> Targets:
