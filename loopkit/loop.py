@@ -103,7 +103,7 @@ class LoopResult:
     worst_corner: int
     design_corner: int
     findings: tuple = field(default_factory=tuple)
-    session: "LoopSession | None" = field(default=None, repr=False)
+    session: LoopSession | None = field(default=None, repr=False)
 
     @property
     def corner_labels(self) -> list[str]:

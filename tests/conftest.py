@@ -6,7 +6,7 @@ from pathlib import Path
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 
-import pytest  # noqa: E402
+import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLES = sorted((ROOT / "sample_designs").glob("*.toml"))
