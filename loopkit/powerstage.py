@@ -262,7 +262,7 @@ def _stage_findings(design, vin, load, out, dcm_mask, submode) -> list[Finding]:
             Finding(
                 "dcm",
                 f"{corner_label(vin[k], load[k])} runs in DCM (boundary at {format_value(out['load_boundary'][k], 'A')}):"
-                " modelled with the DCM averaged model (conduction losses other than the diode drop neglected)",
+                " modelled with the DCM averaged model",
                 int(k),
                 "note",
             )

@@ -14,7 +14,9 @@ zero at ``(D' e - I Req) / (I L)``, i.e. ``(D'^2 R - Req) / L`` to first order
 DCM (diode): on for D Ts at slope Vg/L, off for D2 Ts at (V' - Vg)/L with
 V' = V + VD; the diode current is ``i2 = D^2 Ts Vg^2 / (2 L (V' - Vg))``, which
 gives j2 = 2 Io/D, r2 = Re ((V' - Vg)/Vg)^2, g2 = Vg (2V' - Vg) / (Re (V' - Vg)^2)
-(Erickson & Maksimovic ch. 11, boost row).
+(Erickson & Maksimovic ch. 11, boost row).  Conduction losses: with the drops
+at each triangle's mean current ipk/2, Vg becomes a = Vg - (Ron + DCR) ipk/2 and
+V' - Vg becomes b = V + VD + (Rr + DCR) ipk/2 - Vg (fixed-point steps on ipk).
 """
 
 from __future__ import annotations
@@ -22,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..design import Stage
-from .base import CcmPoint, DcmPoint, pulsed_esr_resistance, solve_quadratic_dprime
+from .base import DCM_ITERATIONS, CcmPoint, DcmPoint, pulsed_esr_resistance, solve_quadratic_dprime
 
 __all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
 
@@ -60,18 +62,25 @@ def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
 
 
 def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
-    vg = np.asarray(vin, float)
-    v1 = float(vout) + stage.vf
-    io = np.asarray(load, float)
+    vg, io, v = np.asarray(vin, float), np.asarray(load, float), float(vout)
     ts, lh = 1.0 / stage.fsw, stage.inductance
-    duty = np.sqrt(2.0 * lh * io * (v1 - vg) / (ts * vg**2))
+    r_on, r_off = stage.r_switch + stage.dcr, stage.r_rectifier + stage.dcr
+    rp = pulsed_esr_resistance(stage, v / io)
+    i_peak = np.zeros_like(vg)
+    for _ in range(DCM_ITERATIONS):
+        # inductor voltage while rising (a) and falling (b): resistive drops at the mean current
+        # ipk/2, and the output's own rise (R || ESR) while the diode pulse flows into it
+        a = vg - 0.5 * i_peak * r_on
+        b = v + stage.vf + 0.5 * i_peak * r_off + rp * (0.5 * i_peak - io) - vg
+        duty = np.sqrt(2.0 * lh * io * b / (ts * a**2))
+        i_peak = a * duty * ts / lh
     re = 2.0 * lh / (duty**2 * ts)
     return DcmPoint(
         duty=duty,
-        d2=duty * vg / (v1 - vg),
-        i_peak=vg * duty * ts / lh,
+        d2=duty * a / b,
+        i_peak=i_peak,
         j2=2.0 * io / duty,
-        g2=vg * (2.0 * v1 - vg) / (re * (v1 - vg) ** 2),
-        r2=re * ((v1 - vg) / vg) ** 2,
+        g2=a * (a + 2.0 * b) / (re * b**2),
+        r2=re * (b / a) ** 2,
         sign=1.0,
     )

@@ -12,6 +12,10 @@ DCM (diode): the inductor current rises at (Vg - V)/L for D Ts and falls at
 (= output) current is ``i2 = D^2 Ts Vg' (Vg' - V') / (2 L V')``.  Its partial
 derivatives give j2 = 2 Io / D, r2 = Re (V'/Vg')^2 and g2 = (2 Vg' - V')/(Re V')
 with Re = 2 L / (D^2 Ts), the buck row of Erickson & Maksimovic ch. 11.
+Conduction losses: the inductor voltages while rising and falling are taken as
+a = Vg - V - (Ron + DCR) ipk/2 and b = V + VD + (Rr + DCR) ipk/2 (the drops at
+each triangle's mean current); the relations above hold with Vg' = a + b and
+V' = b, solved by a few fixed-point steps on ipk.
 """
 
 from __future__ import annotations
@@ -19,7 +23,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..design import Stage
-from .base import CcmPoint, DcmPoint
+from .base import DCM_ITERATIONS, CcmPoint, DcmPoint, pulsed_esr_resistance
 
 __all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
 
@@ -59,16 +63,25 @@ def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
 
 
 def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
-    vg1 = np.asarray(vin, float) + stage.vf
-    v1 = float(vout) + stage.vf
-    io = np.asarray(load, float)
+    vg, io, v = np.asarray(vin, float), np.asarray(load, float), float(vout)
     ts, lh = 1.0 / stage.fsw, stage.inductance
-    duty = np.sqrt(2.0 * lh * io * v1 / (ts * vg1 * (vg1 - v1)))
+    r_on, r_off = stage.r_switch + stage.dcr, stage.r_rectifier + stage.dcr
+    rp = pulsed_esr_resistance(stage, abs(v) / io)
+    i_peak = np.zeros_like(vg)
+    for _ in range(DCM_ITERATIONS):
+        # inductor voltage while rising (a) and falling (b): resistive drops at the mean current
+        # ipk/2, and the output's own rise (R || ESR) while it carries that pulse
+        ripple = rp * (0.5 * i_peak - io)
+        a = vg - v - 0.5 * i_peak * r_on - ripple
+        b = v + stage.vf + 0.5 * i_peak * r_off + ripple
+        duty = np.sqrt(2.0 * lh * io * b / (ts * a * (a + b)))
+        i_peak = a * duty * ts / lh
+    vg1, v1 = a + b, b  # the lossless relations hold with these effective voltages
     re = 2.0 * lh / (duty**2 * ts)
     return DcmPoint(
         duty=duty,
-        d2=duty * (vg1 - v1) / v1,
-        i_peak=(vg1 - v1) * duty * ts / lh,
+        d2=duty * a / b,
+        i_peak=i_peak,
         j2=2.0 * io / duty,
         g2=(2.0 * vg1 - v1) / (re * v1),
         r2=re * (v1 / vg1) ** 2,

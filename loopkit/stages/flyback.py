@@ -69,4 +69,7 @@ def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
 def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
     vg = np.asarray(vin, float)
     v1 = float(vout) + stage.vf
-    return energy_dcm(vg, v1, np.asarray(load, float), stage.inductance, 1.0 / stage.fsw, vg / (stage.turns_ratio * v1))
+    # the primary winding resistance carries current only while the switch is on
+    io = np.asarray(load, float)
+    return energy_dcm(vg, v1, io, stage.inductance, 1.0 / stage.fsw, stage.r_switch + stage.dcr,
+                      stage.r_rectifier, stage.turns_ratio, pulsed_esr_resistance(stage, float(vout) / io))

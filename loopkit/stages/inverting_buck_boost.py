@@ -15,7 +15,8 @@ the output more negative).  Ideal: |Gd0| = |V|/(D D'), RHP zero D'^2 R/(D L)
 DCM (diode): energy per cycle Vg^2 D^2 Ts/(2L) delivered to V' = |V| + VD:
 ``i2 = Vg^2 / (Re V')``; j2 = 2 Io/D, r2 = Re (V'/Vg)^2, g2 = 2 Vg/(Re V')
 (Erickson & Maksimovic ch. 11, buck-boost row); the current leaves the output
-node, so the model's sign is -1.
+node, so the model's sign is -1.  Conduction losses enter through the
+effective voltages of :func:`energy_dcm`.
 """
 
 from __future__ import annotations
@@ -23,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..design import Stage
-from .base import CcmPoint, DcmPoint, pulsed_esr_resistance, solve_quadratic_dprime
+from .base import DCM_ITERATIONS, CcmPoint, DcmPoint, pulsed_esr_resistance, solve_quadratic_dprime
 
 __all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
 
@@ -59,17 +60,32 @@ def ccm(stage: Stage, vin, load, vout: float) -> CcmPoint:
     )
 
 
-def energy_dcm(vg, v1, io, lh, ts, d2_per_d) -> DcmPoint:
-    """DCM point of a stage that stores Vg^2 D^2 Ts/(2L) and releases it all to V'."""
-    duty = np.sqrt(2.0 * lh * io * v1 / (ts * vg**2))
+def energy_dcm(vg, v1, io, lh, ts, r_on, r_off, turns=1.0, r_pulse=0.0) -> DcmPoint:
+    """DCM point of a stage that stores energy in L while on and releases it all to V' = |V| + VD.
+
+    ``r_on`` is the resistance in the inductor's path while it charges, ``r_off``
+    the one in the output-side path while it discharges (where the current is
+    ``turns`` times the primary current).  The drops are taken at the mean
+    current of each triangle; with them the lossless relations hold with the
+    effective voltages a = Vg - ipk r_on / 2 and b = V' + turns ipk r_off / 2:
+    Io = a^2 D^2 Ts / (2 L b).  ``r_pulse`` (R || ESR, see
+    :func:`.base.pulsed_esr_resistance`) adds the output's own rise while the
+    rectifier's pulse flows into it, r_pulse (turns ipk / 2 - Io), to b.
+    """
+    i_peak = np.zeros_like(vg)
+    for _ in range(DCM_ITERATIONS):
+        a = vg - 0.5 * i_peak * r_on
+        b = v1 + 0.5 * turns * i_peak * r_off + r_pulse * (0.5 * turns * i_peak - io)
+        duty = np.sqrt(2.0 * lh * io * b / (ts * a**2))
+        i_peak = a * duty * ts / lh
     re = 2.0 * lh / (duty**2 * ts)
     return DcmPoint(
         duty=duty,
-        d2=duty * d2_per_d,
-        i_peak=vg * duty * ts / lh,
+        d2=duty * a / (turns * b),
+        i_peak=i_peak,
         j2=2.0 * io / duty,
-        g2=2.0 * vg / (re * v1),
-        r2=re * (v1 / vg) ** 2,
+        g2=2.0 * a / (re * b),
+        r2=re * (b / a) ** 2,
         sign=1.0,
     )
 
@@ -77,5 +93,7 @@ def energy_dcm(vg, v1, io, lh, ts, d2_per_d) -> DcmPoint:
 def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
     vg = np.asarray(vin, float)
     v1 = abs(float(vout)) + stage.vf
-    point = energy_dcm(vg, v1, np.asarray(load, float), stage.inductance, 1.0 / stage.fsw, vg / v1)
+    io = np.asarray(load, float)
+    point = energy_dcm(vg, v1, io, stage.inductance, 1.0 / stage.fsw, stage.r_switch + stage.dcr,
+                       stage.r_rectifier + stage.dcr, 1.0, pulsed_esr_resistance(stage, abs(float(vout)) / io))
     return DcmPoint(**{**point.__dict__, "sign": -1.0})
