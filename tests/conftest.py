@@ -7,6 +7,13 @@ from pathlib import Path
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 
 import pytest
+from hypothesis import HealthCheck, settings
+
+# No per-example deadline (a loaded machine is slow, not wrong); in CI the examples are
+# derandomised so a run is repeatable, locally they stay random to keep finding new cases.
+settings.register_profile("local", deadline=None, suppress_health_check=[HealthCheck.too_slow])
+settings.register_profile("ci", parent=settings.get_profile("local"), derandomize=True)
+settings.load_profile("ci" if os.environ.get("CI") else "local")
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLES = sorted((ROOT / "sample_designs").glob("*.toml"))
