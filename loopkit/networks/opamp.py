@@ -48,6 +48,7 @@ __all__ = [
     "dc_limit_hz",
     "divider_parts",
     "fixed_r1",
+    "gain_checks",
     "gain_need",
     "gain_need_finding",
     "inverting_netlist",
@@ -456,3 +457,26 @@ def fixed_r1(network: str, fixed: dict) -> float:
             "compensator.parts.R1", "missing", f"{network} synthesis needs R1 (the divider's top resistor) fixed"
         )
     return check_parts(fixed, ("R1",), network)["R1"]
+
+
+def gain_checks(inverting_network, poles_zeros):
+    """``gain_need`` and ``gain_shortfall`` functions of an inverting network module.
+
+    ``gain_need(parts, ctx, f_hz)`` compares the network's noise gain with the
+    op-amp's gain (see :func:`gain_need`); ``gain_shortfall(parts, ctx, f_hz)``
+    is the lowest frequency (Hz) at which the network needs more gain than the
+    op-amp has, or None.  The low-frequency band where an integrator merely
+    meets the op-amp's dc gain is not counted; it ends at the network's lowest
+    zero at the latest.
+    """
+
+    def need(parts: dict, ctx, f_hz):
+        zeros = poles_zeros(parts, ctx)[0]
+        return gain_need(inverting_network(parts, ctx), ctx.opamp, f_hz, min(zeros) if zeros else np.inf)
+
+    def shortfall(parts: dict, ctx, f_hz) -> float | None:
+        return need(parts, ctx, f_hz).first_short_hz()
+
+    need.__doc__ = "Noise gain vs op-amp gain on ``f_hz`` (see :func:`loopkit.networks.opamp.gain_need`)."
+    shortfall.__doc__ = "Lowest frequency (Hz) where the network needs more gain than the op-amp has, or None."
+    return need, shortfall

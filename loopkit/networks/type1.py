@@ -15,8 +15,6 @@ integrator.
 
 from __future__ import annotations
 
-import math
-
 from ..rational import TWO_PI, Rational
 from .opamp import (
     InvertingNetwork,
@@ -25,14 +23,12 @@ from .opamp import (
     check_targets,
     divider_parts,
     fixed_r1,
+    gain_checks,
     inverting_netlist,
     inverting_transfer,
     shunt_of,
     y_capacitor,
     y_resistor,
-)
-from .opamp import (
-    gain_need as _gain_need,
 )
 from .spice import spice_number as sn
 
@@ -124,15 +120,4 @@ def netlist(parts: dict, ctx, title: str) -> str:
     )
 
 
-def gain_need(parts: dict, ctx, f_hz):
-    """Noise gain vs op-amp gain on ``f_hz`` (see :func:`loopkit.networks.opamp.gain_need`)."""
-    return _gain_need(inverting_network(parts, ctx), ctx.opamp, f_hz, math.inf)
-
-
-def gain_shortfall(parts: dict, ctx, f_hz) -> float | None:
-    """Lowest frequency (Hz) at which the network needs more gain than the op-amp has, or None.
-
-    The low-frequency band where an integrator merely meets the op-amp's dc
-    gain is not counted (see :func:`loopkit.networks.opamp.gain_need`).
-    """
-    return gain_need(parts, ctx, f_hz).first_short_hz()
+gain_need, gain_shortfall = gain_checks(inverting_network, poles_zeros)
