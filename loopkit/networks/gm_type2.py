@@ -44,6 +44,7 @@ __all__ = [
     "ZEROS",
     "divider_bottom",
     "netlist",
+    "part_value",
     "poles_zeros",
     "synthesise",
     "transfer",
@@ -114,13 +115,20 @@ def _gm(ctx: NetworkContext) -> float:
     return gm
 
 
-def _part(parts: dict, name: str) -> float:
+def part_value(parts: dict, name: str, network: str, needed: tuple, default: float | None = None) -> float:
+    """One part's value (ohm or farad), checked; ``default`` when it may be left out."""
     if name not in parts:
-        raise DesignError(f"compensator.parts.{name}", "missing", f"gm-type2 needs {', '.join(DESIGNATORS)}")
+        if default is not None:
+            return default
+        raise DesignError(f"compensator.parts.{name}", "missing", f"{network} needs {', '.join(needed)}")
     value = float(parts[name])
     if not (value > 0 and math.isfinite(value)):
         raise DesignError(f"compensator.parts.{name}", parts[name], "must be a finite value > 0")
     return value
+
+
+def _part(parts: dict, name: str) -> float:
+    return part_value(parts, name, "gm-type2", DESIGNATORS)
 
 
 def _values(parts: dict, ctx: NetworkContext) -> tuple[float, float, float, float, float]:

@@ -56,7 +56,7 @@ from ..errors import DesignError, InfeasibleDesign
 from ..rational import TWO_PI, Rational
 from ..units import format_value
 from . import NetworkContext
-from .gm_type2 import divider_bottom, type2_inputs
+from .gm_type2 import divider_bottom, part_value, type2_inputs
 from .spice import OPAMP_SUBCKT, ac_deck, opamp_subcircuit, spice_number
 
 __all__ = [
@@ -104,14 +104,7 @@ def _opto(ctx: NetworkContext) -> tuple[float, float, float, float]:
 
 
 def _part(parts: dict, name: str, default: float | None = None) -> float:
-    if name not in parts:
-        if default is not None:
-            return default
-        raise DesignError(f"compensator.parts.{name}", "missing", f"opto-type2 needs {', '.join(DESIGNATORS)}")
-    value = float(parts[name])
-    if not (value > 0 and math.isfinite(value)):
-        raise DesignError(f"compensator.parts.{name}", parts[name], "must be a finite value > 0")
-    return value
+    return part_value(parts, name, "opto-type2", DESIGNATORS, default)
 
 
 def _values(parts: dict, ctx: NetworkContext) -> tuple[float, float, float, float, float]:
