@@ -30,6 +30,7 @@ from . import __version__
 from .design import NETWORKS, Design
 from .designfile import load_design, save_design
 from .errors import DesignError, DesignFileError
+from .margins import GM_WORDS, gm_state
 from .powerstage import StageResult, analyse_stage
 from .tables import EMPTY, Column, format_table, wrap_note
 from .units import format_value, parse_value
@@ -191,6 +192,12 @@ def _part_unit(designator: str) -> str:
     return "F" if designator.startswith("C") else ""
 
 
+def _gm(m, k: int) -> str:
+    """The gain margin as the CLI, JSON and app write it: a number, "none" or "beyond fsw/2"."""
+    state = gm_state(m)[k]
+    return _plain(m.gm_db[k], ".1f") if state == "number" else GM_WORDS[state]
+
+
 def _angle(value: float) -> str:
     return _plain(value, ".1f")
 
@@ -268,12 +275,12 @@ def _margins_table(result) -> str:
                 _mode_text(st, k),
                 _fmt(m.fc_hz[k]),
                 _angle(m.pm_deg[k]),
-                _plain(m.gm_db[k], ".1f"),
+                _gm(m, k),
                 _fmt(m.delay_margin_s[k]),
                 "yes" if m.stable[k] else "NO",
                 _fmt(mx.fc_hz[k]),
                 _angle(mx.pm_deg[k]),
-                _plain(mx.gm_db[k], ".1f"),
+                _gm(mx, k),
             ]
         )
     if _given(result):  # the given parts are built as they are: one set of figures
@@ -317,7 +324,9 @@ def design_text(result, path: str = "") -> str:
             _margins_table(result),
             wrap_note(
                 "fc: gain crossover (the lowest if several). PM, GM: phase and gain margin"
-                f" (GM {EMPTY}: the phase never reaches -180 deg). Delay: delay margin."
+                f" (GM {GM_WORDS['none']}: the phase never reaches -180 deg below fsw/2; {GM_WORDS['beyond-model']}:"
+                " it does only above half the switching frequency, where the averaged model does not predict"
+                " it). Delay: delay margin."
                 " Stable: from the closed-loop poles. *: worst corner (lowest phase margin with the"
                 " parts to build)."
                 + (

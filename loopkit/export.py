@@ -13,6 +13,7 @@ import math
 
 from . import __version__, eseries
 from .loop import CAUTION, LoopResult
+from .margins import gm_state
 from .networks import network_module
 from .units import format_value
 
@@ -117,9 +118,12 @@ def results_document(result: LoopResult) -> dict:
         if m is not None:
             corner.update({
                 "fc_hz": _num(m.fc_hz[k]), "pm_deg": _num(m.pm_deg[k]), "gm_db": _num(m.gm_db[k]),
+                "gm_state": str(gm_state(m)[k]), "f180_hz": _num(m.f180_hz[k]),
+                "f180_beyond_model_hz": _num(m.f180_beyond_hz[k]),
                 "delay_margin_s": _num(m.delay_margin_s[k]), "stable": bool(m.stable[k]),
                 "crossovers_hz": [float(x) for x in m.crossovers_hz[k]], "conditional": bool(m.conditional[k]),
-                "exact_parts": {"fc_hz": _num(mx.fc_hz[k]), "pm_deg": _num(mx.pm_deg[k]), "gm_db": _num(mx.gm_db[k])},
+                "exact_parts": {"fc_hz": _num(mx.fc_hz[k]), "pm_deg": _num(mx.pm_deg[k]), "gm_db": _num(mx.gm_db[k]),
+                                "gm_state": str(gm_state(mx)[k])},
             })
         doc["corners"].append(corner)
     return doc

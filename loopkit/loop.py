@@ -131,7 +131,7 @@ class LoopResult:
         if self.compensator_exact is self.compensator:
             return self.margins
         resp, phase = self._exact_on_grid
-        return loop_margins(self.loop_exact, self.f_hz, resp, phase)
+        return loop_margins(self.loop_exact, self.f_hz, resp, phase, self.design.stage.fsw / 2)
 
     @functools.cached_property
     def loop_mag_db(self) -> np.ndarray | None:
@@ -348,12 +348,12 @@ class LoopSession:
         loop_x = -(self.uncompensated * gc_exact)
         if placement is not None:  # the synthesised loop must cross once, stably, at the design corner
             _, _, resp_c, phase_c = self._loop_on_grid(gc_exact, corner)
-            at_corner = loop_margins(loop_x.take(corner), self.f_hz, resp_c, phase_c)
+            at_corner = loop_margins(loop_x.take(corner), self.f_hz, resp_c, phase_c, self.design.stage.fsw / 2)
             if at_corner.n_crossovers[0] != 1 or not at_corner.stable[0]:
                 return self._infeasible(targets, findings, "compensator.fc", format_value(targets.fc_hz, "Hz"),
                                         _why_not_single_crossover(self.stage, corner, at_corner, 0))
         loop, comp_resp, resp, phase = self._loop_on_grid(gc)
-        margins = loop_margins(loop, self.f_hz, resp, phase)
+        margins = loop_margins(loop, self.f_hz, resp, phase, self.design.stage.fsw / 2)
         zeros, poles = module.poles_zeros(parts, self.ctx)
         worst = _worst_corner(margins)
         findings.extend(eseries.part_warnings(parts))

@@ -16,7 +16,10 @@ import numpy as np
 
 from .rational import Rational
 
-__all__ = ["Margins", "loop_margins"]
+__all__ = ["GM_WORDS", "Margins", "gm_state", "loop_margins"]
+
+#: How a gain margin that is not a number is written, in the CLI, the JSON (``gm_state``) and the app alike.
+GM_WORDS = {"none": "none", "beyond-model": ">fsw/2"}
 
 
 @dataclass(frozen=True, eq=False)
@@ -51,6 +54,15 @@ class Margins:
         True where every root of 1 + T(s) lies in the open left half plane.
     beyond_grid : ndarray of bool
         True where |T| > 1 at the top of the grid (a crossover may lie above it).
+    gm_beyond_model : ndarray of bool
+        True where a phase crossover with |T| < 1 lies above the model's limit
+        (``model_limit_hz`` of :func:`loop_margins`, half the switching
+        frequency for the averaged models) and would set a smaller gain margin
+        than ``gm_db``: the model cannot predict that margin, so it is not
+        reported as a number (``gm_db`` and ``f180_hz`` come from the phase
+        crossovers below the limit only).
+    f180_beyond_hz : ndarray
+        That phase crossover above the limit; NaN where there is none.
     """
 
     fc_hz: np.ndarray
@@ -64,6 +76,15 @@ class Margins:
     conditional: np.ndarray
     stable: np.ndarray
     beyond_grid: np.ndarray
+    gm_beyond_model: np.ndarray
+    f180_beyond_hz: np.ndarray
+
+
+def gm_state(m: Margins) -> np.ndarray:
+    """Per corner: ``"number"`` (``gm_db`` is the gain margin), ``"none"`` (the phase never
+    reaches -180 deg with |T| < 1 below the model's limit) or ``"beyond-model"`` (it does only above
+    half the switching frequency, where the averaged model does not predict it)."""
+    return np.where(m.gm_beyond_model, "beyond-model", np.where(np.isfinite(m.gm_db), "number", "none"))
 
 
 def _local(sub: Rational, f: np.ndarray, which: str) -> tuple[np.ndarray, np.ndarray]:
@@ -165,7 +186,7 @@ def _hidden_pairs(loop: Rational, f_hz: np.ndarray, values: np.ndarray, which: s
 
 
 def loop_margins(loop: Rational, f_hz: np.ndarray, resp: np.ndarray | None = None,
-                 phase_deg: np.ndarray | None = None) -> Margins:
+                 phase_deg: np.ndarray | None = None, model_limit_hz: float = np.inf) -> Margins:
     """Margins of the loop gain ``loop`` (T(s), one row per corner).
 
     Parameters
@@ -177,6 +198,10 @@ def loop_margins(loop: Rational, f_hz: np.ndarray, resp: np.ndarray | None = Non
         Increasing frequency grid used to bracket the crossings.
     resp, phase_deg : ndarray (corners, nf), optional
         T on the grid and its continuous phase, if already computed.
+    model_limit_hz : float, optional
+        Frequency above which the loop model does not hold (half the switching
+        frequency for an averaged model): a phase crossover above it gives no
+        gain margin, only the flag ``gm_beyond_model``.
 
     Returns
     -------
@@ -248,15 +273,20 @@ def loop_margins(loop: Rational, f_hz: np.ndarray, resp: np.ndarray | None = Non
     out_f180 = np.full(n, np.nan)
     out_gml = np.full(n, np.inf)
     conditional = np.zeros(n, bool)
+    beyond_gm = np.full(n, np.inf)
+    out_f180_beyond = np.full(n, np.nan)
     if prow.size:
         upper = mag180 < 1.0
-        if np.any(upper):
-            r, m, fr = prow[upper], mag180[upper], f180[upper]
-            order = np.lexsort((m, r))  # by corner, then |T| ascending: the last of each corner wins
-            r, m, fr = r[order], m[order], fr[order]
-            last = np.r_[r[1:] != r[:-1], True]
-            out_gm[r[last]] = -20.0 * np.log10(m[last])
-            out_f180[r[last]] = fr[last]
+        for inside, gm_out, f_out in ((f180 <= model_limit_hz, out_gm, out_f180),
+                                      (f180 > model_limit_hz, beyond_gm, out_f180_beyond)):
+            pick = upper & inside
+            if np.any(pick):
+                r, m, fr = prow[pick], mag180[pick], f180[pick]
+                order = np.lexsort((m, r))  # by corner, then |T| ascending: the last of each corner wins
+                r, m, fr = r[order], m[order], fr[order]
+                last = np.r_[r[1:] != r[:-1], True]
+                gm_out[r[last]] = -20.0 * np.log10(m[last])
+                f_out[r[last]] = fr[last]
         lower = mag180 > 1.0
         if np.any(lower):
             np.minimum.at(out_gml, prow[lower], 20.0 * np.log10(mag180[lower]))
@@ -270,4 +300,5 @@ def loop_margins(loop: Rational, f_hz: np.ndarray, resp: np.ndarray | None = Non
         fc_hz=out_fc, pm_deg=out_pm, gm_db=out_gm, f180_hz=out_f180, gm_low_db=out_gml,
         delay_margin_s=out_dm, n_crossovers=n_cross, crossovers_hz=tuple(crossings),
         conditional=conditional, stable=stable, beyond_grid=log_mag[:, -1] > 0,
+        gm_beyond_model=beyond_gm < out_gm, f180_beyond_hz=np.where(beyond_gm < out_gm, out_f180_beyond, np.nan),
     )

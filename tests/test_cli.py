@@ -22,6 +22,7 @@ import pytest
 
 from loopkit import analyse_stage, format_value, load_design
 from loopkit.cli import CAUTION, main
+from loopkit.margins import GM_WORDS, gm_state
 
 ROOT = Path(__file__).resolve().parents[1]
 BUCK = ROOT / "sample_designs" / "buck_24v_3v3.toml"
@@ -284,7 +285,8 @@ def test_design_text_matches_loop_result(capsys, sample_path):
         tail = cells[-8:]  # fc PM GM Delay Stable | fc PM GM
         assert tail[0] == _fmt(m.fc_hz[k])
         assert tail[1] == (f"{m.pm_deg[k]:.1f}" if np.isfinite(m.pm_deg[k]) else "-")
-        assert tail[2] == (f"{m.gm_db[k]:.1f}" if np.isfinite(m.gm_db[k]) else "-")
+        state = gm_state(m)[k]
+        assert tail[2] == (f"{m.gm_db[k]:.1f}" if state == "number" else GM_WORDS[state])
         assert tail[4] == ("yes" if m.stable[k] else "NO")
         assert tail[5] == _fmt(mx.fc_hz[k])
         assert tail[6] == (f"{mx.pm_deg[k]:.1f}" if np.isfinite(mx.pm_deg[k]) else "-")
@@ -356,7 +358,7 @@ def test_design_write_round_trip(capsys, tmp_path):
     assert first[-5:] == [
         _fmt(again.margins.fc_hz[0]),
         f"{again.margins.pm_deg[0]:.1f}",
-        f"{again.margins.gm_db[0]:.1f}",
+        f"{again.margins.gm_db[0]:.1f}" if gm_state(again.margins)[0] == "number" else GM_WORDS[gm_state(again.margins)[0]],
         _fmt(again.margins.delay_margin_s[0]),
         "yes",
     ]
