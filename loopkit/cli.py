@@ -44,8 +44,26 @@ SERIES = ("E6", "E12", "E24", "E48", "E96", "E192", "none")
 
 #: Exit status for bad input (argparse uses the same).
 EXIT_BAD_INPUT = 2
-#: Exit status of ``design`` when the targets cannot be met (the report says why).
-EXIT_INFEASIBLE = 1
+#: Exit status of every command that reports a loop when it does not meet its targets at every
+#: corner (or no parts meet them): the report says which corner and why.
+EXIT_NOT_MET = 1
+
+
+def _verdict_status(result, command: str, file: str) -> int:
+    """0 when the loop meets its targets at every corner; else a line on stderr and :data:`EXIT_NOT_MET`."""
+    if result is None or result.met:
+        return 0
+    errors = [f for f in result.findings if f.severity == "error"]
+    corners = sorted({f.corner for f in errors if f.corner is not None})
+    if not result.feasible:
+        why = "the targets cannot be met (the report says why)"
+    elif corners:
+        why = (f"{len(corners)} of {result.stage.n_corners} corners miss the targets"
+               f" ({', '.join(sorted({f.code for f in errors}))}; `loopkit design {file}` says which and why)")
+    else:
+        why = f"{errors[0].message}"
+    print(f"loopkit {command}: {file}: not met: {why}", file=sys.stderr)
+    return EXIT_NOT_MET
 
 
 class _Parser(argparse.ArgumentParser):
@@ -408,7 +426,7 @@ def _cmd_bode(args) -> int:
     text = bode_table(f_hz, curves)
     if args.csv in (None, "-"):
         sys.stdout.write(text)
-        return 0
+        return _verdict_status(result, "bode", args.file)
     _write_text(args.csv, text)
     what = " + ".join(kinds)
     print(
@@ -418,7 +436,7 @@ def _cmd_bode(args) -> int:
         )
     )
     print(CAUTION)
-    return 0
+    return _verdict_status(result, "bode", args.file)
 
 
 def _write_text(path: str, text: str) -> None:
@@ -516,10 +534,7 @@ def _cmd_design(args) -> int:
 
         save_design(apply_parts(design, result), args.file)
         print(f"saved the parts and targets to {args.file}", file=sys.stderr if args.json else sys.stdout)
-    if not result.feasible:
-        print(f"loopkit design: {args.file}: the targets cannot be met (the report says why)", file=sys.stderr)
-        return EXIT_INFEASIBLE
-    return 0
+    return _verdict_status(result, "design", args.file)
 
 
 def _cmd_export(args) -> int:
@@ -541,7 +556,7 @@ def _cmd_export(args) -> int:
             written.append(path)
     print(wrap_note(f"wrote {', '.join(written)}"))
     print(CAUTION)
-    return 0
+    return _verdict_status(result, "export", args.file)
 
 
 def _network_drawing(result) -> str:

@@ -18,6 +18,7 @@ from .eseries import SERIES_NAMES
 from .units import format_value
 
 __all__ = [
+    "METHODS",
     "NETWORKS",
     "TOPOLOGIES",
     "CapacitorBank",
@@ -33,6 +34,9 @@ __all__ = [
 
 #: Topology names accepted in ``stage.topology``.
 TOPOLOGIES = ("buck", "boost", "inverting-buck-boost", "four-switch-buck-boost", "flyback")
+
+#: Synthesis methods accepted in ``compensator.method``.
+METHODS = ("auto", "k-factor", "placement")
 
 #: Compensator network names accepted in ``compensator.network``.
 NETWORKS = ("type1", "type2", "type3", "gm-type2", "opto-type2")
@@ -256,9 +260,21 @@ class Modulator:
         _between("modulator.max_duty", self.max_duty, 0.0, 1.0, "0 and 1")
 
 
+#: The error amplifier a design gets when it names none: a typical general-purpose op-amp of
+#: 100 dB open-loop gain and 10 MHz gain-bandwidth (common practice, no source).  A design file
+#: asks for an ideal amplifier explicitly with ``ideal = true`` in ``[compensator.opamp]``.
+TYPICAL_OPAMP_GAIN_DB = 100.0
+TYPICAL_OPAMP_GBW_HZ = 10e6
+
+
 @dataclass(frozen=True)
 class OpAmp:
-    """Error amplifier non-idealities (0 = ideal)."""
+    """Error amplifier non-idealities (0 = unlimited; both 0 = the ideal amplifier).
+
+    ``gain_db`` (dc open-loop gain, dB) and ``gbw`` (Hz) describe an op-amp; ``gm`` (S) and
+    ``r_out`` (ohm) the transconductance amplifier of ``gm-type2``.  :meth:`typical` is the
+    part a design gets when it names none.
+    """
 
     gain_db: float = 0.0
     gbw: float = 0.0
@@ -270,6 +286,11 @@ class OpAmp:
         _non_negative("compensator.opamp.gbw", self.gbw, "Hz")
         _non_negative("compensator.opamp.gm", self.gm, "S")
         _non_negative("compensator.opamp.r_out", self.r_out, "Ω")
+
+    @classmethod
+    def typical(cls) -> OpAmp:
+        """A typical general-purpose op-amp (:data:`TYPICAL_OPAMP_GAIN_DB`, :data:`TYPICAL_OPAMP_GBW_HZ`)."""
+        return cls(gain_db=TYPICAL_OPAMP_GAIN_DB, gbw=TYPICAL_OPAMP_GBW_HZ)
 
     @property
     def ideal(self) -> bool:
@@ -290,8 +311,16 @@ class Compensator:
         Target phase margin, deg.
     design_corner : int or None
         Corner index to design at; None = the worst corner.
+    gm_db : float
+        Target gain margin, dB (default 6 dB, common practice, no source).
+    fc_band : float
+        Every CCM corner's crossover must lie within ``fc / fc_band`` to ``fc * fc_band``
+        (default 2: an octave either side); DCM corners cross lower by nature and are
+        judged on phase and gain margin only.
     method : str
-        ``"k-factor"`` (Venable) or ``"placement"`` (explicit poles and zeros).
+        ``"auto"`` (Venable's K-factor, then, where a corner misses the targets, a search of
+        the poles and zeros for the worst corner), ``"k-factor"`` (Venable only) or
+        ``"placement"`` (explicit poles and zeros).
     boost_split : float
         Type III: fraction of the phase boost taken by the zero pair (0.5 = even).
     resistor_series, capacitor_series : str
@@ -308,13 +337,15 @@ class Compensator:
     fc: float = 0.0
     pm: float = 60.0
     design_corner: int | None = None
-    method: str = "k-factor"
+    method: str = "auto"
+    gm_db: float = 6.0
+    fc_band: float = 2.0
     boost_split: float = 0.5
     resistor_series: str = "E96"
     capacitor_series: str = "E12"
     parts: dict = field(default_factory=dict)
     placement: dict = field(default_factory=dict)
-    opamp: OpAmp = field(default_factory=OpAmp)
+    opamp: OpAmp = field(default_factory=OpAmp.typical)
     opto: dict = field(default_factory=dict)
 
     def __post_init__(self):
@@ -322,8 +353,11 @@ class Compensator:
             raise DesignError("compensator.network", self.network, f"must be one of {', '.join(NETWORKS)}")
         _non_negative("compensator.fc", self.fc, "Hz")
         _between("compensator.pm", self.pm, 0.0, 180.0, "0 and 180 deg")
-        if self.method not in ("k-factor", "placement"):
-            raise DesignError("compensator.method", self.method, "must be k-factor or placement")
+        if self.method not in METHODS:
+            raise DesignError("compensator.method", self.method, f"must be one of {', '.join(METHODS)}")
+        _between("compensator.gm_db", self.gm_db, 0.0, 60.0, "0 and 60 dB")
+        if not (1.0 < self.fc_band <= 100.0):
+            raise DesignError("compensator.fc_band", self.fc_band, "must be above 1 and at most 100 (a factor)")
         _between("compensator.boost_split", self.boost_split, 0.0, 1.0, "0 and 1")
         for name in ("resistor_series", "capacitor_series"):
             value = getattr(self, name)

@@ -55,7 +55,7 @@ import re
 import secrets
 import stat
 import tomllib
-from dataclasses import MISSING, fields
+from dataclasses import MISSING, fields, replace
 from pathlib import Path
 
 import numpy as np
@@ -96,6 +96,8 @@ _UNITS = {
 #: Dimensionless fields written as plain TOML numbers (the rest as engineering text).
 _PLAIN_NUMBERS = {
     "pm",
+    "gm_db",
+    "fc_band",
     "max_duty",
     "turns_ratio",
     "buck_max_duty",
@@ -268,6 +270,22 @@ def _part_unit(designator: str) -> str | None:
     return "ohm" if is_resistor(designator) else "F" if is_capacitor(designator) else None
 
 
+def _opamp(table: dict, where: str) -> OpAmp:
+    """The error amplifier: the typical part, with what the file gives; ``ideal = true`` for an ideal one."""
+    table = dict(table)
+    ideal = table.pop("ideal", False)
+    if not isinstance(ideal, bool):
+        raise DesignError(f"{where}.ideal", ideal, "must be true or false")
+    given = _section(OpAmp, table, where)
+    if ideal:
+        for key in ("gain_db", "gbw"):
+            if key in table:
+                raise DesignError(f"{where}.{key}", table[key], "leave it out when ideal = true")
+        return replace(given, gain_db=0.0, gbw=0.0)
+    typical = OpAmp.typical()
+    return replace(given, **{k: getattr(typical, k) for k in ("gain_db", "gbw") if k not in table})
+
+
 def _compensator(table: dict) -> Compensator:
     where = "compensator"
     sub = {}
@@ -281,7 +299,7 @@ def _compensator(table: dict) -> Compensator:
     opto = _table(table.get("opto", {}), f"{where}.opto")
     _check_keys(opto, set(OPTO_KEYS), f"{where}.opto")
     sub["opto"] = {k: parse_value(v, f"{where}.opto.{k}", OPTO_KEYS[k] or None) for k, v in opto.items()}
-    sub["opamp"] = _section(OpAmp, _table(table.get("opamp", {}), f"{where}.opamp"), f"{where}.opamp")
+    sub["opamp"] = _opamp(_table(table.get("opamp", {}), f"{where}.opamp"), f"{where}.opamp")
     corner = table.get("design_corner", "worst")
     if corner == "worst":
         corner = None
@@ -451,8 +469,13 @@ def design_to_dict(design: Design) -> dict:
         compensator = _without(compensator, Compensator, {"boost_split"})
     compensator["design_corner"] = "worst" if comp.design_corner is None else comp.design_corner
     opamp = {f.name: getattr(comp.opamp, f.name) for f in fields(OpAmp)}
-    unused = {"gain_db", "gbw"} if comp.network == "gm-type2" else {"gm", "r_out"}
-    opamp = _without(opamp, OpAmp, unused)
+    if comp.network == "gm-type2":  # gain_db, gbw unused by a gm amplifier: written only where changed
+        typical = OpAmp.typical()
+        opamp = {k: v for k, v in opamp.items() if k in ("gm", "r_out") or v != getattr(typical, k)}
+    elif comp.opamp.ideal:
+        opamp = {"ideal": True}
+    else:
+        opamp = _without(opamp, OpAmp, {"gm", "r_out"})
     if opamp:
         compensator["opamp"] = opamp
     for name in ("parts", "placement", "opto"):

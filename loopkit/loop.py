@@ -28,6 +28,8 @@ from .networks.sensing import sensing_transfer
 from .powerstage import StageResult, analyse_stage, corner_label
 from .rational import Rational
 from .synthesis import Placement, place
+from .verdict import model_findings, verdict_findings
+from .worst_corner import search_placement
 from .units import format_value
 
 __all__ = [
@@ -46,9 +48,10 @@ __all__ = [
 CAUTION = ("loopkit is a design aid: verify every loop on the bench (measured loop gain, load steps) before use."
            " Converters store energy and may carry hazardous voltages; follow local codes and licensed practice.")
 
-#: Common practice, no source: phase margin below this is flagged.
+#: Fixed-point steps correcting gain (and boost) for a finite amplifier at the design corner.
+SOLVE_STEPS = 40
+#: Kept for the app's colours until they follow the targets (common practice, no source).
 PM_WARN_DEG = 45.0
-#: Common practice, no source: gain margin below this is flagged.
 GM_WARN_DB = 6.0
 
 
@@ -63,13 +66,15 @@ class Targets:
     design_corner: int | None = None
     resistor_series: str = "E96"
     capacitor_series: str = "E12"
-    method: str = "k-factor"
+    method: str = "auto"
+    gm_db: float = 6.0
+    fc_band: float = 2.0
 
     @classmethod
     def from_design(cls, design: Design) -> Targets:
         c = design.compensator
         return cls(c.network, c.fc, c.pm, c.boost_split, c.design_corner, c.resistor_series,
-                   c.capacitor_series, c.method)
+                   c.capacitor_series, c.method, c.gm_db, c.fc_band)
 
 
 @dataclass(frozen=True, eq=False)
@@ -104,6 +109,11 @@ class LoopResult:
     design_corner: int
     findings: tuple = field(default_factory=tuple)
     session: LoopSession | None = field(default=None, repr=False)
+
+    @property
+    def met(self) -> bool:
+        """True when parts exist and no finding is an error (every corner meets every target)."""
+        return self.feasible and not any(f.severity == "error" for f in self.findings)
 
     @property
     def corner_labels(self) -> list[str]:
@@ -258,17 +268,72 @@ class LoopSession:
         try:
             parts, placement = self._solve(module, targets, corner)
         except InfeasibleDesign as exc:
-            return self._infeasible(targets, findings, exc.field, exc.value, exc.allowed, exc.reasons)
+            parts, placement, failure = None, None, exc
+        if targets.method == "auto" and module.ZEROS > 0:
+            if parts is None or self._shortfall(module, parts, targets):
+                searched = self._search(module, targets, corner, placement)
+                if searched is not None and (parts is None or self._shortfall(module, searched[0], targets)
+                                             < self._shortfall(module, parts, targets)):
+                    parts, placement = searched
+        if parts is None:
+            return self._infeasible(targets, findings, failure.field, failure.value, failure.allowed, failure.reasons)
         findings.extend(placement.notes)
         return self._assemble(targets, parts, placement, corner, findings)
 
-    def _solve(self, module, targets: Targets, corner: int) -> tuple[dict, Placement]:
+    def _shortfall(self, module, parts: dict, targets: Targets) -> tuple[int, float]:
+        """(number of corners missing a target, -worst PM excess) of a network: lower is better."""
+        gc = module.transfer(parts, self.ctx)
+        loop, _, resp, phase = self._loop_on_grid(gc)
+        m = loop_margins(loop, self.f_hz, resp, phase, self.design.stage.fsw / 2)
+        misses = verdict_findings(m, self.stage, targets, self.design.stage.fsw)
+        worst = np.nanmin(np.where(m.stable, m.pm_deg, -180.0)) - targets.pm_deg
+        return len({f.corner for f in misses}), -float(worst)
+
+    def _search(self, module, targets: Targets, corner: int, kfactor: Placement | None):
+        """Parts from the worst-corner placement search (:mod:`loopkit.worst_corner`), or None."""
+        fc, fsw = targets.fc_hz, self.design.stage.fsw
+        integrator = Rational.from_factors(-1.0, (), [(0.0, 1.0)]).broadcast(self.stage.n_corners)
+        _, _, t0, t0_phase = self._loop_on_grid(integrator)
+        defaults = self._placement_defaults(corner)
+        n_z, n_p = module.ZEROS, module.POLES
+        starts = [((defaults["f_zero"],) * n_z, (defaults["f_pole1"], defaults["f_pole2"])[:n_p])]
+        if kfactor is not None:
+            starts.append((kfactor.zeros_hz, kfactor.poles_hz))
+        low = np.nanmin(np.r_[self.stage.f0_hz, self.stage.fp_hz, fc])
+        found = search_placement(
+            t0, t0_phase, self.f_hz, n_zeros=n_z, n_poles=n_p, fc_hz=fc, pm_deg=targets.pm_deg,
+            gm_db=targets.gm_db, fc_band=targets.fc_band, design_corner=corner, ccm=~self.stage.dcm,
+            model_limit_hz=fsw / 2, zero_bounds_hz=(max(low / 10.0, self.f_hz[0]), fc),
+            pole_bounds_hz=(1.5 * fc, fsw / 2), starts=starts)
+        keys = ("fz1", "fz2", "fp1", "fp2") if n_z == 2 else ("fz", "fp")
+        best = None
+        for candidate in found:  # checked on the exact loop: the search scores a coarse grid
+            explicit = dict(zip(keys, candidate.zeros_hz + candidate.poles_hz))
+            try:
+                parts, placement = self._solve(module, replace(targets, method="placement"), corner, explicit)
+            except InfeasibleDesign:
+                continue
+            score = self._shortfall(module, parts, targets)
+            if best is None or score < best[0]:
+                best = (score, parts, placement, candidate)
+        if best is None:
+            return None
+        _, parts, placement, candidate = best
+        note = Finding("placement-searched",
+                       "the K-factor placement left corners below the targets: zeros and poles were placed for the"
+                       f" worst corner instead (zeros {', '.join(format_value(z, 'Hz') for z in candidate.zeros_hz)};"
+                       f" poles {', '.join(format_value(p, 'Hz') for p in candidate.poles_hz)})", None, "note")
+        return parts, replace(placement, notes=placement.notes + (note,))
+
+    def _solve(self, module, targets: Targets, corner: int, explicit: dict | None = None) -> tuple[dict, Placement]:
         """Parts meeting fc and PM at the design corner, on the network's real transfer.
 
         The placement is exact for the ideal network; with a finite op-amp the
         gain and boost are corrected by a few fixed-point steps until the loop
         at the design corner meets the targets (|T(fc)| within 1e-7, PM within
         1e-4 deg); if it does not settle, a finding says how far it is off.
+        ``explicit`` gives the zeros and poles (placement keys) instead of the
+        design's own ``[compensator.placement]``.
         """
         f = np.array([targets.fc_hz])
         tu = self.uncompensated.take(corner)
@@ -277,15 +342,16 @@ class LoopSession:
         defaults = self._placement_defaults(corner)
         pm_goal, gain_scale = targets.pm_deg, 1.0
         fixed = {"R1": self.r1} if "R1" in module.DESIGNATORS else {}
-        for _ in range(8):
+        given = self.design.compensator.placement if explicit is None else explicit
+        for _ in range(SOLVE_STEPS):
             placement = place(targets.network, targets.method, targets.fc_hz, pm_goal, tu_fc * gain_scale, tu_ph,
-                              corner, targets.boost_split, self.design.compensator.placement, defaults)
+                              corner, targets.boost_split, given, defaults)
             parts = module.synthesise(targets.fc_hz, placement.gain_at_fc, placement.zeros_hz, placement.poles_hz,
                                       self.ctx, fixed)
             gc = module.transfer(parts, self.ctx)
             mag = abs(tu_fc * complex(gc.response(f)[0, 0]))
             pm_now = (tu_ph + float(gc.phase_deg(f)[0, 0]) + 360.0 + 180.0) % 360.0 - 180.0
-            pm_free = (targets.method == "k-factor" and targets.network != "type1"
+            pm_free = (targets.method != "placement" and targets.network != "type1"
                        and abs(placement.boost_deg - placement.required_boost_deg) < 1e-6)
             if abs(mag - 1.0) < 1e-7 and (not pm_free or abs(pm_now - targets.pm_deg) < 1e-4):
                 break
@@ -351,7 +417,8 @@ class LoopSession:
             at_corner = loop_margins(loop_x.take(corner), self.f_hz, resp_c, phase_c, self.design.stage.fsw / 2)
             if at_corner.n_crossovers[0] != 1 or not at_corner.stable[0]:
                 return self._infeasible(targets, findings, "compensator.fc", format_value(targets.fc_hz, "Hz"),
-                                        _why_not_single_crossover(self.stage, corner, at_corner, 0))
+                                        _why_not_single_crossover(self.stage, corner, at_corner, 0,
+                                                                  targets.network, targets.fc_hz))
         loop, comp_resp, resp, phase = self._loop_on_grid(gc)
         margins = loop_margins(loop, self.f_hz, resp, phase, self.design.stage.fsw / 2)
         zeros, poles = module.poles_zeros(parts, self.ctx)
@@ -387,10 +454,7 @@ class LoopSession:
         out = []
         fc, fsw = targets.fc_hz, self.design.stage.fsw
         st = self.stage
-        if fc > fsw / 5:
-            out.append(Finding("fc-fsw", f"crossover {format_value(fc, 'Hz')} is above fsw/5"
-                               f" ({format_value(fsw / 5, 'Hz')}; common practice): the averaged model and the"
-                               " modulator's sampling delay lose accuracy there; lower fc"))
+        out.extend(model_findings(fc, fsw))
         if np.isfinite(self._rhp_min) and fc > self._rhp_min / 3:
             k = int(np.nanargmin(st.f_rhp_hz))
             out.append(Finding("rhp-zero", f"crossover {format_value(fc, 'Hz')} is above one third of the RHP zero"
@@ -410,28 +474,20 @@ class LoopSession:
 
     def _loop_findings(self, m: Margins, targets: Targets) -> list[Finding]:
         st = self.stage
-        out = []
+        out = verdict_findings(m, st, targets, self.design.stage.fsw)
         for k in range(st.n_corners):
             where = corner_label(st.vin[k], st.load[k])
-            if not m.stable[k]:
-                out.append(Finding("unstable", f"{where}: the closed loop is UNSTABLE (a root of 1+T lies in the"
-                                   " right half plane)", k))
-            if m.n_crossovers[k] == 0:
-                out.append(Finding("no-crossover", f"{where}: the loop gain never crosses 0 dB on the grid", k))
-            elif m.n_crossovers[k] > 1:
-                shown = ", ".join(format_value(x, "Hz") for x in m.crossovers_hz[k])
-                out.append(Finding("multiple-crossovers", f"{where}: {m.n_crossovers[k]} gain crossovers ({shown})", k))
             if m.conditional[k]:
                 out.append(Finding("conditional", f"{where}: conditionally stable: a gain drop of"
-                                   f" {m.gm_low_db[k]:.1f} dB makes it unstable (saturation or soft start may)", k))
-            if np.isfinite(m.pm_deg[k]) and m.pm_deg[k] < PM_WARN_DEG and m.stable[k]:
-                out.append(Finding("low-pm", f"{where}: phase margin {m.pm_deg[k]:.1f} deg is below"
-                                   f" {PM_WARN_DEG:.0f} deg (common practice)", k))
-            if np.isfinite(m.gm_db[k]) and m.gm_db[k] < GM_WARN_DB and m.stable[k]:
-                out.append(Finding("low-gm", f"{where}: gain margin {m.gm_db[k]:.1f} dB is below"
-                                   f" {GM_WARN_DB:.0f} dB (common practice)", k))
+                                   f" {m.gm_low_db[k]:.1f} dB (an error amplifier recovering from saturation, a"
+                                   " soft start) makes the loop unstable; raise the phase below the crossover (zeros"
+                                   " nearer the double pole) or lower fc", k))
             if m.beyond_grid[k]:
                 out.append(Finding("gain-at-fsw", f"{where}: |T| is still above 0 dB at the switching frequency", k))
+            if m.gm_beyond_model[k]:
+                out.append(Finding("gm-beyond-model", f"{where}: the phase reaches -180 deg only at"
+                                   f" {format_value(m.f180_beyond_hz[k], 'Hz')}, above fsw/2, where the averaged model"
+                                   " does not predict it: no gain margin is given; measure it", k, "note"))
         return out
 
     def _opamp_findings(self, module, parts: dict) -> list[Finding]:
@@ -445,29 +501,34 @@ class LoopSession:
                         f" {format_value(short, 'Hz')}: choose an op-amp with more gain-bandwidth", None)]
 
 
-def _why_not_single_crossover(stage: StageResult, corner: int, m: Margins, row: int) -> str:
+def _why_not_single_crossover(stage: StageResult, corner: int, m: Margins, row: int, network: str,
+                              fc_hz: float) -> str:
     crossings = ", ".join(format_value(x, "Hz") for x in m.crossovers_hz[row])
     where = corner_label(stage.vin[corner], stage.load[corner])
     text = (f"the network puts a crossover at the target, but at {where} the loop gain crosses 0 dB"
             f" {m.n_crossovers[row]} times ({crossings})")
     if not m.stable[row]:
         text += " and the closed loop is unstable"
-    if np.isfinite(stage.f0_hz[corner]):
-        text += (f"; the double pole at {format_value(stage.f0_hz[corner], 'Hz')} (Q {stage.q[corner]:.1f})"
-                 " peaks above 0 dB: cross over above it with Type III, or lower fc well below it")
+    f0 = stage.f0_hz[corner]
+    if np.isfinite(f0):
+        text += f"; the double pole at {format_value(f0, 'Hz')} (Q {stage.q[corner]:.1f}) peaks above 0 dB"
+        if network != "type3":
+            text += ": use Type III with fc above the double pole, or lower fc well below it"
+        elif fc_hz > f0:
+            text += ": move the zeros nearer the double pole (method auto or placement), or raise fc further above it"
+        else:
+            text += ": raise fc above the double pole, or lower it well below"
     return text
 
 
 def _with_targets(design: Design, t: Targets) -> Design:
     """The design as the targets set it (parts as they were)."""
     c = design.compensator
-    if (c.network, c.fc, c.pm, c.boost_split, c.design_corner, c.resistor_series, c.capacitor_series, c.method) == (
-            t.network, t.fc_hz, t.pm_deg, t.boost_split, t.design_corner, t.resistor_series, t.capacitor_series,
-            t.method):
+    if Targets.from_design(design) == t:
         return design
     comp = replace(c, network=t.network, fc=t.fc_hz, pm=t.pm_deg, boost_split=t.boost_split,
                    design_corner=t.design_corner, resistor_series=t.resistor_series,
-                   capacitor_series=t.capacitor_series, method=t.method)
+                   capacitor_series=t.capacitor_series, method=t.method, gm_db=t.gm_db, fc_band=t.fc_band)
     return replace(design, compensator=comp)
 
 
