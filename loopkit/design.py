@@ -20,9 +20,11 @@ from .units import format_value
 __all__ = [
     "METHODS",
     "NETWORKS",
+    "SCHEMES",
     "TOPOLOGIES",
     "CapacitorBank",
     "Compensator",
+    "Control",
     "Design",
     "Modulator",
     "OpAmp",
@@ -370,6 +372,53 @@ class Compensator:
             raise DesignError("compensator.design_corner", self.design_corner, "must be a corner index >= 0 or 'worst'")
 
 
+#: Control schemes accepted in ``control.scheme`` (one module each in :mod:`loopkit.schemes`).
+SCHEMES = ("voltage-mode", "peak-current")
+
+
+@dataclass(frozen=True)
+class Control:
+    """The control scheme and, for peak current mode, its current sensing and slope.
+
+    Attributes
+    ----------
+    scheme : str
+        One of :data:`SCHEMES`.
+    sense_gain : float
+        Peak current mode: current-sense transresistance Ri, ohm (V at the comparator per A of
+        inductor current; sense resistor times amplifier gain; flyback: primary current).
+    slope : float or None
+        External slope-compensation ramp at the comparator, V/s (0 = none).
+    slope_ratio : float or None
+        The external slope as a multiple of the inductor's down-slope at the comparator
+        (Ri times the off-time slope) at each corner, instead of ``slope``.  With neither
+        given the slope is chosen automatically (:func:`loopkit.schemes.peak_current.auto_slope`).
+    current_limit : float
+        Peak inductor current limit, A (0 = not checked).
+    """
+
+    scheme: str = "voltage-mode"
+    sense_gain: float = 0.0
+    slope: float | None = None
+    slope_ratio: float | None = None
+    current_limit: float = 0.0
+
+    def __post_init__(self):
+        if self.scheme not in SCHEMES:
+            raise DesignError("control.scheme", self.scheme, f"must be one of {', '.join(SCHEMES)}")
+        _non_negative("control.sense_gain", self.sense_gain, "Ω")
+        _non_negative("control.current_limit", self.current_limit, "A")
+        if self.scheme == "peak-current" and not self.sense_gain > 0:
+            raise DesignError("control.sense_gain", format_value(self.sense_gain, "Ω"),
+                              "peak current mode needs the current-sense gain (> 0 ohm)")
+        if self.slope is not None and self.slope_ratio is not None:
+            raise DesignError("control.slope_ratio", self.slope_ratio, "give slope or slope_ratio, not both")
+        if self.slope is not None:
+            _non_negative("control.slope", self.slope, "V/s")
+        if self.slope_ratio is not None:
+            _between("control.slope_ratio", self.slope_ratio, -1e-12, 100.0, "0 and 100")
+
+
 @dataclass(frozen=True)
 class Design:
     """One converter and its loop: the content of a design file."""
@@ -380,6 +429,7 @@ class Design:
     modulator: Modulator = field(default_factory=Modulator)
     compensator: Compensator = field(default_factory=Compensator)
     title: str = ""
+    control: Control = field(default_factory=Control)
 
     def __post_init__(self):
         vout = self.operating.vout

@@ -60,7 +60,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .design import CapacitorBank, Compensator, Design, Modulator, OpAmp, Operating, Sensing, Stage
+from .design import CapacitorBank, Compensator, Control, Design, Modulator, OpAmp, Operating, Sensing, Stage
 from .errors import DesignError, DesignFileError
 from .eseries import is_capacitor, is_resistor
 from .networks.opto_type2 import OPTO_KEYS
@@ -71,7 +71,8 @@ __all__ = ["design_from_dict", "design_to_dict", "dumps_design", "load_design", 
 FORMAT = "loopkit-design"
 VERSION = 1
 
-_TEXT = {"topology", "rectifier", "light_load", "kind", "network", "method", "resistor_series", "capacitor_series"}
+_TEXT = {"topology", "rectifier", "light_load", "kind", "network", "method", "resistor_series", "capacitor_series",
+         "scheme"}
 _UNITS = {
     "fsw": "Hz",
     "inductance": "H",
@@ -92,6 +93,9 @@ _UNITS = {
     "fc": "Hz",
     "gbw": "Hz",
     "r_out": "ohm",
+    "sense_gain": "ohm",
+    "slope": "V/s",
+    "current_limit": "A",
 }
 #: Dimensionless fields written as plain TOML numbers (the rest as engineering text).
 _PLAIN_NUMBERS = {
@@ -106,6 +110,7 @@ _PLAIN_NUMBERS = {
     "gain_db",
     "ctr",
     "gain",
+    "slope_ratio",
 }
 #: Keys of [compensator.placement] (Hz, except the dimensionless ``gain``).
 PLACEMENT_KEYS = ("fz", "fp", "fz1", "fz2", "fp1", "fp2")
@@ -188,7 +193,7 @@ def _list_or_range(table: dict, key: str, where: str, log: bool) -> tuple[float,
 
 def design_from_dict(data: dict) -> Design:
     """Validate a parsed TOML document and build the :class:`Design`."""
-    top = {"format", "version", "title", "stage", "operating", "sensing", "modulator", "compensator"}
+    top = {"format", "version", "title", "stage", "operating", "sensing", "modulator", "compensator", "control"}
     _check_keys(data, top, "")
     if data.get("format", FORMAT) != FORMAT:
         raise DesignError("format", data["format"], f"must be {FORMAT!r}")
@@ -259,10 +264,11 @@ def design_from_dict(data: dict) -> Design:
     sensing = _section(Sensing, _table(data.get("sensing", {}), "sensing"), "sensing")
     modulator = _section(Modulator, _table(data.get("modulator", {}), "modulator"), "modulator")
     compensator = _compensator(_table(data.get("compensator", {}), "compensator"))
+    control = _section(Control, _table(data.get("control", {}), "control"), "control")
     title = data.get("title", "")
     if not isinstance(title, str):
         raise DesignError("title", title, "must be text")
-    return Design(stage, operating, sensing, modulator, compensator, title)
+    return Design(stage, operating, sensing, modulator, compensator, title, control)
 
 
 def _part_unit(designator: str) -> str | None:
@@ -490,6 +496,9 @@ def design_to_dict(design: Design) -> dict:
         "sensing": sensing,
         "modulator": {f.name: getattr(design.modulator, f.name) for f in fields(Modulator)},
         "compensator": compensator,
+        **({} if design.control == Control() else {"control": {
+            f.name: getattr(design.control, f.name) for f in fields(Control)
+            if getattr(design.control, f.name) is not None}}),
     }
 
 
@@ -525,8 +534,9 @@ def dumps_design(design: Design) -> str:
     for key in ("format", "version", "title"):
         lines.append(f"{key} = {_toml_value(data[key])}")
     lines.append("")
-    for key in ("stage", "operating", "sensing", "modulator", "compensator"):
-        table(key, data[key])
+    for key in ("stage", "operating", "sensing", "modulator", "compensator", "control"):
+        if key in data:
+            table(key, data[key])
     return "\n".join(lines).rstrip() + "\n"
 
 

@@ -24,13 +24,14 @@ from .design import Design
 from .errors import Finding, InfeasibleDesign
 from .margins import Margins, loop_margins
 from .networks import NetworkContext, network_module
-from .networks.sensing import sensing_transfer
 from .powerstage import StageResult, analyse_stage, corner_label
 from .rational import Rational
+from .schemes import scheme_module
+from .schemes.voltage_mode import modulator_transfer
 from .synthesis import Placement, place
+from .units import format_value
 from .verdict import model_findings, verdict_findings
 from .worst_corner import search_placement
-from .units import format_value
 
 __all__ = [
     "CAUTION",
@@ -177,16 +178,6 @@ def network_context(design: Design) -> NetworkContext:
                           opto=dict(design.compensator.opto))
 
 
-def modulator_transfer(design: Design, vin: np.ndarray) -> Rational:
-    """PWM gain 1/Vramp per corner; with feed-forward the ramp scales with vin."""
-    mod = design.modulator
-    ramp = np.full(vin.shape, mod.ramp)
-    if mod.feedforward:
-        nominal = design.operating.vin_nominal or float(np.median(design.operating.vin))
-        ramp = mod.ramp * vin / nominal
-    return Rational.constant(1.0 / ramp)
-
-
 def _default_r1(design: Design, ctx: NetworkContext) -> float:
     s = design.sensing
     if s.r_top > 0:
@@ -211,8 +202,8 @@ class LoopSession:
         self.stage = analyse_stage(design)
         self.f_hz = frequency_grid(self.stage, design.stage.fsw) if f_hz is None else np.asarray(f_hz, float)
         self.ctx = network_context(design)
-        self.sensing = sensing_transfer(design)
-        self.uncompensated = self.sensing * modulator_transfer(design, self.stage.vin) * self.stage.gvd
+        self.scheme = scheme_module(design.control.scheme).uncompensated(design, self.stage)
+        self.uncompensated = self.scheme.tu
         self.tu_resp = self.uncompensated.response(self.f_hz)
         self.tu_phase = self.uncompensated.phase_deg(self.f_hz)
         self.plant_resp = self.stage.gvd.response(self.f_hz)
@@ -254,7 +245,7 @@ class LoopSession:
 
     # ------------------------------------------------------------------ synthesis
     def _synthesise(self, targets: Targets) -> LoopResult:
-        findings = list(self.stage.findings)
+        findings = list(self.stage.findings) + list(self.scheme.findings)
         findings.extend(self._target_findings(targets))
         if targets.fc_hz <= 0:
             return self._infeasible(targets, findings, "compensator.fc", targets.fc_hz, "give a crossover target > 0 Hz")
@@ -269,12 +260,11 @@ class LoopSession:
             parts, placement = self._solve(module, targets, corner)
         except InfeasibleDesign as exc:
             parts, placement, failure = None, None, exc
-        if targets.method == "auto" and module.ZEROS > 0:
-            if parts is None or self._shortfall(module, parts, targets):
-                searched = self._search(module, targets, corner, placement)
-                if searched is not None and (parts is None or self._shortfall(module, searched[0], targets)
-                                             < self._shortfall(module, parts, targets)):
-                    parts, placement = searched
+        before = None if parts is None else self._shortfall(module, parts, targets)
+        if targets.method == "auto" and module.ZEROS > 0 and (before is None or before[0] > 0):
+            searched = self._search(module, targets, corner, placement)
+            if searched is not None and (before is None or self._shortfall(module, searched[0], targets) < before):
+                parts, placement = searched
         if parts is None:
             return self._infeasible(targets, findings, failure.field, failure.value, failure.allowed, failure.reasons)
         findings.extend(placement.notes)
@@ -382,7 +372,7 @@ class LoopSession:
         if unknown:
             return self._infeasible(targets, list(self.stage.findings), "compensator.parts", ", ".join(unknown),
                                     f"not a part of the {targets.network} network (its parts: {', '.join(sorted(allowed))})")
-        findings = list(self.stage.findings)
+        findings = list(self.stage.findings) + list(self.scheme.findings)
         if missing:
             return self._infeasible(targets, findings, "compensator.parts", ", ".join(missing),
                                     f"the {targets.network} network needs {', '.join(module.DESIGNATORS)}")

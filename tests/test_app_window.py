@@ -225,9 +225,8 @@ def test_network_and_boost_split(window):
     want = design_loop(design, replace(Targets.from_design(design), boost_split=0.45))
     assert want.feasible
     assert_shows(window, want)
-    bar.split_slider.setValue(5)  # a lopsided split the library refuses: the reason is shown, nothing crashes
+    bar.split_slider.setValue(5)  # a lopsided split the K-factor refuses (method auto then searches): nothing crashes
     want = design_loop(design, replace(Targets.from_design(design), boost_split=0.05))
-    assert not want.feasible
     assert_shows(window, want)
     bar.split_slider.setValue(45)
     i = bar.network.findData("type2")

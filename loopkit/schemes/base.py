@@ -1,0 +1,36 @@
+"""What a control scheme gives the loop: the uncompensated loop and its own figures.
+
+A control scheme module (one per scheme, registered in :mod:`loopkit.schemes`)
+provides ``NAME`` (the design file's ``[control] scheme``), ``TITLE`` and
+``uncompensated(design, stage) -> SchemeLoop``: the loop from the error
+amplifier's output back to its input without the compensator network, ``Tu``,
+so that the loop gain is ``T = -Tu Gc`` for every network (the networks are
+inverting).  Figures are per-corner arrays the scheme reports (modulator gain,
+for current mode mc and Qp); findings are the scheme's own warnings.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from ..rational import Rational
+
+__all__ = ["SchemeLoop"]
+
+
+@dataclass(frozen=True, eq=False)
+class SchemeLoop:
+    """The uncompensated loop of a control scheme at every corner.
+
+    Attributes
+    ----------
+    tu : Rational
+        Sensing x scheme x plant, from the error-amplifier output to its input.
+    figures : dict of str -> ndarray (corners,)
+        The scheme's own per-corner figures, e.g. ``fm`` (modulator gain, 1/V).
+    findings : tuple of Finding
+    """
+
+    tu: Rational
+    figures: dict = field(default_factory=dict)
+    findings: tuple = ()
