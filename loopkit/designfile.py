@@ -550,7 +550,7 @@ def _dumps(data: dict) -> str:
     return "\n".join(lines).rstrip() + "\n"
 
 
-def save_design(design: Design, path, base_text: str | None = None, base_design: Design | None = None) -> Path:
+def save_design(design: Design, path, keep_layout: bool = False) -> Path:
     """Write a design file atomically; returns the path written.
 
     Through :func:`loopkit.atomicfile.write_text_atomic`: a temporary file beside
@@ -561,18 +561,21 @@ def save_design(design: Design, path, base_text: str | None = None, base_design:
     naming it); a new one gets the usual ones (0666 less the umask).  A
     symbolic link is followed.
 
-    With ``base_text`` (the file's text, which reads as ``base_design``) only
-    what differs between ``base_design`` and ``design`` is changed in that text,
-    keeping its comments, key order, ranges and notation
-    (:func:`loopkit.designedit.edit_design_text`); otherwise the whole file is
-    written by :func:`dumps_design`.
+    With ``keep_layout`` and a ``path`` that holds a design file already, only
+    what differs from the design it reads as is changed in its text, keeping
+    its comments, key order, ranges and notation
+    (:func:`loopkit.designedit.edit_design_text`); otherwise (or when that file
+    does not load) the whole file is written by :func:`dumps_design`.
     """
     from .atomicfile import write_text_atomic
 
-    if base_text is not None:
+    text = None
+    if keep_layout:
         from .designedit import edit_design_text
 
-        text = edit_design_text(base_text, base_design, design)
-    else:
-        text = dumps_design(design)
-    return write_text_atomic(path, text)
+        try:
+            old = Path(path).read_text(encoding="utf-8")
+            text = edit_design_text(old, loads_design(old, str(path)), design, str(path))
+        except (OSError, ValueError):  # no file, not UTF-8, not a design: write it whole
+            text = None
+    return write_text_atomic(path, dumps_design(design) if text is None else text)

@@ -833,3 +833,18 @@ def test_corner_order_is_vin_outermost():
     vin, load = op.corners()
     assert vin.tolist() == [18.0] * 3 + [25.0] * 3 + [32.0] * 3
     assert load.tolist() == [0.3, 1.5, 3.0] * 3
+
+
+def test_save_keeping_the_layout_of_the_file_there(tmp_path):
+    path = tmp_path / "d.toml"
+    path.write_text(COMMENTED)
+    before = loads_design(COMMENTED)
+    after = dataclasses.replace(before, stage=dataclasses.replace(before.stage, dcr=20e-3))
+    save_design(after, path, keep_layout=True)
+    assert _diff(COMMENTED, path.read_text()) == (['dcr = "14m"'], ['dcr = "20m"'])
+    assert load_design(path) == after
+    save_design(before, path)  # the default: the whole file from the design
+    assert "# My buck" not in path.read_text() and load_design(path) == before
+    path.write_text("not a design\n")
+    save_design(after, path, keep_layout=True)  # nothing to keep: written whole
+    assert load_design(path) == after
