@@ -13,6 +13,9 @@ files) goes through :func:`write_text_atomic` or :func:`write_files_atomic`:
    the caller asks for others) and is renamed over the target
    (:func:`os.replace`, atomic on one file system).
 
+A device or pipe as the target (``/dev/stdout``, a FIFO) is written in place,
+after every regular file's temporary is complete.
+
 A process killed between steps 2 and 3 leaves its temporary file behind; the
 next save of the same file removes such leftovers (those whose process no
 longer runs on this machine, or that are more than a day old).  Errors are
@@ -106,9 +109,9 @@ def remove_stale_temporaries(path) -> list[Path]:
 
 def _target(path) -> Path:
     path = Path(path)
-    if path.is_symlink():
+    if path.is_symlink() and path.is_file():
         path = path.resolve()  # replace the file the link points to, keep the link
-    return path
+    return path  # (a link to a device or pipe, /dev/stdout, is written through as given)
 
 
 def _named(exc: OSError, path: Path) -> OSError:
@@ -128,6 +131,8 @@ def _existing_mode(path: Path) -> int | None:
     if stat.S_ISDIR(st.st_mode):
         raise IsADirectoryError(errno.EISDIR, "is a folder, not a file", str(path))
     mode = stat.S_IMODE(st.st_mode)
+    if not stat.S_ISREG(st.st_mode):
+        return None  # a device or pipe (/dev/stdout, a FIFO): written in place, nothing to rename over
     # os.access alone lets root replace anything; a file nobody may write is read-only for us too
     if not mode & (stat.S_IWUSR | stat.S_IWGRP | stat.S_IWOTH) or not os.access(path, os.W_OK):
         raise PermissionError(
@@ -160,6 +165,7 @@ class _Pending:
     def __init__(self, path, new_mode: int | None):
         self.path = _target(path)
         self.mode = _existing_mode(self.path)
+        self.direct = self.path.exists() and not self.path.is_file()  # a device or pipe
         self.new_mode = new_mode
         self.tmp: Path | None = None
 
@@ -227,12 +233,17 @@ def write_files_atomic(files: Iterable[tuple[object, str | bytes]], new_mode: in
     try:
         for pending, data in items:
             try:
-                _write(pending, data)
+                if not pending.direct:
+                    _write(pending, data)
             except OSError as exc:
                 raise _named(exc, pending.path) from None
-        for pending, _ in items:
+        for pending, data in items:
             try:
-                os.replace(pending.tmp, pending.path)
+                if pending.direct:
+                    with open(pending.path, "wb") as fh:
+                        fh.write(data)
+                else:
+                    os.replace(pending.tmp, pending.path)
             except OSError as exc:
                 raise _named(exc, pending.path) from None
             pending.tmp = None
@@ -240,7 +251,7 @@ def write_files_atomic(files: Iterable[tuple[object, str | bytes]], new_mode: in
         for pending, _ in items:
             pending.discard()
         raise
-    for folder in {p.path.parent for p, _ in items}:
+    for folder in {p.path.parent for p, _ in items if not p.direct}:
         _sync_folder(folder)
     return [p.path for p, _ in items]
 

@@ -587,3 +587,20 @@ def test_gui_command_opens_the_design(tmp_path):
     )
     assert proc.returncode == 0, proc.stderr
     assert "first-plot" in proc.stdout
+
+
+@pytest.mark.skipif(not Path("/dev/stdout").exists(), reason="needs /dev/stdout")
+def test_export_to_standard_output_device():
+    proc = subprocess.run(
+        [sys.executable, "-m", "loopkit.cli", "export", str(BUCK), "--bom", "/dev/stdout"],
+        capture_output=True,
+        text=True,
+        encoding="utf-8",
+        cwd=ROOT,
+        env={**__import__("os").environ, "PYTHONPATH": str(ROOT), "PYTHONIOENCODING": "utf-8"},
+        check=False,
+    )
+    assert proc.returncode == 0, proc.stderr
+    from loopkit import export
+
+    assert proc.stdout.startswith(export.bom_csv(_loop(BUCK)))  # written in place, not renamed over the device
