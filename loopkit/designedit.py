@@ -25,7 +25,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import tomlkit
-from tomlkit.items import AoT, Item, Table
+from tomlkit.items import AoT, InlineTable, Item, Table
 
 from .atomicfile import check_writable, write_text_atomic
 from .design import Design
@@ -111,8 +111,8 @@ def _merge(table, old: dict, new: dict, where: str) -> None:
             if key in table:
                 del table[key]
         elif isinstance(n, dict):
-            if not isinstance(table.get(key), (dict, Table)):
-                table[key] = tomlkit.table()
+            if not isinstance(table.get(key), (dict, Table, InlineTable)):
+                table[key] = tomlkit.inline_table() if isinstance(table, InlineTable) else tomlkit.table()
             _merge(table[key], o if isinstance(o, dict) else {}, n, f"{where}.{key}" if where else key)
         elif key == "output_caps":
             _merge_banks(table, o if isinstance(o, list) else [], n, f"{where}.{key}")

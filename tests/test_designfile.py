@@ -848,3 +848,60 @@ def test_save_keeping_the_layout_of_the_file_there(tmp_path):
     path.write_text("not a design\n")
     save_design(after, path, keep_layout=True)  # nothing to keep: written whole
     assert load_design(path) == after
+
+
+SAMPLE_TEXTS = [(p.read_text(encoding="utf-8"), load_design(p)) for p in SAMPLES]
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    sample=st.sampled_from(SAMPLE_TEXTS),
+    inductance=st.floats(min_value=1e-7, max_value=1e-2),
+    dcr=st.floats(min_value=0.0, max_value=1.0),
+    esr=st.floats(min_value=0.0, max_value=1.0),
+    vin_scale=st.floats(min_value=1.0, max_value=1.5),
+    pm=st.floats(min_value=20.0, max_value=80.0),
+    ramp=st.floats(min_value=0.1, max_value=5.0),
+    parts=st.dictionaries(
+        st.sampled_from(["R1", "R2", "R3", "C1", "C2", "C3", "Rb"]),
+        st.floats(min_value=1e-12, max_value=1e7),
+        max_size=7,
+    ),
+    title=st.text(max_size=30),
+    changed=st.sets(st.sampled_from(["L", "dcr", "esr", "vin", "pm", "ramp", "parts", "title"]), min_size=1),
+)
+def test_edits_read_back_and_keep_every_comment(
+    sample, inductance, dcr, esr, vin_scale, pm, ramp, parts, title, changed
+):
+    from loopkit.designedit import edit_design_text
+
+    text, base = sample
+    stage, op, comp = base.stage, base.operating, base.compensator
+    if "L" in changed:
+        stage = dataclasses.replace(stage, inductance=inductance)
+    if "dcr" in changed:
+        stage = dataclasses.replace(stage, dcr=dcr)
+    if "esr" in changed:
+        stage = dataclasses.replace(
+            stage, output_caps=(dataclasses.replace(stage.output_caps[0], esr=esr), *stage.output_caps[1:])
+        )
+    if "vin" in changed:  # the top input voltage raised: a range stays a range where one fits
+        vin = op.vin[:-1] + (op.vin[-1] * vin_scale,)
+        op = dataclasses.replace(op, vin=vin, vin_nominal=None)
+    if "pm" in changed:
+        comp = dataclasses.replace(comp, pm=pm)
+    if "parts" in changed:
+        comp = dataclasses.replace(comp, parts=parts)
+    after = dataclasses.replace(
+        base,
+        stage=stage,
+        operating=op,
+        compensator=comp,
+        title=title if "title" in changed else base.title,
+        modulator=dataclasses.replace(base.modulator, ramp=ramp) if "ramp" in changed else base.modulator,
+    )
+    edited = edit_design_text(text, base, after)
+    assert loads_design(edited) == after
+    for line in text.splitlines():
+        if "#" in line and not line.lstrip().startswith("title"):
+            assert line[line.index("#") :] in edited  # every comment, whole-line or trailing, is kept
