@@ -68,6 +68,8 @@ class RecentFiles:
             items = json.loads(self._file.read_text(encoding="utf-8"))
         except (OSError, ValueError):
             return []
+        if not isinstance(items, list):  # a damaged list: start a new one rather than fail every start
+            return []
         return [p for p in items if isinstance(p, str) and Path(p).is_file()][:_MAX_RECENT]
 
     def add(self, path) -> list[str]:

@@ -173,3 +173,14 @@ def test_a_recovery_copy_whose_loop_fails_is_reported_and_removed(make_window, t
     assert window.offer_recovery() is False
     assert [t for t, _ in dialogs] == ["Cannot restore"] and "ZeroDivisionError" in dialogs[0][1]
     assert not (folder / "ccc.toml").exists()
+
+
+@pytest.mark.parametrize("content", ["42", '{"a": 1}', "null", "[1, null, true]", "not json"])
+def test_a_damaged_recent_list_is_an_empty_one(tmp_path, content):
+    from app.files import RecentFiles
+
+    (tmp_path / "recent.json").write_text(content)
+    recent = RecentFiles(tmp_path)
+    assert recent.paths() == []
+    recent.add(SAMPLES[0])
+    assert recent.paths() == [str(SAMPLES[0].resolve())]
