@@ -97,3 +97,19 @@ def test_pyproject_license_is_pep_639():
         r.replace(" ", "").startswith("setuptools>=") and int(r.split(">=")[1].split(".")[0]) >= 77 for r in build
     )  # setuptools reads PEP 639 license fields from 77 on
     assert any(d.startswith("tomlkit") for d in project["dependencies"])
+
+
+def test_the_example_error_message_is_loopkits():
+    """The README quotes one load error inline; it must be what loopkit says for that value."""
+    import re
+
+    from loopkit.designfile import loads_design
+    from loopkit.errors import DesignFileError
+
+    m = re.search(r"`(design\.toml): stage\.inductance = (\S+): ([^`]+)`", README.replace("\n", " "))
+    assert m, "README no longer quotes the inductance error example"
+    text = (ROOT / "sample_designs" / "buck_24v_3v3.toml").read_text(encoding="utf-8")
+    assert 'inductance = "4.7u"' in text
+    with pytest.raises(DesignFileError) as err:
+        loads_design(text.replace('inductance = "4.7u"', f'inductance = "{m.group(2)}"'), m.group(1))
+    assert str(err.value) == f"{m.group(1)}: stage.inductance = {m.group(2)}: {m.group(3)}"
