@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import argparse
 import difflib
+import functools
 import os
 import re
 import shlex
@@ -96,8 +97,9 @@ def unmarked_blocks(text: str) -> list[str]:
     return [m.group("body") for m in _FENCE.finditer(text) if m.start("body") not in marked]
 
 
+@functools.lru_cache(maxsize=None)
 def run(command: str) -> str:
-    """Standard output of a README command, run as a user would from the top of this checkout."""
+    """Standard output of a README command, run as a user would from the top of this checkout (once per process)."""
     argv = shlex.split(command)
     if not argv or argv[0] != "loopkit":
         raise ValueError(f"README output blocks show loopkit commands only, not {command!r}")
