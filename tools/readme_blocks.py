@@ -97,7 +97,7 @@ def unmarked_blocks(text: str) -> list[str]:
     return [m.group("body") for m in _FENCE.finditer(text) if m.start("body") not in marked]
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def run(command: str) -> str:
     """Standard output of a README command, run as a user would from the top of this checkout (once per process)."""
     argv = shlex.split(command)
