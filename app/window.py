@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import sys
+import traceback
 from pathlib import Path
 
 from PySide6.QtCore import Qt, QTimer
@@ -22,6 +24,8 @@ from PySide6.QtWidgets import (
 )
 
 from loopkit import DesignError, format_value, loads_design
+from loopkit.atomicfile import atomic_path
+from loopkit.atomicfile import write_text_atomic as write_export
 
 from .corners_view import CornersView
 from .files import RecentFiles, Recovery, app_dir, write_text_atomic
@@ -301,16 +305,24 @@ class MainWindow(QMainWindow):
         try:
             self.model.open(path)
         except DesignError as exc:
-            QMessageBox.warning(self, "Cannot open the design", str(exc))
-            return False
+            return self._open_failed(str(exc))
         except OSError as exc:
-            QMessageBox.warning(self, "Cannot open the design", f"{path}: {exc.strerror}")
-            return False
+            return self._open_failed(f"{path}: {exc.strerror or exc}")
+        except Exception as exc:  # noqa: BLE001 - a computation that fails on this design: say so, keep the old one
+            traceback.print_exc(file=sys.stderr)
+            return self._open_failed(f"{path}: the loop of this design cannot be computed ({type(exc).__name__}: "
+                                     f"{str(exc)[:200]}); the design shown is unchanged")
         self.recovery.discard()
         self.recent.add(path)
         self._update_title()
         self.statusBar().showMessage(f"Opened {path}", 5000)
         return True
+
+    def _open_failed(self, message: str) -> bool:
+        """A design that cannot be opened: the reason in the status bar and a dialog; the current design stays."""
+        self.statusBar().showMessage(f"Not opened — {message}", 20000)
+        QMessageBox.warning(self, "Cannot open the design", message)
+        return False
 
     def save(self) -> bool:
         if not self.model.path:
@@ -353,7 +365,12 @@ class MainWindow(QMainWindow):
     def offer_recovery(self) -> bool:
         """Offer to restore work left by a session that did not end cleanly; True if restored."""
         restored = False
-        for entry in self.recovery.leftovers():
+        leftovers = self.recovery.leftovers()
+        if self.recovery.set_aside:  # reported once: they are moved out of the way
+            lines = [f"{path}: {why}" for path, why in self.recovery.set_aside]
+            QMessageBox.warning(self, "Recovery copy set aside",
+                                "loopkit found unsaved work it cannot read and moved it aside:\n" + "\n".join(lines))
+        for entry in leftovers:
             if restored:
                 Recovery.remove(entry)
                 continue
@@ -364,10 +381,14 @@ class MainWindow(QMainWindow):
             if answer == QMessageBox.Yes:
                 try:
                     design = loads_design(entry.toml_path.read_text(encoding="utf-8"), str(entry.toml_path))
-                except (DesignError, OSError) as exc:
-                    QMessageBox.warning(self, "Cannot restore", str(exc))
-                else:
                     self.model.restore(design, entry.original)
+                except (ValueError, OSError) as exc:  # DesignError and bad UTF-8 are ValueErrors
+                    QMessageBox.warning(self, "Cannot restore", str(exc))
+                except Exception as exc:  # noqa: BLE001 - a computation that fails: report, go on starting
+                    traceback.print_exc(file=sys.stderr)
+                    QMessageBox.warning(self, "Cannot restore", f"{entry.label}: the loop cannot be computed "
+                                        f"({type(exc).__name__}: {str(exc)[:200]})")
+                else:
                     restored = True
                     self._update_title()
                     self.autosave()
@@ -378,7 +399,8 @@ class MainWindow(QMainWindow):
     def export_to(self, kind: str, path: str) -> None:
         """Write one hand-off file: ``bom``, ``spice``, ``json`` (from the current result) or ``png``/``svg``."""
         if kind in ("png", "svg"):
-            self.bode.export_image(path)
+            with atomic_path(path) as tmp:  # the same writer, permissions and atomicity as every other file
+                self.bode.export_image(str(tmp))
             return
         from loopkit import export
 
@@ -386,7 +408,7 @@ class MainWindow(QMainWindow):
         if not result.feasible:
             raise DesignError("compensator", "no parts", "the targets are not feasible: nothing to export")
         text = {"bom": export.bom_csv, "spice": export.spice_netlist, "json": export.results_json}[kind](result)
-        write_text_atomic(Path(path), text)
+        write_export(path, text)  # loopkit's writer: the command line's permissions, atomic
 
     def _on_export_requested(self, kind: str) -> None:
         suffix = {"bom": "csv", "spice": "cir", "json": "json", "png": "png", "svg": "svg"}[kind]

@@ -27,8 +27,9 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
+from .atomicfile import check_writable, write_files_atomic, write_text_atomic
 from .design import NETWORKS, Design
-from .designfile import load_design, save_design
+from .designfile import load_design
 from .errors import DesignError, DesignFileError
 from .margins import GM_WORDS, gm_state
 from .powerstage import StageResult, analyse_stage
@@ -440,7 +441,7 @@ def _cmd_bode(args) -> int:
 
 
 def _write_text(path: str, text: str) -> None:
-    Path(path).write_text(text, encoding="utf-8")
+    write_text_atomic(path, text)
 
 
 # ---------------------------------------------------------------------- loop (design, export)
@@ -522,6 +523,8 @@ def _cmd_design(args) -> int:
     from .export import results_json
 
     design = load_design(args.file)
+    if args.write:
+        check_writable(args.file)  # a read-only file is refused before the work, not after
     result = _loop_result(design, args)
     if args.json:
         sys.stdout.write(results_json(result))
@@ -530,9 +533,10 @@ def _cmd_design(args) -> int:
     if args.write:
         if not result.feasible:
             raise DesignError("--write", args.file, "no parts to write: the targets are not feasible (see warnings)")
+        from .designedit import update_design_file  # tomlkit only for this
         from .loop import apply_parts
 
-        save_design(apply_parts(design, result), args.file)
+        update_design_file(args.file, design, apply_parts(design, result))  # only the parts and targets change
         print(f"saved the parts and targets to {args.file}", file=sys.stderr if args.json else sys.stdout)
     return _verdict_status(result, "design", args.file)
 
@@ -542,21 +546,37 @@ def _cmd_export(args) -> int:
 
     if not (args.bom or args.spice or args.json or args.svg):
         raise DesignError("--bom/--spice/--json/--svg", "(none given)", "give at least one output file")
+    outputs = [
+        (option, path, writer)
+        for option, path, writer in (
+            ("--bom", args.bom, export.bom_csv),
+            ("--spice", args.spice, export.spice_netlist),
+            ("--json", args.json, export.results_json),
+            ("--svg", args.svg, _network_drawing),
+        )
+        if path
+    ]
+    _check_outputs(args.file, outputs)
     design = load_design(args.file)
     result = _loop_result(design, args, need_parts="export")
-    written = []
-    for path, writer in (
-        (args.bom, export.bom_csv),
-        (args.spice, export.spice_netlist),
-        (args.json, export.results_json),
-        (args.svg, _network_drawing),
-    ):
-        if path:
-            _write_text(path, writer(result))
-            written.append(path)
-    print(wrap_note(f"wrote {', '.join(written)}"))
+    # every file made in memory, then all written to temporaries and moved: a failure leaves none half-written
+    write_files_atomic([(path, writer(result)) for _, path, writer in outputs])
+    print(wrap_note(f"wrote {', '.join(path for _, path, _ in outputs)}"))
     print(CAUTION)
     return _verdict_status(result, "export", args.file)
+
+
+def _check_outputs(design_file: str, outputs) -> None:
+    """Each export to its own file, none of them the design file, none read-only (before any work)."""
+    seen = {}
+    for option, path, _ in outputs:
+        key = os.path.realpath(path)
+        if key == os.path.realpath(design_file):
+            raise DesignError(option, path, "is the design file itself; choose another output file")
+        if key in seen:
+            raise DesignError(option, path, f"is also the {seen[key]} file; give each output its own file")
+        seen[key] = option
+        check_writable(path)
 
 
 def _network_drawing(result) -> str:

@@ -50,10 +50,7 @@ turns ratio of a buck) are left out so the file reads cleanly.
 from __future__ import annotations
 
 import math
-import os
 import re
-import secrets
-import stat
 import tomllib
 from dataclasses import MISSING, fields, replace
 from pathlib import Path
@@ -437,15 +434,46 @@ def _without(body: dict, cls, names) -> dict:
     return {k: v for k, v in body.items() if not (k in names and k in defaults and v == defaults[k])}
 
 
-def design_to_dict(design: Design) -> dict:
+def _corner_keys(key: str, values, nominal: float | None, log: bool, ranges: bool = True) -> dict:
+    """``{key: [...]}``, or ``{key_min, key_max, key_points}`` where that range reads back to exactly ``values``.
+
+    A list of three or more values that the loader's range (linear for ``vin``,
+    geometric for ``load``, ends exact, ``vin_nominal`` added) reproduces to the
+    last bit is written as that range, so a file given as a range stays one and
+    no value like ``3.1622776601683795`` appears.
+    """
+    values = tuple(float(v) for v in values)
+    if ranges and len(values) >= 3 and all(math.isfinite(v) for v in values):
+        lo, hi = min(values), max(values)
+        rest = list(values)
+        if nominal is not None and nominal in rest:
+            rest.remove(nominal)
+        for points in dict.fromkeys((len(rest), len(rest) + 1)):
+            if points < 3:  # two ends read as well as a list
+                continue
+            table = {f"{key}_min": lo, f"{key}_max": hi, f"{key}_points": points}
+            try:
+                spaced = _list_or_range(table, key, "operating", log)
+            except DesignError:
+                continue
+            if nominal is not None:
+                spaced = tuple(sorted([v for v in spaced if abs(v - nominal) > 1e-9 * nominal] + [nominal]))
+            if spaced == values:
+                return table
+    return {key: list(values)}
+
+
+def design_to_dict(design: Design, ranges: bool = True) -> dict:
     """The TOML document of a design, as nested dicts (values in SI).
 
     Fields that hold their default and do not apply to the design (the turns
     ratio of a non-flyback, the four-switch mode thresholds elsewhere, the diode
     drop of a synchronous rectifier, the differential amplifier's bandwidth with
     a divider, Type III's boost split on other networks, the op-amp or gm
-    amplifier figures the network does not use) are left out; reading the
-    document back gives the same design.
+    amplifier figures the network does not use, an automatic ``light_load``)
+    are left out; reading the document back gives the same design.  Input
+    voltages and loads that a range reproduces exactly are written as that
+    range (``ranges=False``: always as lists).
     """
     st = design.stage
     stage = {f.name: getattr(st, f.name) for f in fields(Stage) if f.name != "output_caps"}
@@ -456,10 +484,15 @@ def design_to_dict(design: Design) -> dict:
         irrelevant |= {"buck_max_duty", "boost_min_duty"}
     if st.synchronous:
         irrelevant.add("diode_drop")
+    irrelevant.add("light_load")  # "" (automatic) is left out: the file says nothing, as the user did
     stage = _without(stage, Stage, irrelevant)
     stage["output_caps"] = [{"capacitance": b.capacitance, "esr": b.esr, "count": b.count} for b in st.output_caps]
     op = design.operating
-    operating = {"vout": op.vout, "vin": list(op.vin), "load": list(op.load)}
+    operating = {
+        "vout": op.vout,
+        **_corner_keys("vin", op.vin, op.vin_nominal, log=False, ranges=ranges),
+        **_corner_keys("load", op.load, None, log=True, ranges=ranges),
+    }
     if op.vin_nominal is not None:
         operating["vin_nominal"] = op.vin_nominal
     sensing = {f.name: getattr(design.sensing, f.name) for f in fields(Sensing)}
@@ -509,7 +542,17 @@ def dumps_design(design: Design) -> str:
     as it takes to read back the same double (``"4.7u"``, ``"49.9k"``);
     dimensionless ones (phase margin, duty limits, turns ratio) as TOML numbers.
     """
-    data = design_to_dict(design)
+    text = _dumps(design_to_dict(design))
+    try:
+        same = loads_design(text) == design
+    except DesignError:
+        same = False
+    if not same:  # a range that does not read back the same: write the explicit lists
+        text = _dumps(design_to_dict(design, ranges=False))
+    return text
+
+
+def _dumps(data: dict) -> str:
     lines = ["# loopkit design file: a design aid; verify every result on the bench.", ""]
 
     def table(name: str, body: dict) -> None:
@@ -540,56 +583,32 @@ def dumps_design(design: Design) -> str:
     return "\n".join(lines).rstrip() + "\n"
 
 
-def _fsync_directory(directory: Path) -> None:
-    try:
-        fd = os.open(directory, os.O_RDONLY)
-    except OSError:
-        return  # not possible on every platform (Windows); the rename is still atomic
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
+def save_design(design: Design, path, keep_layout: bool = False) -> Path:
+    """Write a design file atomically; returns the path written.
 
+    Through :func:`loopkit.atomicfile.write_text_atomic`: a temporary file beside
+    ``path``, synced, then renamed over it, so a crash or a full disk leaves
+    either the old file or the new one, never a mix; temporary files left by
+    earlier, killed saves of the same file are removed.  An existing file keeps
+    its permissions; a read-only one is refused (:class:`PermissionError`
+    naming it); a new one gets the usual ones (0666 less the umask).  A
+    symbolic link is followed.
 
-def save_design(design: Design, path) -> None:
-    """Write a design file atomically.
-
-    The text goes to a new temporary file beside ``path``, is flushed to disk,
-    then renamed over ``path`` (:func:`os.replace`), so a crash or a full disk
-    leaves either the old file or the new one, never a mix, and no temporary
-    file.  An existing file keeps its permissions; a new one gets the usual
-    ones (0666 less the umask).  A symbolic link is followed.
+    With ``keep_layout`` and a ``path`` that holds a design file already, only
+    what differs from the design it reads as is changed in its text, keeping
+    its comments, key order, ranges and notation
+    (:func:`loopkit.designedit.edit_design_text`); otherwise (or when that file
+    does not load) the whole file is written by :func:`dumps_design`.
     """
-    path = Path(path)
-    if path.is_symlink():
-        path = path.resolve()
-    text = dumps_design(design)
-    try:
-        mode = stat.S_IMODE(os.stat(path).st_mode)
-    except FileNotFoundError:
-        mode = None
-    directory = path.parent
-    while True:
-        tmp = directory / f".{path.name}.{secrets.token_hex(6)}.tmp"
+    from .atomicfile import write_text_atomic
+
+    text = None
+    if keep_layout:
+        from .designedit import edit_design_text
+
         try:
-            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
-            break
-        except FileExistsError:
-            continue
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            if mode is not None:
-                os.chmod(tmp, mode)
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-    _fsync_directory(directory)
+            old = Path(path).read_text(encoding="utf-8")
+            text = edit_design_text(old, loads_design(old, str(path)), design, str(path))
+        except (OSError, ValueError):  # no file, not UTF-8, not a design: write it whole
+            text = None
+    return write_text_atomic(path, dumps_design(design) if text is None else text)

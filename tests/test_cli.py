@@ -358,10 +358,126 @@ def test_design_write_round_trip(capsys, tmp_path):
     assert first[-5:] == [
         _fmt(again.margins.fc_hz[0]),
         f"{again.margins.pm_deg[0]:.1f}",
-        f"{again.margins.gm_db[0]:.1f}" if gm_state(again.margins)[0] == "number" else GM_WORDS[gm_state(again.margins)[0]],
+        f"{again.margins.gm_db[0]:.1f}"
+        if gm_state(again.margins)[0] == "number"
+        else GM_WORDS[gm_state(again.margins)[0]],
         _fmt(again.margins.delay_margin_s[0]),
         "yes",
     ]
+
+
+def _commented_sample() -> str:
+    """The 24 V buck sample as a user keeps it: comments, a range, units after numbers."""
+    text = BUCK.read_text()
+    for old, new in (
+        ('vin = ["18", "24", "32"]', 'vin_min = "18"    # lowest bus voltage\nvin_max = "32V"\nvin_points = 3'),
+        ('fsw = "400k"', 'fsw = "400kHz"   # fixed: EMI plan'),
+        ('load = ["0.3", "1.5", "3"]', 'load_min = "0.5"\nload_max = "20"\nload_points = 3   # geometric'),
+        ('fc = "40k"', 'fc = "40kHz"   # crossover target'),
+    ):
+        assert old in text
+        text = text.replace(old, new, 1)
+    return text
+
+
+def _changed_lines(a: str, b: str) -> tuple[list[str], list[str]]:
+    import difflib
+
+    lines = list(difflib.ndiff(a.splitlines(), b.splitlines()))
+    return [x[2:] for x in lines if x.startswith("- ")], [x[2:] for x in lines if x.startswith("+ ")]
+
+
+def test_design_write_keeps_the_users_file(capsys, tmp_path):
+    text = _commented_sample()
+    path = tmp_path / "buck.toml"
+    path.write_text(text)
+    design = load_design(path)
+    code, _out, _ = run(capsys, "design", path, "--write")
+    assert code == 0
+    written = path.read_text()
+    removed, added = _changed_lines(text, written)
+    from loopkit.loop import apply_parts, design_loop
+
+    want = apply_parts(design, design_loop(design))
+    parts_lines = [f"{k} = " for k in want.compensator.parts]
+    assert removed == []  # nothing the user wrote is changed or lost: comments, range, notation, order
+    assert next(a for a in added if a.strip()) == "[compensator.parts]"
+    assert all(a.startswith(tuple(parts_lines)) for a in added if a.strip() and a != "[compensator.parts]")
+    assert len([a for a in added if a.strip()]) == 1 + len(want.compensator.parts)
+    assert load_design(path) == want  # re-loads to the same design
+    assert "3.1622776601683795" not in written and 'light_load = ""' not in written
+
+
+def test_design_write_with_new_targets_changes_only_parts_and_targets(capsys, tmp_path):
+    text = _commented_sample()
+    path = tmp_path / "buck.toml"
+    path.write_text(text)
+    code, _, _ = run(capsys, "design", path, "--fc", "25k", "--pm", "55", "--write")
+    assert code == 0
+    written = path.read_text()
+    removed, added = _changed_lines(text, written)
+    assert removed == ['fc = "40kHz"   # crossover target', "pm = 60"]
+    assert added[:2] == ['fc = "25kHz"   # crossover target', "pm = 55"]
+    assert "[compensator.parts]" in added
+    d = load_design(path)
+    assert (d.compensator.fc, d.compensator.pm) == (25e3, 55.0)
+    # a second --write with the same targets changes nothing
+    code, _, _ = run(capsys, "design", path, "--write")
+    assert code == 0 and path.read_text() == written
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="POSIX permissions")
+def test_design_write_refuses_a_read_only_file(capsys, tmp_path):
+    import os
+
+    path = tmp_path / "buck.toml"
+    path.write_text(BUCK.read_text())
+    os.chmod(path, 0o444)
+    code, _out, err = run(capsys, "design", path, "--write")
+    assert code == 2
+    assert err.strip().splitlines() == [
+        f"loopkit design: error: {path}: read-only file: not replaced (make it writable or choose another file)"
+    ]
+    assert path.read_text() == BUCK.read_text() and sorted(p.name for p in tmp_path.iterdir()) == ["buck.toml"]
+
+
+def test_export_that_fails_part_way_writes_nothing(capsys, tmp_path):
+    bom, js = tmp_path / "bom.csv", tmp_path / "res.json"
+    bom.write_text("old bom\n")
+    svg = tmp_path / "no such folder" / "net.svg"  # the last output cannot be written
+    code, _, err = run(capsys, "export", BUCK, "--bom", bom, "--json", js, "--svg", svg)
+    assert code == 2 and str(svg) in err and ".tmp" not in err
+    assert bom.read_text() == "old bom\n" and not js.exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["bom.csv"]  # no temporary file left
+
+
+def test_export_refuses_bad_outputs_before_any_work(capsys, tmp_path):
+    path = tmp_path / "buck.toml"
+    path.write_text(BUCK.read_text())
+    code, _, err = run(capsys, "export", path, "--json", path)
+    assert code == 2 and "--json" in err and "design file itself" in err
+    assert path.read_text() == BUCK.read_text()
+    out = tmp_path / "x.csv"
+    code, _, err = run(capsys, "export", path, "--bom", out, "--json", out)
+    assert code == 2 and "is also the --bom file" in err and not out.exists()
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="POSIX permissions")
+def test_exported_files_get_the_usual_permissions(capsys, tmp_path):
+    import os
+    import stat
+
+    umask = os.umask(0o022)
+    try:
+        bom, js = tmp_path / "bom.csv", tmp_path / "res.json"
+        js.write_text("{}")
+        os.chmod(js, 0o640)
+        code, _, _ = run(capsys, "export", BUCK, "--bom", bom, "--json", js)
+    finally:
+        os.umask(umask)
+    assert code == 0
+    assert stat.S_IMODE(bom.stat().st_mode) == 0o644  # a new file: 0666 less the umask
+    assert stat.S_IMODE(js.stat().st_mode) == 0o640  # an existing file keeps its own
 
 
 def test_bode_loop_and_compensator(capsys):
@@ -471,3 +587,20 @@ def test_gui_command_opens_the_design(tmp_path):
     )
     assert proc.returncode == 0, proc.stderr
     assert "first-plot" in proc.stdout
+
+
+@pytest.mark.skipif(not Path("/dev/stdout").exists(), reason="needs /dev/stdout")
+def test_export_to_standard_output_device():
+    proc = subprocess.run(
+        [sys.executable, "-m", "loopkit.cli", "export", str(BUCK), "--bom", "/dev/stdout"],
+        capture_output=True,
+        text=True,
+        encoding="utf-8",
+        cwd=ROOT,
+        env={**__import__("os").environ, "PYTHONPATH": str(ROOT), "PYTHONIOENCODING": "utf-8"},
+        check=False,
+    )
+    assert proc.returncode == 0, proc.stderr
+    from loopkit import export
+
+    assert proc.stdout.startswith(export.bom_csv(_loop(BUCK)))  # written in place, not renamed over the device

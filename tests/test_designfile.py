@@ -21,7 +21,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from loopkit import analyse_stage, designfile
+from loopkit import analyse_stage, atomicfile
 from loopkit.design import CapacitorBank, Design
 from loopkit.designfile import design_from_dict, design_to_dict, dumps_design, load_design, loads_design, save_design
 from loopkit.errors import DesignError, DesignFileError
@@ -195,8 +195,11 @@ def test_irrelevant_defaults_are_left_out():
     assert "boost_split" not in doc["compensator"]
     assert set(doc["compensator"]["opamp"]) == {"gain_db", "gbw"}  # an op-amp network: gm, r_out unused
     # relevant fields stay, defaults or not
-    for key in ("topology", "fsw", "inductance", "dcr", "r_switch", "rectifier", "r_rectifier", "light_load"):
+    for key in ("topology", "fsw", "inductance", "dcr", "r_switch", "rectifier", "r_rectifier"):
         assert key in doc["stage"]
+    # an automatic light_load (not given) is not written: "" is no documented value
+    assert "light_load" not in doc["stage"]
+    assert doc["stage"]["rectifier"] == "synchronous"
     assert {"kind", "reference", "r_top", "divider_current"} <= set(doc["sensing"])
     assert {"ramp", "max_duty", "feedforward"} <= set(doc["modulator"])
 
@@ -229,7 +232,9 @@ def test_values_are_written_in_engineering_notation():
     assert doc["stage"]["fsw"] == "400k"
     assert doc["stage"]["inductance"] == "4.7u"
     assert doc["stage"]["dcr"] == "14m"
-    assert doc["operating"]["vin"] == ["18", "25", "32"]
+    # BUCK gives vin as a range: written back as that range, not as the list of its points
+    assert (doc["operating"]["vin_min"], doc["operating"]["vin_max"], doc["operating"]["vin_points"]) == ("18", "32", 3)
+    assert "vin" not in doc["operating"]
     assert doc["operating"]["load"] == ["0.3", "1.5", "3"]
     assert doc["sensing"]["r_top"] == "49.9k"
     assert doc["compensator"]["pm"] == 60.0  # dimensionless: a TOML number
@@ -281,13 +286,13 @@ def test_failure_mid_save_keeps_the_old_file(tmp_path, monkeypatch, where):
         raise KeyboardInterrupt
 
     if where == "write":
-        monkeypatch.setattr(designfile.os, "fdopen", lambda *a, **k: HalfWriter(real_fdopen(*a, **k)))
+        monkeypatch.setattr(atomicfile.os, "fdopen", lambda *a, **k: HalfWriter(real_fdopen(*a, **k)))
     elif where == "fsync":
-        monkeypatch.setattr(designfile.os, "fsync", fail)
+        monkeypatch.setattr(atomicfile.os, "fsync", fail)
     elif where == "replace":
-        monkeypatch.setattr(designfile.os, "replace", fail)
+        monkeypatch.setattr(atomicfile.os, "replace", fail)
     else:
-        monkeypatch.setattr(designfile.os, "fsync", interrupt)
+        monkeypatch.setattr(atomicfile.os, "fsync", interrupt)
     with pytest.raises(KeyboardInterrupt if where == "interrupt" else OSError):
         save_design(loads_design(BUCK), path)
     monkeypatch.undo()
@@ -313,6 +318,274 @@ def test_save_keeps_permissions_and_follows_links(tmp_path):
     save_design(d, link)
     assert link.is_symlink()
     assert load_design(path).title == "via link"
+
+
+def test_failure_names_the_target_not_its_temporary(tmp_path, monkeypatch):
+    path = tmp_path / "d.toml"
+    path.write_text("old content\n")
+
+    def fail(*args, **kwargs):
+        raise OSError(5, "Input/output error")
+
+    monkeypatch.setattr(atomicfile.os, "replace", fail)
+    with pytest.raises(OSError) as err:
+        save_design(loads_design(BUCK), path)
+    monkeypatch.undo()
+    assert err.value.filename == str(path)
+    assert ".tmp" not in str(err.value)
+    missing = tmp_path / "no such folder" / "d.toml"
+    with pytest.raises(FileNotFoundError) as err:
+        save_design(loads_design(BUCK), missing)
+    assert err.value.filename == str(missing)
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX permissions")
+def test_save_refuses_a_read_only_file(tmp_path):
+    path = tmp_path / "d.toml"
+    path.write_text(BUCK)
+    os.chmod(path, 0o444)  # the folder stays writable: a rename could replace it, and must not
+    d = dataclasses.replace(loads_design(BUCK), title="changed")
+    with pytest.raises(PermissionError) as err:
+        save_design(d, path)
+    assert err.value.filename == str(path) and "read-only" in err.value.strerror
+    assert path.read_text() == BUCK
+    assert _listing(tmp_path) == ["d.toml"]
+
+
+_KILLED_SAVE = """\
+import os, sys, time
+from loopkit import designfile
+from loopkit.designfile import loads_design, save_design
+
+def stall(fd):  # the text is written, not yet renamed: tell the test, then wait to be killed
+    print("in the middle", flush=True)
+    time.sleep(60)
+
+os.fsync = stall
+save_design(loads_design(open(sys.argv[1]).read()), sys.argv[2])
+"""
+
+
+@pytest.mark.skipif(os.name != "posix", reason="SIGKILL")
+def test_save_killed_midway_keeps_the_file_and_the_next_save_cleans_up(tmp_path):
+    import signal
+    import subprocess
+    import sys
+
+    source = tmp_path / "source.toml"
+    source.write_text(BUCK)
+    work = tmp_path / "work"
+    work.mkdir()
+    path = work / "d.toml"
+    path.write_text("old content\n")
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[1])}
+    proc = subprocess.Popen(
+        [sys.executable, "-c", _KILLED_SAVE, str(source), str(path)], stdout=subprocess.PIPE, text=True, env=env
+    )
+    try:
+        assert proc.stdout.readline().strip() == "in the middle"
+        os.kill(proc.pid, signal.SIGKILL)
+        assert proc.wait(timeout=30) == -signal.SIGKILL
+    finally:
+        proc.kill()
+        proc.stdout.close()
+    left = [n for n in _listing(work) if n != "d.toml"]
+    assert len(left) == 1 and left[0].startswith(f".d.toml.{proc.pid}.") and left[0].endswith(".tmp")
+    assert path.read_text() == "old content\n"  # killed before the rename: the old file, whole
+    # a temporary of a save still running (this process) is not touched; the dead one is removed
+    running = work / f".d.toml.{os.getpid()}.0123456789ab.tmp"
+    running.write_text("another save in progress")
+    save_design(loads_design(BUCK), path)
+    assert _listing(work) == sorted(["d.toml", running.name])
+    assert load_design(path) == loads_design(BUCK)
+
+
+def test_write_files_atomic_leaves_nothing_half_written(tmp_path, monkeypatch):
+
+    first, second = tmp_path / "a.csv", tmp_path / "b.json"
+    first.write_text("old a\n")
+    calls = []
+    real = os.fsync
+
+    def full_disk_on_second(fd):
+        calls.append(fd)
+        if len(calls) == 2:
+            raise OSError(28, "No space left on device")
+        return real(fd)
+
+    monkeypatch.setattr(atomicfile.os, "fsync", full_disk_on_second)
+    with pytest.raises(OSError) as err:
+        atomicfile.write_files_atomic([(first, "new a\n"), (second, "new b\n")])
+    monkeypatch.undo()
+    assert err.value.filename == str(second)
+    assert first.read_text() == "old a\n"  # the first was complete but not moved: all or nothing
+    assert _listing(tmp_path) == ["a.csv"]
+    atomicfile.write_files_atomic([(first, "new a\n"), (second, "new b\n")])
+    assert (first.read_text(), second.read_text()) == ("new a\n", "new b\n")
+    assert _listing(tmp_path) == ["a.csv", "b.json"]
+
+
+# ------------------------------------------------------------ keeping the user's file (round-trip edits)
+COMMENTED = """\
+# My buck: a bench prototype, rev B.   (comments, key order and notation must survive)
+format = "loopkit-design"
+version = 1
+title = "test buck"
+
+[stage]
+topology = "buck"     # synchronous
+fsw = "400kHz"        # fixed by EMI
+inductance = "4.7uH"
+dcr = "14m"
+r_switch = "25m"
+rectifier = "synchronous"
+r_rectifier = "10m"
+
+[[stage.output_caps]]   # X7R ceramics
+capacitance = "22u"
+esr = "3m"
+count = 4
+
+[operating]
+vout = "3.3"
+vin_min = "18"   # lowest bus
+vin_max = "32"
+vin_points = 3
+load_min = "0.5"
+load_max = "20"
+load_points = 3
+
+[sensing]
+reference = "0.8"
+r_top = "49k9"
+
+[compensator]
+network = "type3"
+fc = "40kHz"   # crossover target
+pm = 60        # deg
+"""
+
+
+def _diff(a: str, b: str) -> tuple[list[str], list[str]]:
+    """Lines removed from ``a`` and added in ``b``."""
+    import difflib
+
+    lines = list(difflib.ndiff(a.splitlines(), b.splitlines()))
+    return [x[2:] for x in lines if x.startswith("- ")], [x[2:] for x in lines if x.startswith("+ ")]
+
+
+def test_edit_changes_only_the_parts_and_keeps_everything_else():
+    from loopkit.designedit import edit_design_text
+
+    before = loads_design(COMMENTED)
+    parts = {"R1": 49.9e3, "R2": 6.81e3, "R3": 1.05e3, "C1": 3.9e-9, "C2": 82e-12, "C3": 560e-12}
+    after = dataclasses.replace(before, compensator=dataclasses.replace(before.compensator, parts=parts))
+    text = edit_design_text(COMMENTED, before, after)
+    removed, added = _diff(COMMENTED, text)
+    assert removed == []
+    assert [a for a in added if a.strip()] == [
+        "[compensator.parts]",
+        'R1 = "49.9k"',
+        'R2 = "6.81k"',
+        'R3 = "1.05k"',
+        'C1 = "3.9n"',
+        'C2 = "82p"',
+        'C3 = "560p"',
+    ]
+    assert text.startswith(COMMENTED)  # every line of the user's file, in its order, then the parts
+    assert loads_design(text) == after
+    assert "3.1622776601683795" not in text and "light_load" not in text
+
+
+def test_edit_of_targets_keeps_comments_notation_and_form():
+    from loopkit.designedit import edit_design_text
+
+    before = loads_design(COMMENTED)
+    comp = dataclasses.replace(before.compensator, fc=25e3, pm=55.0, parts={"R1": 49.9e3, "R2": 10e3})
+    after = dataclasses.replace(before, compensator=comp)
+    text = edit_design_text(COMMENTED, before, after)
+    removed, added = _diff(COMMENTED, text)
+    assert removed == ['fc = "40kHz"   # crossover target', "pm = 60        # deg"]
+    assert added[:2] == ['fc = "25kHz"   # crossover target', "pm = 55        # deg"]  # unit, comment, int kept
+    assert loads_design(text) == after
+
+
+def test_edit_of_a_range_writes_a_range_or_a_list_never_both():
+    from loopkit.designedit import edit_design_text
+
+    before = loads_design(COMMENTED)
+    wider = dataclasses.replace(before, operating=dataclasses.replace(before.operating, vin=(12.0, 22.0, 32.0)))
+    text = edit_design_text(COMMENTED, before, wider)
+    assert 'vin_min = "12"   # lowest bus' in text and "vin =" not in text
+    assert loads_design(text) == wider
+    odd = dataclasses.replace(before, operating=dataclasses.replace(before.operating, vin=(12.0, 13.0, 32.0)))
+    text = edit_design_text(COMMENTED, before, odd)
+    doc = tomllib.loads(text)["operating"]
+    assert doc["vin"] == ["12", "13", "32"] and not {"vin_min", "vin_max", "vin_points"} & set(doc)
+    assert loads_design(text) == odd
+
+
+def test_edit_of_banks_and_removed_parts():
+    from loopkit.designedit import edit_design_text
+
+    before = loads_design(COMMENTED)
+    bank = CapacitorBank(100e-6, 20e-3, 2)
+    more = dataclasses.replace(
+        before, stage=dataclasses.replace(before.stage, output_caps=(*before.stage.output_caps, bank))
+    )
+    text = edit_design_text(COMMENTED, before, more)
+    assert loads_design(text) == more
+    esr = dataclasses.replace(
+        before,
+        stage=dataclasses.replace(
+            before.stage, output_caps=(dataclasses.replace(before.stage.output_caps[0], esr=5e-3),)
+        ),
+    )
+    text = edit_design_text(COMMENTED, before, esr)
+    assert _diff(COMMENTED, text) == (['esr = "3m"'], ['esr = "5m"'])
+    with_parts = dataclasses.replace(before, compensator=dataclasses.replace(before.compensator, parts={"R1": 1e4}))
+    text = edit_design_text(COMMENTED, before, with_parts)
+    assert edit_design_text(text, with_parts, before).strip() == COMMENTED.strip()  # parts removed again
+
+
+def test_every_sample_survives_an_edit_of_its_parts(sample_path):
+    from loopkit.designedit import edit_design_text
+
+    text = sample_path.read_text(encoding="utf-8")
+    before = load_design(sample_path)
+    parts = {"R1": 12.1e3, "C1": 4.7e-9}
+    after = dataclasses.replace(before, compensator=dataclasses.replace(before.compensator, parts=parts))
+    edited = edit_design_text(text, before, after)
+    assert loads_design(edited) == after
+    removed, _ = _diff(text, edited)
+    assert all(
+        line.startswith(
+            ("R1 =", "C1 =", "Rz =", "Cz =", "R2 =", "C2 =", "R3 =", "C3 =", "Rb =", "Rc =", "Cc =", "Chf =", "Cpole =")
+        )
+        for line in removed
+    )
+    assert edited.count("#") >= text.count("#")  # no comment lost
+
+
+def test_update_refuses_a_file_changed_since_it_was_read(tmp_path):
+    from loopkit.designedit import update_design_file
+
+    path = tmp_path / "d.toml"
+    path.write_text(COMMENTED)
+    before = loads_design(COMMENTED)
+    after = dataclasses.replace(before, title="new")
+    path.write_text(edit(COMMENTED, 'dcr = "14m"', 'dcr = "20m"'))  # someone saved in between
+    with pytest.raises(DesignFileError, match="changed since loopkit read it"):
+        update_design_file(path, before, after)
+    assert 'dcr = "20m"' in path.read_text()
+
+
+def test_a_range_reads_back_as_the_range():
+    d = loads_design(COMMENTED)
+    doc = _written(d)["operating"]
+    assert (doc["load_min"], doc["load_max"], doc["load_points"]) == ("0.5", "20", 3)  # not 3.1622776601683795
+    assert (doc["vin_min"], doc["vin_max"], doc["vin_points"]) == ("18", "32", 3)
+    assert loads_design(dumps_design(d)) == d
 
 
 # ------------------------------------------------------------ error messages
@@ -560,3 +833,75 @@ def test_corner_order_is_vin_outermost():
     vin, load = op.corners()
     assert vin.tolist() == [18.0] * 3 + [25.0] * 3 + [32.0] * 3
     assert load.tolist() == [0.3, 1.5, 3.0] * 3
+
+
+def test_save_keeping_the_layout_of_the_file_there(tmp_path):
+    path = tmp_path / "d.toml"
+    path.write_text(COMMENTED)
+    before = loads_design(COMMENTED)
+    after = dataclasses.replace(before, stage=dataclasses.replace(before.stage, dcr=20e-3))
+    save_design(after, path, keep_layout=True)
+    assert _diff(COMMENTED, path.read_text()) == (['dcr = "14m"'], ['dcr = "20m"'])
+    assert load_design(path) == after
+    save_design(before, path)  # the default: the whole file from the design
+    assert "# My buck" not in path.read_text() and load_design(path) == before
+    path.write_text("not a design\n")
+    save_design(after, path, keep_layout=True)  # nothing to keep: written whole
+    assert load_design(path) == after
+
+
+SAMPLE_TEXTS = [(p.read_text(encoding="utf-8"), load_design(p)) for p in SAMPLES]
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    sample=st.sampled_from(SAMPLE_TEXTS),
+    inductance=st.floats(min_value=1e-7, max_value=1e-2),
+    dcr=st.floats(min_value=0.0, max_value=1.0),
+    esr=st.floats(min_value=0.0, max_value=1.0),
+    vin_scale=st.floats(min_value=1.0, max_value=1.5),
+    pm=st.floats(min_value=20.0, max_value=80.0),
+    ramp=st.floats(min_value=0.1, max_value=5.0),
+    parts=st.dictionaries(
+        st.sampled_from(["R1", "R2", "R3", "C1", "C2", "C3", "Rb"]),
+        st.floats(min_value=1e-12, max_value=1e7),
+        max_size=7,
+    ),
+    title=st.text(max_size=30),
+    changed=st.sets(st.sampled_from(["L", "dcr", "esr", "vin", "pm", "ramp", "parts", "title"]), min_size=1),
+)
+def test_edits_read_back_and_keep_every_comment(
+    sample, inductance, dcr, esr, vin_scale, pm, ramp, parts, title, changed
+):
+    from loopkit.designedit import edit_design_text
+
+    text, base = sample
+    stage, op, comp = base.stage, base.operating, base.compensator
+    if "L" in changed:
+        stage = dataclasses.replace(stage, inductance=inductance)
+    if "dcr" in changed:
+        stage = dataclasses.replace(stage, dcr=dcr)
+    if "esr" in changed:
+        stage = dataclasses.replace(
+            stage, output_caps=(dataclasses.replace(stage.output_caps[0], esr=esr), *stage.output_caps[1:])
+        )
+    if "vin" in changed:  # the top input voltage raised: a range stays a range where one fits
+        vin = op.vin[:-1] + (op.vin[-1] * vin_scale,)
+        op = dataclasses.replace(op, vin=vin, vin_nominal=None)
+    if "pm" in changed:
+        comp = dataclasses.replace(comp, pm=pm)
+    if "parts" in changed:
+        comp = dataclasses.replace(comp, parts=parts)
+    after = dataclasses.replace(
+        base,
+        stage=stage,
+        operating=op,
+        compensator=comp,
+        title=title if "title" in changed else base.title,
+        modulator=dataclasses.replace(base.modulator, ramp=ramp) if "ramp" in changed else base.modulator,
+    )
+    edited = edit_design_text(text, base, after)
+    assert loads_design(edited) == after
+    for line in text.splitlines():
+        if "#" in line and not line.lstrip().startswith("title"):
+            assert line[line.index("#") :] in edited  # every comment, whole-line or trailing, is kept
