@@ -300,22 +300,24 @@ class LoopSession:
         for candidate in found:  # checked on the exact loop: the search scores a coarse grid
             explicit = dict(zip(keys, candidate.zeros_hz + candidate.poles_hz))
             try:
-                parts, placement = self._solve(module, replace(targets, method="placement"), corner, explicit)
+                parts, _ = self._solve(module, replace(targets, method="placement"), corner, explicit, steps=6)
             except InfeasibleDesign:
                 continue
             score = self._shortfall(module, parts, targets)
             if best is None or score < best[0]:
-                best = (score, parts, placement, candidate)
+                best = (score, explicit, candidate)
         if best is None:
             return None
-        _, parts, placement, candidate = best
+        _, explicit, candidate = best
+        parts, placement = self._solve(module, replace(targets, method="placement"), corner, explicit)
         note = Finding("placement-searched",
                        "the K-factor placement left corners below the targets: zeros and poles were placed for the"
                        f" worst corner instead (zeros {', '.join(format_value(z, 'Hz') for z in candidate.zeros_hz)};"
                        f" poles {', '.join(format_value(p, 'Hz') for p in candidate.poles_hz)})", None, "note")
         return parts, replace(placement, notes=placement.notes + (note,))
 
-    def _solve(self, module, targets: Targets, corner: int, explicit: dict | None = None) -> tuple[dict, Placement]:
+    def _solve(self, module, targets: Targets, corner: int, explicit: dict | None = None,
+               steps: int = SOLVE_STEPS) -> tuple[dict, Placement]:
         """Parts meeting fc and PM at the design corner, on the network's real transfer.
 
         The placement is exact for the ideal network; with a finite op-amp the
@@ -333,7 +335,7 @@ class LoopSession:
         pm_goal, gain_scale = targets.pm_deg, 1.0
         fixed = {"R1": self.r1} if "R1" in module.DESIGNATORS else {}
         given = self.design.compensator.placement if explicit is None else explicit
-        for _ in range(SOLVE_STEPS):
+        for _ in range(steps):
             placement = place(targets.network, targets.method, targets.fc_hz, pm_goal, tu_fc * gain_scale, tu_ph,
                               corner, targets.boost_split, given, defaults)
             parts = module.synthesise(targets.fc_hz, placement.gain_at_fc, placement.zeros_hz, placement.poles_hz,

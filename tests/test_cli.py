@@ -604,3 +604,51 @@ def test_export_to_standard_output_device():
     from loopkit import export
 
     assert proc.stdout.startswith(export.bom_csv(_loop(BUCK)))  # written in place, not renamed over the device
+
+
+# ---------------------------------------------------------------------- exit status: 0 met, 1 not met, 2 bad input
+FOURSWITCH = ROOT / "sample_designs" / "fourswitch_automotive_9v.toml"
+
+
+@pytest.mark.parametrize("argv, status", [
+    (("design", str(BUCK)), 0),
+    (("design", str(FOURSWITCH), "--fc", "1k"), 1),  # unstable corners and GM below target
+    (("design", str(BUCK), "--pm", "89"), 1),  # more phase margin than any corner can have
+    (("design", str(BUCK), "--fc", "150k"), 1),  # above fsw/5: margins not trustworthy
+    (("bode", str(FOURSWITCH), "--loop", "--fc", "1k"), 1),
+    (("bode", str(FOURSWITCH)), 0),  # the plant alone reports no loop
+    (("design", str(BUCK), "--pm", "abc"), 2),
+    (("design", str(ROOT / "no-such-file.toml")), 2),
+])
+def test_exit_status_met_not_met_bad_input(capsys, argv, status):
+    code, out, err = run(capsys, *argv)
+    assert code == status, err
+    if status == 1:
+        assert "not met" in err
+        if argv[0] == "design":
+            assert " error: " in out  # the report names the corner and what to change
+    if status == 2:
+        assert "error:" in err
+
+
+def test_export_exits_1_when_not_met(capsys, tmp_path):
+    code, _, err = run(capsys, "export", str(FOURSWITCH), "--fc", "1k", "--bom", str(tmp_path / "bom.csv"))
+    assert code == 1 and "not met" in err and (tmp_path / "bom.csv").exists()
+
+
+def test_gain_margin_beyond_half_fsw_is_not_a_number(capsys):
+    """The 24 V buck's -180 deg crossing lies above fsw/2 = 200 kHz: shown as >fsw/2, JSON null + gm_state."""
+    import json
+
+    code, out, _ = run(capsys, "design", str(BUCK), "--json")
+    doc = json.loads(out)
+    assert code == 0
+    states = {c["gm_state"] for c in doc["corners"]}
+    assert "beyond-model" in states
+    for c in doc["corners"]:
+        if c["gm_state"] != "number":
+            assert c["gm_db"] is None
+        if c["gm_state"] == "beyond-model":
+            assert c["f180_beyond_model_hz"] > 200e3
+    code, out, _ = run(capsys, "design", str(BUCK))
+    assert GM_WORDS["beyond-model"] in out
