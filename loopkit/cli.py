@@ -28,7 +28,8 @@ import numpy as np
 
 from . import __version__
 from .atomicfile import check_writable, write_files_atomic, write_text_atomic
-from .design import NETWORKS, Design
+from .design import METHODS, NETWORKS, Design
+from .cautions import CAUTION
 from .designfile import load_design
 from .errors import DesignError, DesignFileError
 from .margins import GM_WORDS, gm_state
@@ -38,8 +39,6 @@ from .units import format_value, parse_value
 
 __all__ = ["CAUTION", "bode_table", "build_parser", "corner_name", "design_text", "main", "stage_report"]
 
-#: One-line caution carried by every output that reports results.
-CAUTION = "Caution: design aid only; verify on the bench; mains/HV needs licensed review."
 
 SERIES = ("E6", "E12", "E24", "E48", "E96", "E192", "none")
 
@@ -191,7 +190,7 @@ def stage_report(design: Design, stage: StageResult, path: str = "") -> str:
     notes = _findings_text(stage.findings)
     if notes:
         out += ["", "Warnings and notes:"] + notes
-    out += ["", CAUTION]
+    out += ["", wrap_note(CAUTION)]
     return "\n".join(out)
 
 
@@ -358,7 +357,7 @@ def design_text(result, path: str = "") -> str:
     notes = _findings_text(result.findings)
     if notes:
         out += ["", "Warnings and notes:"] + notes
-    out += ["", CAUTION]
+    out += ["", wrap_note(CAUTION)]
     return "\n".join(out)
 
 
@@ -436,7 +435,7 @@ def _cmd_bode(args) -> int:
             f"({_fmt(f_hz[0], 'Hz')} to {_fmt(f_hz[-1], 'Hz')})"
         )
     )
-    print(CAUTION)
+    print(wrap_note(CAUTION))
     return _verdict_status(result, "bode", args.file)
 
 
@@ -459,6 +458,8 @@ def _targets(design: Design, args):
         if not 0 < pm < 180:
             raise DesignError("--pm", args.pm, "must be between 0 and 180 deg")
         changes["pm_deg"] = pm
+    if getattr(args, "method", None) is not None:
+        changes["method"] = args.method
     if getattr(args, "network", None) is not None:
         changes["network"] = args.network
     elif getattr(args, "type", None) is not None:
@@ -503,6 +504,8 @@ def _add_target_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--pm", help="target phase margin, deg, e.g. 60")
     g.add_argument("--type", choices=("1", "2", "3"), help="op-amp network Type I, II or III")
     g.add_argument("--network", choices=NETWORKS, help="network by name (overrides --type)")
+    g.add_argument("--method", choices=METHODS,
+                   help="synthesis: auto (K-factor, then a search for the worst corner; default), k-factor, placement")
     g.add_argument(
         "--series",
         choices=SERIES,
@@ -562,7 +565,7 @@ def _cmd_export(args) -> int:
     # every file made in memory, then all written to temporaries and moved: a failure leaves none half-written
     write_files_atomic([(path, writer(result)) for _, path, writer in outputs])
     print(wrap_note(f"wrote {', '.join(path for _, path, _ in outputs)}"))
-    print(CAUTION)
+    print(wrap_note(CAUTION))
     return _verdict_status(result, "export", args.file)
 
 
@@ -597,11 +600,13 @@ def _cmd_stage(args) -> int:
 
 
 def _cmd_gui(args) -> int:
-    try:
-        from app.main import main as app_main  # lazy: Qt only for this command
-    except ImportError as exc:
-        raise DesignError("gui", "app", f"the desktop app cannot start: {exc}") from None
-    return int(app_main([args.file] if args.file else []) or 0)
+    """Start the desktop app (package ``app``) as its own process: the library never imports it."""
+    import importlib.util
+    import subprocess
+
+    if importlib.util.find_spec("app") is None:
+        raise DesignError("gui", "app", "the desktop app is not installed with this loopkit")
+    return subprocess.call([sys.executable, "-m", "app", *([args.file] if args.file else [])])
 
 
 # ---------------------------------------------------------------------- parser

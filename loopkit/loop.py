@@ -20,6 +20,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from . import eseries
+from .cautions import CAUTION
 from .design import Design
 from .errors import Finding, InfeasibleDesign
 from .margins import Margins, loop_margins
@@ -45,9 +46,6 @@ __all__ = [
     "modulator_transfer",
     "network_context",
 ]
-
-CAUTION = ("loopkit is a design aid: verify every loop on the bench (measured loop gain, load steps) before use."
-           " Converters store energy and may carry hazardous voltages; follow local codes and licensed practice.")
 
 #: Fixed-point steps correcting gain (and boost) for a finite amplifier at the design corner.
 SOLVE_STEPS = 40
