@@ -96,8 +96,8 @@ def _targets_only(a: Design, b: Design) -> bool:
     """True when ``a`` and ``b`` differ at most in loop-target fields."""
     if a is None or b is None:
         return False
-    if (a.stage, a.operating, a.sensing, a.modulator, a.title) != (b.stage, b.operating, b.sensing, b.modulator,
-                                                                   b.title):
+    if (a.stage, a.operating, a.sensing, a.modulator, a.control, a.title) != (
+            b.stage, b.operating, b.sensing, b.modulator, b.control, b.title):
         return False
     ca, cb = a.compensator, b.compensator
     return all(getattr(ca, f.name) == getattr(cb, f.name) for f in fields(Compensator) if f.name not in TARGET_FIELDS)

@@ -28,8 +28,8 @@ import numpy as np
 
 from . import __version__
 from .atomicfile import check_writable, write_files_atomic, write_text_atomic
-from .design import METHODS, NETWORKS, Design
 from .cautions import CAUTION
+from .design import METHODS, NETWORKS, Design
 from .designfile import load_design
 from .errors import DesignError, DesignFileError
 from .margins import GM_WORDS, gm_state

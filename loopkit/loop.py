@@ -77,6 +77,33 @@ class Targets:
 
 
 @dataclass(frozen=True, eq=False)
+class OpenLoop:
+    """The uncompensated loop Tu per corner and on the analysis grid (response, continuous phase)."""
+
+    tu: Rational
+    resp: np.ndarray
+    phase_deg: np.ndarray
+
+    def with_network(self, gc: Rational, f_hz: np.ndarray, corner: int | None = None):
+        """(T, Gc on the grid, T on the grid, continuous phase of T) with the network ``gc``, every corner or one.
+
+        T = -Tu Gc; its continuous phase is the sum of the parts' factor angles, corrected for the
+        signs of the parts' gains and of the product's.
+        """
+        tu = self.tu if corner is None else self.tu.take(corner)
+        tu_resp = self.resp if corner is None else self.resp[corner:corner + 1]
+        tu_phase = self.phase_deg if corner is None else self.phase_deg[corner:corner + 1]
+        loop = -(tu * gc)
+        comp_resp = gc.response(f_hz)
+        resp = -tu_resp * comp_resp
+        phase = (tu_phase + gc.phase_deg(f_hz)
+                 - np.where(tu.gain < 0, -180.0, 0.0)[:, None]
+                 - np.where(gc.gain < 0, -180.0, 0.0)[:, None]
+                 + np.where(loop.gain < 0, -180.0, 0.0)[:, None])
+        return loop, comp_resp, resp, phase
+
+
+@dataclass(frozen=True, eq=False)
 class LoopResult:
     """Everything the designer sees about the loop; see /DEVELOPERS.md.
 
@@ -107,7 +134,7 @@ class LoopResult:
     worst_corner: int
     design_corner: int
     findings: tuple = field(default_factory=tuple)
-    session: LoopSession | None = field(default=None, repr=False)
+    open_loop: OpenLoop | None = field(default=None, repr=False)
 
     @property
     def met(self) -> bool:
@@ -124,7 +151,7 @@ class LoopResult:
             return None
         if self.compensator_exact is self.compensator:
             return self.loop_resp, self.loop_phase_deg
-        _, _, resp, phase = self.session._loop_on_grid(self.compensator_exact)
+        _, _, resp, phase = self.open_loop.with_network(self.compensator_exact, self.f_hz)
         return resp, phase
 
     @property
@@ -202,8 +229,8 @@ class LoopSession:
         self.ctx = network_context(design)
         self.scheme = scheme_module(design.control.scheme).uncompensated(design, self.stage)
         self.uncompensated = self.scheme.tu
-        self.tu_resp = self.uncompensated.response(self.f_hz)
-        self.tu_phase = self.uncompensated.phase_deg(self.f_hz)
+        self.open_loop = OpenLoop(self.uncompensated, self.uncompensated.response(self.f_hz),
+                                  self.uncompensated.phase_deg(self.f_hz))
         self.plant_resp = self.stage.gvd.response(self.f_hz)
         self.r1 = _default_r1(design, self.ctx)
         self._rhp_min = np.nanmin(self.stage.f_rhp_hz) if np.any(np.isfinite(self.stage.f_rhp_hz)) else np.nan
@@ -381,18 +408,7 @@ class LoopSession:
 
     def _loop_on_grid(self, gc: Rational, corner: int | None = None):
         """(T, Gc on the grid, T on the grid, continuous phase of T) for every corner or one."""
-        tu = self.uncompensated if corner is None else self.uncompensated.take(corner)
-        tu_resp = self.tu_resp if corner is None else self.tu_resp[corner:corner + 1]
-        tu_phase = self.tu_phase if corner is None else self.tu_phase[corner:corner + 1]
-        loop = -(tu * gc)
-        comp_resp = gc.response(self.f_hz)
-        resp = -tu_resp * comp_resp
-        # continuous phase of the product: sum of the parts' factor angles, sign of the product's gain
-        phase = (tu_phase + gc.phase_deg(self.f_hz)
-                 - np.where(tu.gain < 0, -180.0, 0.0)[:, None]
-                 - np.where(gc.gain < 0, -180.0, 0.0)[:, None]
-                 + np.where(loop.gain < 0, -180.0, 0.0)[:, None])
-        return loop, comp_resp, resp, phase
+        return self.open_loop.with_network(gc, self.f_hz, corner)
 
     def _assemble(self, targets: Targets, parts_exact: dict, placement: Placement | None, corner: int,
                   findings: list, snap: bool = True) -> LoopResult:
@@ -423,7 +439,7 @@ class LoopSession:
             poles_hz=tuple(poles), placement=placement, compensator=gc, compensator_exact=gc_exact, loop=loop,
             loop_exact=loop_x, plant_resp=self.plant_resp, comp_resp=comp_resp, loop_resp=resp,
             loop_phase_deg=phase, margins=margins, worst_corner=worst, design_corner=corner,
-            findings=tuple(_unique(findings)), session=self,
+            findings=tuple(_unique(findings)), open_loop=self.open_loop,
         )
 
     def _infeasible(self, targets, findings, field_name, value, allowed, reasons=()) -> LoopResult:
