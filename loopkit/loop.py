@@ -78,11 +78,14 @@ class Targets:
 
 @dataclass(frozen=True, eq=False)
 class OpenLoop:
-    """The uncompensated loop Tu per corner and on the analysis grid (response, continuous phase)."""
+    """The uncompensated loop Tu per corner and on the analysis grid (response, continuous phase), and the
+    line-to-output and output impedance of the plant with the scheme's inner loops closed."""
 
     tu: Rational
     resp: np.ndarray
     phase_deg: np.ndarray
+    gvg: Rational
+    zout: Rational
 
     def with_network(self, gc: Rational, f_hz: np.ndarray, corner: int | None = None):
         """(T, Gc on the grid, T on the grid, continuous phase of T) with the network ``gc``, every corner or one.
@@ -181,7 +184,7 @@ class LoopResult:
         """
         if self.loop_resp is None:
             raise ValueError("no loop: the targets were infeasible")
-        plant = {"zout": self.stage.zout, "gvg": self.stage.gvg}[which]
+        plant = {"zout": self.open_loop.zout, "gvg": self.open_loop.gvg}[which]
         return plant.response(self.f_hz) / (1.0 + self.loop_resp)
 
 
@@ -230,7 +233,7 @@ class LoopSession:
         self.scheme = scheme_module(design.control.scheme).uncompensated(design, self.stage)
         self.uncompensated = self.scheme.tu
         self.open_loop = OpenLoop(self.uncompensated, self.uncompensated.response(self.f_hz),
-                                  self.uncompensated.phase_deg(self.f_hz))
+                                  self.uncompensated.phase_deg(self.f_hz), self.scheme.gvg, self.scheme.zout)
         self.plant_resp = self.stage.gvd.response(self.f_hz)
         self.r1 = _default_r1(design, self.ctx)
         self._rhp_min = np.nanmin(self.stage.f_rhp_hz) if np.any(np.isfinite(self.stage.f_rhp_hz)) else np.nan
@@ -452,7 +455,8 @@ class LoopSession:
             feasible=False,
             network=targets.network, parts_exact={}, parts={}, zeros_hz=(), poles_hz=(), placement=None,
             compensator=None, compensator_exact=None, loop=None, loop_exact=None, plant_resp=self.plant_resp,
-            comp_resp=None, loop_resp=None, loop_phase_deg=None, margins=None, worst_corner=-1, design_corner=-1, findings=tuple(_unique(findings)),
+            comp_resp=None, loop_resp=None, loop_phase_deg=None, margins=None, worst_corner=-1, design_corner=-1,
+            findings=tuple(_unique(findings)), open_loop=self.open_loop,
         )
 
     # ------------------------------------------------------------------ findings
@@ -564,7 +568,7 @@ def closed_loop(result: LoopResult, which: str, exact_parts: bool = False) -> Ra
     loop = result.loop_exact if exact_parts else result.loop
     if loop is None:
         raise ValueError("no loop: the targets were infeasible")
-    plant = {"zout": result.stage.zout, "gvg": result.stage.gvg}[which]
+    plant = {"zout": result.open_loop.zout, "gvg": result.open_loop.gvg}[which]
     num, den = loop.polys()
     k = max(num.shape[1], den.shape[1])
     char = np.zeros((loop.n_corners, k))

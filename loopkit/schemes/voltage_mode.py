@@ -38,4 +38,5 @@ def modulator_transfer(design, vin: np.ndarray) -> Rational:
 def uncompensated(design, stage) -> SchemeLoop:
     """Tu = H Fm Gvd at every corner."""
     fm = modulator_transfer(design, stage.vin)
-    return SchemeLoop(tu=sensing_transfer(design) * fm * stage.gvd, figures={"fm": fm.gain.copy()}, findings=())
+    return SchemeLoop(tu=sensing_transfer(design) * fm * stage.gvd, gvg=stage.gvg, zout=stage.zout,
+                      figures={"fm": fm.gain.copy()}, findings=())
