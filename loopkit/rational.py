@@ -176,14 +176,19 @@ def _roots_as_factors(coeffs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     zero_low = np.argmax(c != 0, axis=1)  # number of zero low-order coefficients
     if np.any(np.all(c == 0, axis=1)):
         raise ValueError("a polynomial is identically zero")
-    for k in np.unique(zero_low):
-        rows = np.nonzero(zero_low == k)[0]
-        w = poly_roots_inverse(c[rows, k:])
+    # rows grouped by lowest and highest nonzero coefficient: trailing zeros left in a
+    # companion matrix make a multiple eigenvalue at 0 that splits by eps^(1/multiplicity)
+    # and can crowd out genuine small inverse roots
+    top = m1 - 1 - np.argmax(c[:, ::-1] != 0, axis=1)
+    for k, t in {(int(a), int(b)) for a, b in zip(zero_low, top)}:
+        rows = np.nonzero((zero_low == k) & (top == t))[0]
+        w = poly_roots_inverse(c[rows, k : t + 1])
         gain[rows] = c[rows, k]
         factors[np.ix_(rows, np.arange(k), [0])] = 0.0
         factors[np.ix_(rows, np.arange(k), [1])] = 1.0
         factors[rows, k:, 0] = 1.0
-        factors[rows, k:, 1] = -w
+        factors[rows, k:, 1] = 0.0
+        factors[rows, k:t, 1] = -w
     return gain, factors
 
 
@@ -401,8 +406,9 @@ class Rational:
 
         Denominator factors present in both terms (the same plant poles, e.g. Gid
         and Gvd over one characteristic polynomial) are kept once, so the sum is
-        not padded with cancelling pole-zero pairs; the numerator of the sum is
-        rooted afresh.  Terms with different delays cannot be summed in factored
+        not padded with cancelling pole-zero pairs; numerator factors common to
+        both terms stay as they are, and only the rest of the numerator is
+        rooted afresh (multiple roots would lose accuracy there).  Terms with different delays cannot be summed in factored
         form (ValueError).
         """
         other = self._as_rational(other)
@@ -411,8 +417,12 @@ class Rational:
         if np.any(a.delay_s != b.delay_s):
             raise ValueError("Rational sum: the terms have different delays")
         a_only, b_only = _unshared(a.den, b.den)
-        pa = _poly_from_factors(a.gain, np.concatenate([a.num, b_only], axis=1))
-        pb = _poly_from_factors(b.gain, np.concatenate([b.num, a_only], axis=1))
+        # a + b = (Na Eb + Nb Ea) / (Da Eb): factors common to both products stay factored
+        na, nb = np.concatenate([a.num, b_only], axis=1), np.concatenate([b.num, a_only], axis=1)
+        na_rest, nb_rest = _unshared(na, nb)
+        common = np.where(np.all(na_rest == _PAD, axis=-1)[..., None], na, _PAD)
+        pa = _poly_from_factors(a.gain, na_rest)
+        pb = _poly_from_factors(b.gain, nb_rest)
         m = max(pa.shape[1], pb.shape[1])
         total = np.zeros((n, m))
         total[:, : pa.shape[1]] += pa
@@ -421,6 +431,7 @@ class Rational:
         total[zero, 0] = 1.0  # an identically zero row: gain 0 below, factors irrelevant
         gain, num = _polished_factors(total)
         gain[zero] = 0.0
+        num = np.concatenate([common, num], axis=1)
         return Rational(gain, num, np.concatenate([a.den, b_only], axis=1), a.delay_s.copy())
 
     __radd__ = __add__
