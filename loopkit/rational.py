@@ -453,6 +453,22 @@ class Rational:
             total = total + p
         return total
 
+    def cancel(self, rtol: float = 1e-12) -> Rational:
+        """The same function with numerator and denominator factors that agree to ``rtol`` removed.
+
+        Meant for factors that are the same by construction (the plant's poles
+        coming back as zeros of a closed loop built from it), not for
+        approximate cancellation: the default tolerance only matches factors
+        equal to rounding.
+        """
+        num, den = _unshared(self.num, self.den, rtol)
+
+        def compact(f):  # drop the factor columns that are padding at every corner
+            keep = ~np.all(np.all(f == _PAD, axis=-1), axis=0)
+            return f[:, keep]
+
+        return Rational(self.gain.copy(), compact(num), compact(den), self.delay_s.copy())
+
     def feedback(self, other=1.0, sign: int = -1) -> Rational:
         """Closed loop ``self / (1 - sign * self * other)`` per corner (python-control's ``feedback``).
 
