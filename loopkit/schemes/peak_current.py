@@ -31,7 +31,7 @@ capacitor bank's ESR, the pulsed-ESR term) is in it.  ``He`` is Ridley's
 quadratic, which is the exact sampling gain ``s Ts / (exp(s Ts) - 1)`` matched
 at ``wn``; ``sampling="pade"`` uses instead the (4, 4) Pade approximant of the
 exponential in that exact gain, ``(1 - x/2 + 3x^2/28 - x^3/84 + x^4/1680) /
-(1 + x^2/42)`` with ``x = s Ts``, within 0.001 dB / 0.01 deg of it up to fsw/2.
+(1 + x^2/42)`` with ``x = s Ts``, within 0.001 dB / 0.03 deg of it up to fsw/2.
 
 The feedforward and feedback gains kf, kr come from the average of the
 inductor current under a programmed peak (Erickson & Maksimovic, Fundamentals
@@ -68,7 +68,10 @@ and into the stage's reduced-order averaged switch model (``i2 = j2 d + g2 vg
     vo/vc = k1 Zout / (1 + k2 Zout),  k1 = sign j2 D/(mc Ri Ipk),  k2 = sign j2 D sn_v/(mc sn)
 
 ``Zout = 1/(Y_o + 1/r2)`` is the stage's DCM output impedance.  Only the buck
-(and the four-switch stage in buck mode) has ``sn_v != 0``.  Ideal buck-boost
+(and the four-switch stage in buck mode) has ``sn_v != 0``: without ramp its
+switch network's output conductance is negative above M = 1/2, and above
+M = 2/3 it outweighs the load's 1/R, so the model has a right-half-plane pole
+there (a ramp removes it) as the steady state under the comparator law says.  Ideal buck-boost
 without ramp: the output port is a power source, pole ``2/(R C)``, dc gain
 ``V/(Ri Ipk)``.  No high-frequency pole is added (the voltage-mode DCM model's
 2 fsw/D2 pole is the inductor current's lag behind d, which current programming
