@@ -80,6 +80,8 @@ removes); the sampling effects near fsw/2 are not modelled in DCM.
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 
 from ..errors import DesignError, Finding
@@ -157,14 +159,16 @@ def sampling_gain(ts_s: float, n: int = 1, sampling: str = "quadratic") -> Ratio
     """
     if sampling not in SAMPLING:
         raise DesignError("sampling", sampling, f"must be one of {', '.join(SAMPLING)}")
-    t = float(ts_s)
+    return _sampling_gain_one(float(ts_s), sampling).take(np.zeros(int(n), dtype=int))  # fresh arrays
+
+
+@lru_cache(maxsize=32)
+def _sampling_gain_one(t: float, sampling: str) -> Rational:
     if sampling == "quadratic":
         wn, qz = np.pi / t, -2.0 / np.pi
-        num = [1.0, 1.0 / (wn * qz), 1.0 / wn**2]
-        return Rational.from_polys(np.tile(num, (n, 1)), np.ones((n, 1)))
+        return Rational.from_polys([[1.0, 1.0 / (wn * qz), 1.0 / wn**2]], [[1.0]])
     num = [1.0, -t / 2.0, 3.0 * t**2 / 28.0, -(t**3) / 84.0, t**4 / 1680.0]
-    den = [1.0, 0.0, t**2 / 42.0]
-    return Rational.from_polys(np.tile(num, (n, 1)), np.tile(den, (n, 1)))
+    return Rational.from_polys([num], [[1.0, 0.0, t**2 / 42.0]])
 
 
 # ---------------------------------------------------------------------------- gains
