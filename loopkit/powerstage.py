@@ -21,9 +21,11 @@ from .rational import TWO_PI, Rational
 from .stages import groups, topology_module
 from .stages.base import (
     ccm_gid,
+    ccm_gig_gii,
     ccm_slopes,
     ccm_transfer_functions,
     dcm_gid,
+    dcm_gig_gii,
     dcm_slopes,
     dcm_transfer_functions,
     hf_pole_hz,
@@ -70,6 +72,10 @@ class StageResult:
         magnetising current seen from the primary, which the primary switch
         carries while on).  CCM from the averaged equations; DCM from the
         reduced-order model (see :func:`loopkit.stages.base.dcm_gid`).
+    gig, gii : Rational
+        Line-to-inductor-current (A/V) and output-current-injection-to-inductor-
+        current (A/A), d = 0: what current mode needs for its closed-loop
+        line-to-output and output impedance.
     sn_a_per_s, sf_a_per_s : ndarray
         Inductor current slope while the switch is on and while it is off, A/s,
         both positive (flyback: seen from the primary).  DCM: the rise and the
@@ -104,6 +110,8 @@ class StageResult:
     zout: Rational
     findings: tuple
     gid: Rational
+    gig: Rational
+    gii: Rational
     sn_a_per_s: np.ndarray
     sf_a_per_s: np.ndarray
     slope_sensitivity_per_h: np.ndarray
@@ -201,7 +209,7 @@ def analyse_stage(design: Design) -> StageResult:
         )
     }
     sens = np.full((n, 2, 2), np.nan)
-    parts_id = []
+    parts_id, parts_ig, parts_ii = [], [], []
     dcm_mask = np.zeros(n, bool)
     submode = np.full(n, "", dtype=object)
     parts_vd, parts_vg, parts_zo, order = [], [], [], []
@@ -234,6 +242,8 @@ def analyse_stage(design: Design) -> StageResult:
                 out["f_rhp_hz"][k] = np.where((sel.b_d != 0) & (rhp > 0), rhp, np.nan)
             parts_vd.append(gvd), parts_vg.append(gvg), parts_zo.append(zo), order.append(k)
             parts_id.append(ccm_gid(st, sel, r_load[idx][ccm_idx]))
+            gig, gii = ccm_gig_gii(st, sel, r_load[idx][ccm_idx])
+            parts_ig.append(gig), parts_ii.append(gii)
             out["sn"][k], out["sf"][k] = ccm_slopes(sel, st.fsw)
             sens[k] = module.slope_sensitivity(st)
         if dcm_idx.size:
@@ -253,6 +263,8 @@ def analyse_stage(design: Design) -> StageResult:
             out["sn"][k], out["sf"][k] = dcm_slopes(dp, st.fsw)
             sens[k] = module.slope_sensitivity(st)
             parts_id.append(dcm_gid(st, dp, gvd, sens[k], out["i_l"][k]))
+            gig, gii = dcm_gig_gii(st, dp, gvg, zo, sens[k], out["i_l"][k])
+            parts_ig.append(gig), parts_ii.append(gii)
     order_all = np.concatenate(order)
     gvd = Rational.stack(parts_vd, order_all)
     gvg = Rational.stack(parts_vg, order_all)
@@ -282,6 +294,8 @@ def analyse_stage(design: Design) -> StageResult:
         zout=zout,
         findings=tuple(findings),
         gid=Rational.stack(parts_id, order_all),
+        gig=Rational.stack(parts_ig, order_all),
+        gii=Rational.stack(parts_ii, order_all),
         sn_a_per_s=out["sn"],
         sf_a_per_s=out["sf"],
         slope_sensitivity_per_h=sens,

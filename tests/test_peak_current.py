@@ -72,10 +72,12 @@ def _check_gid_and_slopes(design):
             mode, _ = ssa.four_switch_mode(st, float(r.vin[k]), vout, float(r.load[k]))
         pt = ssa.solve(ssa.params_from_stage(st, mode), float(r.vin[k]), vout, float(r.load[k]))
         f = _grid(st.fsw)
-        ratio = r.gid.take(int(k)).response(f)[0] / ssa.responses(pt, f)["gid"]
+        ref = ssa.responses(pt, f)
         where = f"{design.title or st.topology} corner {k}"
-        assert np.max(np.abs(20 * np.log10(np.abs(ratio)))) < MAX_DB, where
-        assert np.max(np.abs(np.degrees(np.angle(ratio)))) < MAX_DEG, where
+        for name in ("gid", "gig", "gii"):
+            ratio = getattr(r, name).take(int(k)).response(f)[0] / ref[name]
+            assert np.max(np.abs(20 * np.log10(np.abs(ratio)))) < MAX_DB, f"{where} {name}"
+            assert np.max(np.abs(np.degrees(np.angle(ratio)))) < MAX_DEG, f"{where} {name}"
         sn, sf = ssa.slopes(pt)
         assert r.sn_a_per_s[k] == pytest.approx(sn, rel=1e-9), where
         assert r.sf_a_per_s[k] == pytest.approx(sf, rel=1e-9), where
@@ -85,7 +87,7 @@ def _check_gid_and_slopes(design):
 
 
 def test_gid_and_slopes_of_sample_designs(sample_path):
-    """Gid within 0.01 dB / 0.1 deg of [MC] from 10 Hz to fsw/2; slopes equal the switched circuit's."""
+    """Gid, Gig and Gii within 0.01 dB / 0.1 deg of [MC] from 10 Hz to fsw/2; slopes equal the switched circuit's."""
     assert _check_gid_and_slopes(load_design(sample_path)) > 0
 
 
@@ -163,7 +165,8 @@ def _dcm_average_current(topology, vg, duty, k):
     ("topology", "vin", "vout"), [("buck", 12.0, 5.0), ("boost", 5.0, 12.0), ("inverting-buck-boost", 12.0, -9.0)]
 )
 def test_dcm_gid_dc_gain_against_the_dcm_steady_state(topology, vin, vout):
-    """Gid(0) at a DCM corner equals d<iL>/dD of the ideal DCM steady state ([EM] ch. 11 M, finite difference)."""
+    """Gid(0) and Gig(0) at a DCM corner equal d<iL>/dD and d<iL>/dVg of the ideal DCM steady state ([EM]
+    ch. 11 M, finite differences)."""
     design = ideal_design(topology, vin, vout, 0.05, l_h=2e-6, dcm=True)
     r = analyse_stage(design)
     assert r.dcm[0]
@@ -174,6 +177,9 @@ def test_dcm_gid_dc_gain_against_the_dcm_steady_state(topology, vin, vout):
     # scale: R = 1 and Ts = 1 in the helper, so currents scale by 1/R
     slope = (_dcm_average_current(topology, vin, d + h, k) - _dcm_average_current(topology, vin, d - h, k)) / (2 * h)
     assert r.gid.dc_gain()[0] == pytest.approx(slope / rl, rel=1e-6)
+    g = 1e-6 * vin  # and Gig(0): d<iL>/dVg at fixed D
+    line = (_dcm_average_current(topology, vin + g, d, k) - _dcm_average_current(topology, vin - g, d, k)) / (2 * g)
+    assert r.gig.dc_gain()[0] == pytest.approx(line / rl, rel=1e-6)
     assert r.i_l[0] == pytest.approx(_dcm_average_current(topology, vin, d, k) / rl, rel=1e-9)
 
 
@@ -273,19 +279,21 @@ def test_fm_from_the_comparator_slopes(topology, vin, vout, turns):
 
 
 # ---------------------------------------------------------------------------- dc gain, every topology
-def _pcm_ccm_vc(topology, vg, v, r_load, l_h, ts, ri, se, turns):
-    """Control voltage for which the ideal CCM stage sits at output v (comparator law at the peak)."""
+def _pcm_ccm_vc(topology, vg, v, r_load, l_h, ts, ri, se, turns, i_inj=0.0):
+    """Control voltage for which the ideal CCM stage sits at output v (comparator law at the peak);
+    ``i_inj`` is a current injected into the output node (the stage then supplies |v|/R - i_inj)."""
     av = abs(v)
+    io = av / r_load - np.sign(v) * i_inj
     if topology == "buck":
-        d, il, sn = v / vg, v / r_load, (vg - v) / l_h
+        d, il, sn = v / vg, io, (vg - v) / l_h
     elif topology == "boost":
-        d, il, sn = 1 - vg / v, v * v / (r_load * vg), vg / l_h
+        d, il, sn = 1 - vg / v, io * v / vg, vg / l_h
     elif topology == "inverting-buck-boost":
         d = av / (vg + av)
-        il, sn = av / (r_load * (1 - d)), vg / l_h
+        il, sn = io / (1 - d), vg / l_h
     else:  # flyback, magnetising current seen from the primary
         d = turns * av / (vg + turns * av)
-        il, sn = av / (r_load * turns * (1 - d)), vg / l_h
+        il, sn = io / (turns * (1 - d)), vg / l_h
     ipk = il + sn * d * ts / 2.0
     return ri * ipk + se * d * ts
 
@@ -304,6 +312,29 @@ def test_dc_gain_equals_the_comparator_steady_state(topology, vin, vout, turns, 
         topology, vin, vout - s * dv, rl, l_h, 1 / fsw, ri, se, turns
     )
     assert h.dc_gain()[0] == pytest.approx(2 * s * dv / dvc, rel=1e-6)
+
+
+@pytest.mark.parametrize(("topology", "vin", "vout", "turns"), [(t, v, o, n) for t, v, o, n, *_ in IDEAL_SLOPES])
+@pytest.mark.parametrize("se", [0.0, 4e4])
+def test_line_and_output_impedance_at_dc_against_the_comparator_steady_state(topology, vin, vout, turns, se):
+    """With vc held: dV/dVg and dV/dI_inj of the ideal CCM steady state under the comparator law (finite
+    differences of vc(V, Vg, I_inj)) equal the dc values of line_to_output and output_impedance: checks
+    kf, kr, Gig and Gii together, for every topology."""
+    l_h, fsw, ri, load = 10e-6, 200e3, 0.2, 2.0
+    r = analyse_stage(ideal_design(topology, vin, vout, load, l_h=l_h, turns=turns, fsw=fsw))
+    rl, ts = abs(vout) / load, 1 / fsw
+
+    def vc(v=vout, vg=vin, ii=0.0):
+        return _pcm_ccm_vc(topology, vg, v, rl, l_h, ts, ri, se, turns, ii)
+
+    hv, hg, hi = 1e-5 * abs(vout), 1e-5 * vin, 1e-5 * load
+    dvc_dv = (vc(v=vout + hv) - vc(v=vout - hv)) / (2 * hv)
+    dvc_dg = (vc(vg=vin + hg) - vc(vg=vin - hg)) / (2 * hg)
+    dvc_di = (vc(ii=hi) - vc(ii=-hi)) / (2 * hi)
+    line = pc.line_to_output(r, ri, se).dc_gain()[0]
+    zout = pc.output_impedance(r, ri, se).dc_gain()[0]
+    assert line == pytest.approx(-dvc_dg / dvc_dv, rel=1e-5, abs=1e-9)
+    assert zout == pytest.approx(-dvc_di / dvc_dv, rel=1e-5)
 
 
 def test_four_switch_modes_and_transition_band():
@@ -335,13 +366,16 @@ def test_four_switch_modes_and_transition_band():
 @pytest.mark.parametrize("sampling", pc.SAMPLING)
 @pytest.mark.parametrize("sample", SAMPLES, ids=[p.stem for p in SAMPLES])
 def test_inner_loop_algebra_against_python_control(sample, sampling):
-    """vo/vc = Gvd Fm / (1 + Fm (Ri He Gid - kr Gvd)) built by python-control (parallel, feedback, series)
-    from the plant's own Gvd and Gid equals the module's, at every CCM corner of every sample."""
+    """vo/vc = Gvd Fm / (1 + Fm (Ri He Gid - kr Gvd)), and the closed current loop's line-to-output and
+    output impedance, built by python-control (parallel, feedback, series) from the plant's own transfer
+    functions equal the module's, at every CCM corner of every sample."""
     control = pytest.importorskip("control")
     r = analyse_stage(load_design(sample))
     ri = 0.05
     se = pc.auto_slope(r, ri)
     h = pc.control_to_output(r, ri, se, sampling=sampling)
+    line_h = pc.line_to_output(r, ri, se, sampling=sampling)
+    out_h = pc.output_impedance(r, ri, se, sampling=sampling)
     fig = pc.figures(r, ri, se)
     f = np.logspace(1, np.log10(r.fsw_hz / 2), 60)
     s = 1j * TWO_PI * f
@@ -349,8 +383,18 @@ def test_inner_loop_algebra_against_python_control(sample, sampling):
     for k in np.nonzero(~r.dcm)[0]:
         gvd, gid = r.gvd.to_control(int(k)), r.gid.to_control(int(k))
         inner = control.parallel(ri * he * gid, -fig["kr"][k] * gvd)
-        ref = gvd * control.feedback(control.tf([fig["fm"][k]], [1.0]), inner)
+        d_per_vc = control.feedback(control.tf([fig["fm"][k]], [1.0]), inner)
+        ref = gvd * d_per_vc
         np.testing.assert_allclose(h.take(int(k)).response(f)[0], ref(s), rtol=1e-6)
+        gvg, gig, gii = (getattr(r, x).to_control(int(k)) for x in ("gvg", "gig", "gii"))
+        zout = r.zout.to_control(int(k))
+        line = control.parallel(
+            gvg,
+            gvd * d_per_vc * control.parallel(fig["kr"][k] * gvg, -ri * he * gig, control.tf([fig["kf"][k]], [1.0])),
+        )
+        out = control.parallel(zout, gvd * d_per_vc * control.parallel(fig["kr"][k] * zout, -ri * he * gii))
+        np.testing.assert_allclose(line_h.take(int(k)).response(f)[0], line(s), rtol=1e-6)
+        np.testing.assert_allclose(out_h.take(int(k)).response(f)[0], out(s), rtol=1e-6)
 
 
 def test_pade_sampling_gain_against_the_exact_one():
@@ -439,7 +483,7 @@ def test_dcm_buck_boost_is_a_power_source():
     assert p.size == 1 and -p[0].real * TWO_PI == pytest.approx(2.0 / (rl * c_f), rel=1e-9)
 
 
-def _dcm_pcm_output(topology, vg, vc, r_load, l_h, fsw, ri, se, v_near):
+def _dcm_pcm_output(topology, vg, vc, r_load, l_h, fsw, ri, se, v_near, i_inj=0.0):
     """Output of the ideal DCM stage whose peak is set by Ri ipk + Se D Ts = vc (energy / charge balance)."""
 
     def err(v):
@@ -449,7 +493,7 @@ def _dcm_pcm_output(topology, vg, vc, r_load, l_h, fsw, ri, se, v_near):
             i2 = 0.5 * l_h * fsw * ipk**2 * vg / (v * (vg - v))
         else:  # boost: only the falling part reaches the output
             i2 = 0.5 * l_h * fsw * ipk**2 / (v - vg)
-        return i2 - v / r_load
+        return i2 + i_inj - v / r_load
 
     # the buck's i2(v) has a minimum, so two solutions may exist: bracket the one near the design point
     return brentq(err, 0.95 * v_near, 1.05 * v_near, xtol=1e-13)
@@ -478,6 +522,19 @@ def test_dcm_dc_gain_against_the_comparator_steady_state(topology, vin, vout, se
     up = _dcm_pcm_output(topology, vin, vc + dvc, rl, l_h, fsw, ri, se, vout)
     down = _dcm_pcm_output(topology, vin, vc - dvc, rl, l_h, fsw, ri, se, vout)
     assert h.dc_gain()[0] == pytest.approx((up - down) / (2 * dvc), rel=1e-5)
+    # line-to-output and output impedance with vc held: the same steady state moved by Vg and by a
+    # current injected into the output (the load then takes the stage's current plus the injection)
+    dg, di = 1e-6 * vin, 1e-6 * load
+    line = (
+        _dcm_pcm_output(topology, vin + dg, vc, rl, l_h, fsw, ri, se, vout)
+        - _dcm_pcm_output(topology, vin - dg, vc, rl, l_h, fsw, ri, se, vout)
+    ) / (2 * dg)
+    zo = (
+        _dcm_pcm_output(topology, vin, vc, rl, l_h, fsw, ri, se, vout, di)
+        - _dcm_pcm_output(topology, vin, vc, rl, l_h, fsw, ri, se, vout, -di)
+    ) / (2 * di)
+    assert pc.line_to_output(r, ri, se).dc_gain()[0] == pytest.approx(line, rel=1e-5)
+    assert pc.output_impedance(r, ri, se).dc_gain()[0] == pytest.approx(zo, rel=1e-5)
     unstable = topology == "buck" and se == 0.0 and vout / vin > 2.0 / 3.0
     assert bool(np.any(p.real > 0)) == unstable
 

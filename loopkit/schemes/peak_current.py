@@ -97,6 +97,8 @@ __all__ = [
     "control_to_output",
     "figures",
     "findings",
+    "line_to_output",
+    "output_impedance",
     "sampling_gain",
 ]
 
@@ -253,6 +255,77 @@ def _dcm_control_to_output(stage: StageResult, ri: float, se: np.ndarray, idx: n
     k1 = sign_j2 * d / (mc * ri * ipk)
     k2 = sign_j2 * d * sn_v / (mc * sn)
     return zout.feedback(Rational.constant(k2)) * k1
+
+
+def _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, which):
+    ri, se = _checked(stage, sense_gain_ohm, slope_v_per_s)
+    if sampling not in SAMPLING:
+        raise DesignError("sampling", sampling, f"must be one of {', '.join(SAMPLING)}")
+    parts, order = [], []
+    ccm = np.nonzero(~stage.dcm)[0]
+    dcm = np.nonzero(stage.dcm)[0]
+    if ccm.size:
+        g = {k: v[ccm] for k, v in _ccm_gains(stage, ri, se).items()}
+        gvd, gid = stage.gvd.take(ccm), stage.gid.take(ccm)
+        he = sampling_gain(stage.ts_s, ccm.size, sampling)
+        d_per_vc = Rational.constant(g["fm"]).feedback(gid * he * ri - gvd * g["kr"])
+        if which == "line":
+            gvg = stage.gvg.take(ccm)
+            drive = gvg * g["kr"] - stage.gig.take(ccm) * he * ri + g["kf"]
+            parts.append(gvg + (gvd * d_per_vc * drive).cancel())
+        else:
+            zout = stage.zout.take(ccm)
+            drive = zout * g["kr"] - stage.gii.take(ccm) * he * ri
+            parts.append(zout + (gvd * d_per_vc * drive).cancel())
+        order.append(ccm)
+    if dcm.size:
+        zout, gvd, gvg = stage.zout.take(dcm), stage.gvd.take(dcm), stage.gvg.take(dcm)
+        sign_j2 = gvd.dc_gain() / zout.dc_gain()
+        sign_g2 = gvg.dc_gain() / zout.dc_gain()
+        d, sn = stage.duty[dcm], stage.sn_a_per_s[dcm]
+        mc = 1.0 + se[dcm] / (ri * sn)
+        sens = stage.slope_sensitivity_per_h[dcm]
+        z_cpm = zout.feedback(Rational.constant(sign_j2 * d * sens[:, 0, 1] / (mc * sn)))
+        if which == "line":
+            parts.append(z_cpm * (sign_g2 - sign_j2 * d * sens[:, 0, 0] / (mc * sn)))
+        else:
+            parts.append(z_cpm)
+        order.append(dcm)
+    return Rational.stack(parts, np.concatenate(order))
+
+
+def line_to_output(
+    stage: StageResult, sense_gain_ohm: float, slope_v_per_s, *, sampling: str = "quadratic"
+) -> Rational:
+    """Line-to-output vo/vg with the current loop closed and vc held, V/V, per corner.
+
+    Notes
+    -----
+    CCM ([R91] model, see the module notes): with ``d = Fm (vc - Ri He iL + kf vg
+    + kr v)``, ``v = Gvd d + Gvg vg``, ``iL = Gid d + Gig vg``::
+
+        vo/vg = Gvg + Gvd Fm/(1 + Fm (Ri He Gid - kr Gvd)) (kf + kr Gvg - Ri He Gig)
+
+    DCM: ``(sign g2 - sign j2 D sn_vg/(mc sn)) Zout/(1 + k2 Zout)`` from the DCM
+    current-programmed model (k2 as in :func:`control_to_output`).  This is the
+    plant the voltage loop sees from the input: the closed voltage loop divides
+    it by 1 + T.
+    """
+    return _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, "line")
+
+
+def output_impedance(
+    stage: StageResult, sense_gain_ohm: float, slope_v_per_s, *, sampling: str = "quadratic"
+) -> Rational:
+    """Output impedance with the current loop closed and vc held, ohm, per corner (load included).
+
+    Notes
+    -----
+    CCM: ``Zout + Gvd Fm/(1 + Fm (Ri He Gid - kr Gvd)) (kr Zout - Ri He Gii)``,
+    ``Gii`` the inductor current per current injected into the output node.
+    DCM: ``Zout/(1 + k2 Zout)``.
+    """
+    return _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, "output")
 
 
 # ---------------------------------------------------------------------------- figures

@@ -57,9 +57,11 @@ __all__ = [
     "CcmPoint",
     "DcmPoint",
     "ccm_gid",
+    "ccm_gig_gii",
     "ccm_slopes",
     "ccm_transfer_functions",
     "dcm_gid",
+    "dcm_gig_gii",
     "dcm_slopes",
     "dcm_transfer_functions",
     "output_admittance",
@@ -245,6 +247,32 @@ def ccm_gid(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> Rational:
     return _over_char(gain, factors, char)
 
 
+def ccm_gig_gii(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> tuple[Rational, Rational]:
+    """Line-to-inductor-current ``Gig = i/vg`` (A/V) and output-injection-to-inductor-current
+    ``Gii = i/i_inj`` (A/A) of CCM corners, d = 0.
+
+    Notes
+    -----
+    From equations (1) and (2): ``i (Z_s ny - a_v b_i dy) = a_g ny vg + a_v dy i_inj``,
+    so ``Gig = a_g ny / char`` and ``Gii = a_v dy / char`` over Gvd's
+    characteristic polynomial.  Peak current mode needs them for its closed
+    current loop's line-to-output and output impedance.
+    """
+    n = op.duty.shape[0]
+    ny, dy = output_admittance(stage, r_load)
+    zs = np.stack([op.r_series, op.l_h], axis=1)
+    char = np.zeros((n, ny.shape[1] + 1))
+    for k in range(ny.shape[1]):
+        char[:, k] += ny[:, k] * zs[:, 0]
+        char[:, k + 1] += ny[:, k] * zs[:, 1]
+    char[:, : dy.shape[1]] -= (op.a_v * op.b_i)[:, None] * dy
+    g_ny, f_ny = _roots_as_factors(ny)
+    banks = _bank_factors(stage, n)  # dy = prod(1 + s ESR_k C_k)
+    gig = _over_char(op.a_g * g_ny, f_ny, char)
+    gii = _over_char(op.a_v * dy[:, 0], banks, char)
+    return gig, gii
+
+
 def ccm_slopes(op: CcmPoint, fsw: float) -> tuple[np.ndarray, np.ndarray]:
     """On- and off-time inductor current slopes (magnitudes, A/s) of CCM corners.
 
@@ -286,3 +314,27 @@ def dcm_gid(stage: Stage, op: DcmPoint, gvd: Rational, slope_sensitivity: np.nda
     w2 = 2.0 * stage.fsw / op.d2
     hf = Rational.from_factors(2.0 * i_l / op.duty, (), np.stack([np.ones(n), 1.0 / w2], axis=1)[:, None, :])
     return hf + gvd * dil_dv
+
+
+def dcm_gig_gii(
+    stage: Stage, op: DcmPoint, gvg: Rational, zout: Rational, slope_sensitivity: np.ndarray, i_l: np.ndarray
+) -> tuple[Rational, Rational]:
+    """Line-to-inductor-current and output-injection-to-inductor-current of DCM corners (d = 0).
+
+    Notes
+    -----
+    As in :func:`dcm_gid`: ``iL = Ts d^2 sn (sn + sf)/(2 sf)`` moves with vg and v
+    through the slopes, ``Gig = diL/dvg + (diL/dv) Gvg`` and
+    ``Gii = (diL/dv) Zout`` (reduced-order model; the vg term carries the
+    high-frequency pole of Sun et al. 2001 like Gvg does).
+    """
+    n = op.duty.shape[0]
+    sn, sf = dcm_slopes(op, stage.fsw)
+
+    def dlog(k):
+        a, b = slope_sensitivity[:, 0, k], slope_sensitivity[:, 1, k]
+        return i_l * (a / sn + (a + b) / (sn + sf) - b / sf)
+
+    w2 = 2.0 * stage.fsw / op.d2
+    direct = Rational.from_factors(dlog(0), (), np.stack([np.ones(n), 1.0 / w2], axis=1)[:, None, :])
+    return direct + gvg * dlog(1), zout * dlog(1)

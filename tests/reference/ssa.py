@@ -261,7 +261,12 @@ def solve(p: SsaParams, vg: float, vout: float, load: float) -> SsaPoint:
 
 
 def responses(pt: SsaPoint, f_hz) -> dict[str, np.ndarray]:
-    """Gvd, Gvg, Zout and Gid (complex, one value per frequency in Hz) of a dc point."""
+    """Gvd, Gvg, Zout and the inductor current's Gid, Gig, Gii (complex, one value per frequency in Hz).
+
+    Gig: line to inductor current; Gii: current injected into the output node to
+    inductor current (the state x[0]; flyback: magnetising current seen from the
+    primary).
+    """
     a, b, c, e = pt.averaged()
     (a1, b1, c1, e1), (a2, b2, c2, e2) = pt.m1, pt.m2
     f_vec = (a1 - a2) @ pt.x + (b1 - b2) @ pt.u
@@ -273,7 +278,14 @@ def responses(pt: SsaPoint, f_hz) -> dict[str, np.ndarray]:
     sol = np.linalg.solve(si_a, np.broadcast_to(rhs, (s.size,) + rhs.shape))
     y = c[0] @ sol  # (nf, 3)
     # the inductor current is state 0: its control-to-state response is Gid (vg = 0)
-    return {"gvd": y[:, 0] + g_vec, "gvg": y[:, 1] + e[0, 0], "zout": y[:, 2] + e[0, 2], "gid": sol[:, 0, 0]}
+    return {
+        "gvd": y[:, 0] + g_vec,
+        "gvg": y[:, 1] + e[0, 0],
+        "zout": y[:, 2] + e[0, 2],
+        "gid": sol[:, 0, 0],
+        "gig": sol[:, 0, 1],
+        "gii": sol[:, 0, 2],
+    }
 
 
 def slopes(pt: SsaPoint) -> tuple[float, float]:
