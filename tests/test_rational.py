@@ -338,3 +338,20 @@ def test_feedback_with_a_constant_path_and_bad_arguments():
         g.feedback(1.0, sign=0)
     with pytest.raises(ValueError):
         Rational(g.gain, g.num, g.den, np.array([1e-6])).feedback(1.0)
+
+
+def test_cancel_removes_exactly_repeated_factors_like_control_minreal():
+    """(G * P) / P with the same factors: cancel() leaves G's poles and zeros (as control.minreal does)
+    and the same response; factors that differ beyond rounding are left alone."""
+    g = Rational.from_roots_hz([3.0, -2.0], [[-5e3], [2e4]], [[-100.0, -4e4], [-300.0, -4e4]])
+    p = Rational.from_roots_hz(1.0, [[-700.0 + 900j, -700.0 - 900j]] * 2, [[-50.0]] * 2)
+    both = (g * p) / p
+    minimal = both.cancel()
+    w = TWO_PI * F_HZ
+    for k in range(2):
+        ref = control.minreal(both.to_control(k), verbose=False)
+        assert np.sum(np.isfinite(minimal.poles_hz()[k])) == len(ref.poles()) == 2
+        assert np.sum(np.isfinite(minimal.zeros_hz()[k])) == len(ref.zeros()) == 1
+        _assert_response_close(minimal.response(F_HZ)[k], ref(1j * w), 1e-9)
+    near = Rational.from_roots_hz(1.0, [-100.0 * (1 + 1e-6)], [-100.0])
+    assert np.sum(np.isfinite(near.cancel().poles_hz())) == 1

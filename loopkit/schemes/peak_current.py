@@ -47,9 +47,13 @@ balance ``D sn = D' sf``: ``d^ = (D' sf^ - D sn^)/(sn + sf)``.  Hence, with
     kr = Ri Ts [sn (D' sf_v  - D sn_v )/(sn + sf) - (D^2 sn_v  + D'^2 sf_v )/2]
 
 which for the ideal buck is Ridley's ``kf = -(D Ts Ri/L)(1 - D/2)``,
-``kr = Ts Ri/(2L)``, and which makes the dc gain of vo/vc equal to the exact
-averaged steady state (for the ideal buck Ridley's
-``(R/Ri) / (1 + R Ts (mc D' - 1/2)/L)``).  The sampled inner loop gives the
+``kr = Ts Ri/(2L)`` (from memory), and which makes the dc gain of vo/vc equal
+to the steady state under the comparator law (for the ideal buck Ridley's
+``(R/Ri) / (1 + R Ts (mc D' - 1/2)/L)``).  For the other topologies the gains
+are derived here by the same rule from their slopes (they are not taken from
+Ridley's table); tests/test_peak_current.py checks the dc gain, the line-to-
+output and the output impedance at dc against that steady state for every
+topology.  The sampled inner loop gives the
 double pole at fsw/2 with ``Qp = 1/(pi (mc D' - 1/2))``, ``mc = 1 + Se/Sn``.
 
 DCM: the current-programmed DCM model
@@ -71,9 +75,9 @@ and into the stage's reduced-order averaged switch model (``i2 = j2 d + g2 vg
 (and the four-switch stage in buck mode) has ``sn_v != 0``: without ramp its
 switch network's output conductance is negative above M = 1/2, and above
 M = 2/3 it outweighs the load's 1/R, so the model has a right-half-plane pole
-there (a ramp removes it) as the steady state under the comparator law says.  Ideal buck-boost
-without ramp: the output port is a power source, pole ``2/(R C)``, dc gain
-``V/(Ri Ipk)``.  No high-frequency pole is added (the voltage-mode DCM model's
+there (a ramp removes it), as the steady state under the comparator law says.
+Ideal buck-boost without ramp: the output port is a power source, pole
+``2/(R C)``, dc gain ``V/(Ri Ipk)``.  No high-frequency pole is added (the voltage-mode DCM model's
 2 fsw/D2 pole is the inductor current's lag behind d, which current programming
 removes); the sampling effects near fsw/2 are not modelled in DCM.
 """
