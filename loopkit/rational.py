@@ -411,6 +411,8 @@ class Rational:
         rooted afresh (multiple roots would lose accuracy there).  Terms with different delays cannot be summed in factored
         form (ValueError).
         """
+        if not isinstance(other, Rational) and np.all(np.asarray(other) == 0):
+            return self  # sum() starts from 0: nothing to add, nothing to re-root
         other = self._as_rational(other)
         n = max(self.n_corners, other.n_corners)
         a, b = self.broadcast(n), other.broadcast(n)

@@ -549,7 +549,8 @@ def test_dcm_corners_never_use_the_ccm_model():
     f = _grid(200e3)
     np.testing.assert_allclose(h.take(0).response(f), alone.response(f), rtol=1e-12)
     fig = pc.figures(r, 0.1, 1e4)
-    assert np.isnan(fig["qp"][0]) and fig["ratio"][0] == 0.0 and np.isfinite(fig["qp"][1])
+    assert np.isnan(fig["qp"][0]) and np.isnan(fig["fm"][0]) and fig["ratio"][0] == 0.0
+    assert np.isfinite(fig["qp"][1]) and np.isfinite(fig["fm"][1])
     assert [f.code for f in pc.findings(r, 0.1, 1e4) if f.corner == 0] == ["pcm-dcm"]
 
 

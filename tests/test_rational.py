@@ -309,6 +309,7 @@ def test_sum_with_constants_and_cancelling_terms():
         _assert_response_close((h + 1.0).response(F_HZ)[k], ref(1j * w), 1e-9)
     zero = h - h
     np.testing.assert_array_equal(zero.response(F_HZ), 0.0)
+    assert sum([h, h]).response(F_HZ) == pytest.approx(2 * h.response(F_HZ), rel=1e-12)  # builtin sum from 0
     with pytest.raises(ValueError):
         Rational.sum([])
     delayed = Rational(h.gain, h.num, h.den, np.array([1e-6, 1e-6]))

@@ -341,7 +341,7 @@ def figures(stage: StageResult, sense_gain_ohm: float, slope_v_per_s) -> dict[st
     dict
         ``mc`` = 1 + Se/Sn; ``qp`` = 1/(pi (mc D' - 0.5)) (Ridley 1991; NaN in
         DCM, negative or inf where the sampled current loop is unstable);
-        ``fm`` = 1/((Sn + Se) Ts), 1/V; ``ratio``: the cycle-to-cycle factor of a
+        ``fm`` = 1/((Sn + Se) Ts), 1/V (NaN in DCM); ``ratio``: the cycle-to-cycle factor of a
         peak-current perturbation, -(Sf - Se)/(Sn + Se) (0 in DCM, where the
         current starts from zero every period); ``i_peak_a``: peak inductor
         current (flyback: primary); ``kf``, ``kr``: Ridley's feedforward and
@@ -358,7 +358,7 @@ def figures(stage: StageResult, sense_gain_ohm: float, slope_v_per_s) -> dict[st
     return {
         "mc": g["mc"],
         "qp": np.where(dcm, np.nan, qp),
-        "fm": g["fm"],
+        "fm": np.where(dcm, nan, g["fm"]),
         "ratio": np.where(dcm, 0.0, ratio),
         "i_peak_a": stage.i_peak.copy(),
         "kf": np.where(dcm, nan, g["kf"]),
