@@ -601,3 +601,17 @@ def test_bad_input_names_the_field(kwargs, field):
         pc.auto_slope(r, 0.1, rule="steepest")
     with pytest.raises(DesignError):
         pc.findings(r, 0.1, 0.0, peak_limit_a=-1.0)
+
+
+def test_slope_per_corner_equals_one_slope_at_a_time():
+    """A ramp given per corner gives, at each corner, what that single ramp gives there."""
+    r = analyse_stage(ideal_design("boost", (4.0, 6.0), 12.0, (0.5, 2.0)))
+    slopes = np.array([0.0, 1e4, 3e4, 6e4])
+    h = pc.control_to_output(r, 0.1, slopes)
+    fig = pc.figures(r, 0.1, slopes)
+    f = _grid(200e3)
+    for k, se in enumerate(slopes):
+        np.testing.assert_allclose(
+            h.take(k).response(f), pc.control_to_output(r, 0.1, se).take(k).response(f), rtol=1e-12
+        )
+        assert fig["qp"][k] == pc.figures(r, 0.1, se)["qp"][k]
