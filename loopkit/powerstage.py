@@ -19,7 +19,17 @@ from .design import Design
 from .errors import DesignError, Finding
 from .rational import TWO_PI, Rational
 from .stages import groups, topology_module
-from .stages.base import ccm_transfer_functions, dcm_transfer_functions, hf_pole_hz
+from .stages.base import (
+    ccm_gid,
+    ccm_gig_gii,
+    ccm_slopes,
+    ccm_transfer_functions,
+    dcm_gid,
+    dcm_gig_gii,
+    dcm_slopes,
+    dcm_transfer_functions,
+    hf_pole_hz,
+)
 from .units import format_value
 
 __all__ = ["StageResult", "analyse_stage", "corner_label"]
@@ -57,6 +67,25 @@ class StageResult:
     gvd, gvg, zout : Rational
         Control-to-output, line-to-output and output impedance (load included).
     findings : tuple of Finding
+    gid : Rational
+        Control-to-inductor-current (vg = 0), A per unit duty (flyback: the
+        magnetising current seen from the primary, which the primary switch
+        carries while on).  CCM from the averaged equations; DCM from the
+        reduced-order model (see :func:`loopkit.stages.base.dcm_gid`).
+    gig, gii : Rational
+        Line-to-inductor-current (A/V) and output-current-injection-to-inductor-
+        current (A/A), d = 0: what current mode needs for its closed-loop
+        line-to-output and output impedance.
+    sn_a_per_s, sf_a_per_s : ndarray
+        Inductor current slope while the switch is on and while it is off, A/s,
+        both positive (flyback: seen from the primary).  DCM: the rise and the
+        fall of the current triangle.
+    slope_sensitivity_per_h : ndarray (corners, 2, 2)
+        ``[[dsn/dvg, dsn/dv], [dsf/dvg, dsf/dv]]`` in A/s per V (1/H), v the
+        signed output voltage: what the feedforward and feedback gains of peak
+        current-mode control are made of.
+    fsw_hz : float
+        Switching frequency (:attr:`ts_s` is its period).
     """
 
     vin: np.ndarray
@@ -80,10 +109,22 @@ class StageResult:
     gvg: Rational
     zout: Rational
     findings: tuple
+    gid: Rational
+    gig: Rational
+    gii: Rational
+    sn_a_per_s: np.ndarray
+    sf_a_per_s: np.ndarray
+    slope_sensitivity_per_h: np.ndarray
+    fsw_hz: float
 
     @property
     def n_corners(self) -> int:
         return self.vin.shape[0]
+
+    @property
+    def ts_s(self) -> float:
+        """Switching period, s."""
+        return 1.0 / self.fsw_hz
 
     @property
     def mode(self) -> np.ndarray:
@@ -163,8 +204,12 @@ def analyse_stage(design: Design) -> StageResult:
             "fp_hz",
             "f_hf_hz",
             "f_rhp_hz",
+            "sn",
+            "sf",
         )
     }
+    sens = np.full((n, 2, 2), np.nan)
+    parts_id, parts_ig, parts_ii = [], [], []
     dcm_mask = np.zeros(n, bool)
     submode = np.full(n, "", dtype=object)
     parts_vd, parts_vg, parts_zo, order = [], [], [], []
@@ -196,6 +241,11 @@ def analyse_stage(design: Design) -> StageResult:
                 rhp = -(sel.b_i * sel.e + sel.b_d * sel.r_series) / (sel.b_d * sel.l_h) / TWO_PI
                 out["f_rhp_hz"][k] = np.where((sel.b_d != 0) & (rhp > 0), rhp, np.nan)
             parts_vd.append(gvd), parts_vg.append(gvg), parts_zo.append(zo), order.append(k)
+            parts_id.append(ccm_gid(st, sel, r_load[idx][ccm_idx]))
+            gig, gii = ccm_gig_gii(st, sel, r_load[idx][ccm_idx])
+            parts_ig.append(gig), parts_ii.append(gii)
+            out["sn"][k], out["sf"][k] = ccm_slopes(sel, st.fsw)
+            sens[k] = module.slope_sensitivity(st)
         if dcm_idx.size:
             k = idx[dcm_idx]
             dp = module.dcm(st, vin[k], load[k], vout)
@@ -210,6 +260,11 @@ def analyse_stage(design: Design) -> StageResult:
             out["fp_hz"][k] = np.min(finite, axis=1)
             dcm_mask[k] = True
             parts_vd.append(gvd), parts_vg.append(gvg), parts_zo.append(zo), order.append(k)
+            out["sn"][k], out["sf"][k] = dcm_slopes(dp, st.fsw)
+            sens[k] = module.slope_sensitivity(st)
+            parts_id.append(dcm_gid(st, dp, gvd, sens[k], out["i_l"][k]))
+            gig, gii = dcm_gig_gii(st, dp, gvg, zo, sens[k], out["i_l"][k])
+            parts_ig.append(gig), parts_ii.append(gii)
     order_all = np.concatenate(order)
     gvd = Rational.stack(parts_vd, order_all)
     gvg = Rational.stack(parts_vg, order_all)
@@ -238,6 +293,13 @@ def analyse_stage(design: Design) -> StageResult:
         gvg=gvg,
         zout=zout,
         findings=tuple(findings),
+        gid=Rational.stack(parts_id, order_all),
+        gig=Rational.stack(parts_ig, order_all),
+        gii=Rational.stack(parts_ii, order_all),
+        sn_a_per_s=out["sn"],
+        sf_a_per_s=out["sf"],
+        slope_sensitivity_per_h=sens,
+        fsw_hz=float(stage.fsw),
     )
 
 

@@ -176,15 +176,57 @@ def _roots_as_factors(coeffs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     zero_low = np.argmax(c != 0, axis=1)  # number of zero low-order coefficients
     if np.any(np.all(c == 0, axis=1)):
         raise ValueError("a polynomial is identically zero")
-    for k in np.unique(zero_low):
-        rows = np.nonzero(zero_low == k)[0]
-        w = poly_roots_inverse(c[rows, k:])
+    # rows grouped by lowest and highest nonzero coefficient: trailing zeros left in a
+    # companion matrix make a multiple eigenvalue at 0 that splits by eps^(1/multiplicity)
+    # and can crowd out genuine small inverse roots
+    top = m1 - 1 - np.argmax(c[:, ::-1] != 0, axis=1)
+    for k, t in {(int(a), int(b)) for a, b in zip(zero_low, top)}:
+        rows = np.nonzero((zero_low == k) & (top == t))[0]
+        w = poly_roots_inverse(c[rows, k : t + 1])
         gain[rows] = c[rows, k]
         factors[np.ix_(rows, np.arange(k), [0])] = 0.0
         factors[np.ix_(rows, np.arange(k), [1])] = 1.0
         factors[rows, k:, 0] = 1.0
-        factors[rows, k:, 1] = -w
+        factors[rows, k:, 1] = 0.0
+        factors[rows, k:t, 1] = -w
     return gain, factors
+
+
+def _polished_factors(coeffs: np.ndarray, iterations: int = 3) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_roots_as_factors` followed by Newton steps on each root of the polynomial itself.
+
+    The companion eigenvalues lose relative accuracy when a polynomial's roots
+    spread over many decades (a sum of rational functions can have a numerator
+    like that); a few Newton steps ``s -= p(s)/p'(s)`` on the original
+    coefficients (Horner, complex) restore it.  A step is kept only where it
+    lowers ``|p|`` and moves the root by less than 1e-4 of its size (a
+    correction, not a jump to a neighbouring root), so a root that is already accurate, or one where ``p``
+    overflows, stays as it was; conjugate roots stay conjugate because ``p`` is
+    real.
+    """
+    gain, factors = _roots_as_factors(coeffs)
+    c = np.asarray(coeffs, dtype=complex)
+    m1 = c.shape[1]
+    active = (factors[..., 0] == 1) & (factors[..., 1] != 0)
+    w = -factors[..., 1]
+    with np.errstate(all="ignore"):
+        for _ in range(iterations):
+            s = 1.0 / np.where(active, w, 1.0)
+            p = np.zeros_like(s)
+            dp = np.zeros_like(s)
+            for k in range(m1 - 1, -1, -1):
+                dp = dp * s + p
+                p = p * s + c[:, k, None]
+            s_new = s - p / np.where(dp == 0, 1.0, dp)
+            p_new = np.zeros_like(s)
+            for k in range(m1 - 1, -1, -1):
+                p_new = p_new * s_new + c[:, k, None]
+            near = np.abs(s_new - s) <= 1e-4 * np.abs(s)  # a correction, never a jump to another root
+            better = active & np.isfinite(s_new) & near & (np.abs(p_new) < np.abs(p))
+            w = np.where(better, 1.0 / np.where(better, s_new, 1.0), w)
+    out = factors.copy()
+    out[..., 1] = np.where(active, -w, factors[..., 1])
+    return gain, out
 
 
 def _poly_from_factors(gain: np.ndarray, factors: np.ndarray) -> np.ndarray:
@@ -199,6 +241,27 @@ def _poly_from_factors(gain: np.ndarray, factors: np.ndarray) -> np.ndarray:
         shifted[:, 1:] = p[:, :-1]
         p = a0 * p + a1 * shifted
     return (gain[:, None] * p).real
+
+
+def _unshared(fa: np.ndarray, fb: np.ndarray, rtol: float = 1e-12) -> tuple[np.ndarray, np.ndarray]:
+    """Factors of ``fa`` not in ``fb`` and of ``fb`` not in ``fa`` (matched one to one), rest padding.
+
+    Both are normalised factor arrays (n, k, 2); a factor matches when both
+    coefficients agree to ``rtol``.  Vectorised over corners (a loop over the
+    few factors of ``fb`` only).
+    """
+    n, ka = fa.shape[0], fa.shape[1]
+    used = np.zeros((n, ka), bool)
+    matched = np.zeros((n, fb.shape[1]), bool)
+    rows = np.arange(n)
+    for j in range(fb.shape[1]):
+        f = fb[:, j : j + 1, :]
+        close = np.all(np.abs(fa - f) <= rtol * np.maximum(np.abs(f), 1e-300), axis=-1) & ~used
+        has = close.any(axis=1)
+        first = np.argmax(close, axis=1)
+        used[rows[has], first[has]] = True
+        matched[has, j] = True
+    return np.where(used[..., None], _PAD, fa), np.where(matched[..., None], _PAD, fb)
 
 
 @dataclass(frozen=True, eq=False)
@@ -331,6 +394,114 @@ class Rational:
 
     def __neg__(self) -> Rational:
         return Rational(-self.gain, self.num, self.den, self.delay_s)
+
+    def _as_rational(self, other) -> Rational:
+        if isinstance(other, Rational):
+            return other
+        v = np.atleast_1d(np.asarray(other, dtype=float))
+        return Rational.constant(np.broadcast_to(v, (max(v.shape[0], self.n_corners),)))
+
+    def __add__(self, other) -> Rational:
+        """Sum per corner (python-control's ``parallel``), denominators shared where identical.
+
+        Denominator factors present in both terms (the same plant poles, e.g. Gid
+        and Gvd over one characteristic polynomial) are kept once, so the sum is
+        not padded with cancelling pole-zero pairs; numerator factors common to
+        both terms stay as they are, and only the rest of the numerator is
+        rooted afresh (multiple roots would lose accuracy there).  Terms with different delays cannot be summed in factored
+        form (ValueError).
+        """
+        if not isinstance(other, Rational) and np.all(np.asarray(other) == 0):
+            return self  # sum() starts from 0: nothing to add, nothing to re-root
+        other = self._as_rational(other)
+        n = max(self.n_corners, other.n_corners)
+        a, b = self.broadcast(n), other.broadcast(n)
+        if np.any(a.delay_s != b.delay_s):
+            raise ValueError("Rational sum: the terms have different delays")
+        a_only, b_only = _unshared(a.den, b.den)
+        # a + b = (Na Eb + Nb Ea) / (Da Eb): factors common to both products stay factored
+        na, nb = np.concatenate([a.num, b_only], axis=1), np.concatenate([b.num, a_only], axis=1)
+        na_rest, nb_rest = _unshared(na, nb)
+        common = np.where(np.all(na_rest == _PAD, axis=-1)[..., None], na, _PAD)
+        pa = _poly_from_factors(a.gain, na_rest)
+        pb = _poly_from_factors(b.gain, nb_rest)
+        m = max(pa.shape[1], pb.shape[1])
+        total = np.zeros((n, m))
+        total[:, : pa.shape[1]] += pa
+        total[:, : pb.shape[1]] += pb
+        zero = np.all(total == 0, axis=1)
+        total[zero, 0] = 1.0  # an identically zero row: gain 0 below, factors irrelevant
+        gain, num = _polished_factors(total)
+        gain[zero] = 0.0
+        num = np.concatenate([common, num], axis=1)
+        return Rational(gain, num, np.concatenate([a.den, b_only], axis=1), a.delay_s.copy())
+
+    __radd__ = __add__
+
+    def __sub__(self, other) -> Rational:
+        return self + (-self._as_rational(other))
+
+    def __rsub__(self, other) -> Rational:
+        return (-self) + other
+
+    @staticmethod
+    def sum(parts) -> Rational:
+        """Sum of an iterable of Rationals (see :meth:`__add__`)."""
+        parts = list(parts)
+        if not parts:
+            raise ValueError("Rational.sum of nothing")
+        total = parts[0]
+        for p in parts[1:]:
+            total = total + p
+        return total
+
+    def cancel(self, rtol: float = 1e-12) -> Rational:
+        """The same function with numerator and denominator factors that agree to ``rtol`` removed.
+
+        Meant for factors that are the same by construction (the plant's poles
+        coming back as zeros of a closed loop built from it), not for
+        approximate cancellation: the default tolerance only matches factors
+        equal to rounding.
+        """
+        num, den = _unshared(self.num, self.den, rtol)
+
+        def compact(f):  # drop the factor columns that are padding at every corner
+            keep = ~np.all(np.all(f == _PAD, axis=-1), axis=0)
+            return f[:, keep]
+
+        return Rational(self.gain.copy(), compact(num), compact(den), self.delay_s.copy())
+
+    def feedback(self, other=1.0, sign: int = -1) -> Rational:
+        """Closed loop ``self / (1 - sign * self * other)`` per corner (python-control's ``feedback``).
+
+        Parameters
+        ----------
+        other : Rational or float
+            Transfer function in the feedback path.
+        sign : {-1, 1}
+            -1 (the default) for negative feedback, +1 for positive.
+
+        Notes
+        -----
+        With ``self = gs Ns/Ds`` and ``other = go No/Do`` the closed loop is
+        ``gs Ns Do / (Ds Do - sign gs go Ns No)``: the numerator keeps its
+        factors, the characteristic polynomial is rooted once per corner.  A
+        delay has no rational closed loop (ValueError).
+        """
+        if sign not in (-1, 1):
+            raise ValueError(f"feedback sign must be -1 or +1, got {sign!r}")
+        other = self._as_rational(other)
+        n = max(self.n_corners, other.n_corners)
+        g, h = self.broadcast(n), other.broadcast(n)
+        if np.any(g.delay_s) or np.any(h.delay_s):
+            raise ValueError("Rational.feedback: a loop with a delay has no rational closed loop")
+        num_l, den_l = (g * h).polys()
+        m = max(num_l.shape[1], den_l.shape[1])
+        char = np.zeros((n, m))
+        char[:, : den_l.shape[1]] += den_l
+        char[:, : num_l.shape[1]] -= sign * num_l
+        gc, fc = _polished_factors(char)
+        return Rational(g.gain / gc, np.concatenate([g.num, h.den], axis=1), fc, np.zeros(n))
 
     def take(self, index) -> Rational:
         """The corners selected by ``index`` (int, slice, mask or index array)."""

@@ -251,3 +251,114 @@ def test_algebra_matches_control(a_rows, b_rows):
         np.testing.assert_allclose(prod[k], (ta * tb)(1j * w), rtol=1e-8)
         np.testing.assert_allclose(quot[k], (ta / tb)(1j * w), rtol=1e-8)
         np.testing.assert_allclose(a.take(k).response(F_HZ)[0], a.response(F_HZ)[k], rtol=0)
+
+
+# ---------------------------------------------------------------------------- sums and feedback
+def _assert_response_close(mine, ref, rtol, terms=()):
+    """Relative agreement, measured against the larger of the two magnitudes at each frequency, or for a
+    sum against the sum of its terms' magnitudes where that is larger (a sum that cancels to zero at some
+    frequency, e.g. a zero on the imaginary axis, is known only to rounding of its terms there)."""
+    scale = np.maximum(np.abs(mine), np.abs(ref))
+    rounding = 1e-13 * sum((np.abs(t) for t in terms), np.zeros(scale.shape))  # a few hundred eps of the terms
+    err = np.abs(mine - ref)
+    assert np.all(err <= rtol * scale + rounding + 1e-300), np.max(err / scale)
+
+
+@SETTINGS
+@given(rationals(n_corners=3), rationals(n_corners=3))
+def test_sum_matches_control_parallel(a_rows, b_rows):
+    """a + b, a - b and Rational.sum equal python-control's parallel connection (control.parallel)."""
+    a, _ = a_rows
+    b, _ = b_rows
+    w = TWO_PI * F_HZ
+    total = (a + b).response(F_HZ)
+    diff = (a - b).response(F_HZ)
+    three = Rational.sum([a, b, a]).response(F_HZ)
+    ra, rb = a.response(F_HZ), b.response(F_HZ)
+    for k in range(3):
+        ta, tb = a.to_control(k), b.to_control(k)
+        terms = (ra[k], rb[k])
+        _assert_response_close(total[k], control.parallel(ta, tb)(1j * w), 1e-7, terms)
+        _assert_response_close(diff[k], control.parallel(ta, -tb)(1j * w), 1e-7, terms)
+        _assert_response_close(three[k], control.parallel(ta, tb, ta)(1j * w), 1e-7, terms)
+
+
+@SETTINGS
+@given(rationals(n_corners=2), rationals(n_corners=2))
+def test_sum_over_a_shared_denominator_keeps_its_poles_once(a_rows, b_rows):
+    """Two numerators over one denominator (Gid and Gvd of one plant): the sum has that
+    denominator once, not squared, and still equals control.parallel."""
+    a, _ = a_rows
+    b, _ = b_rows
+    b_same_den = Rational(b.gain, b.num, a.den, b.delay_s)  # b's zeros over a's poles
+    total = a + b_same_den
+    assert np.sum(np.isfinite(total.poles_hz())) == np.sum(np.isfinite(a.poles_hz()))
+    w = TWO_PI * F_HZ
+    for k in range(2):
+        ref = control.parallel(a.to_control(k), b_same_den.to_control(k))
+        _assert_response_close(total.response(F_HZ)[k], ref(1j * w), 1e-7)
+
+
+def test_sum_with_constants_and_cancelling_terms():
+    """1 + H (control.parallel with a static gain), a constant on the left, and H - H = 0."""
+    h = Rational.from_roots_hz([2.0, -3.0], [[-1e3]] * 2, [[-10.0, -1e4]] * 2)
+    w = TWO_PI * F_HZ
+    for k in range(2):
+        ref = control.parallel(control.tf([1.0], [1.0]), h.to_control(k))
+        _assert_response_close((1.0 + h).response(F_HZ)[k], ref(1j * w), 1e-9)
+        _assert_response_close((h + 1.0).response(F_HZ)[k], ref(1j * w), 1e-9)
+    zero = h - h
+    np.testing.assert_array_equal(zero.response(F_HZ), 0.0)
+    assert sum([h, h]).response(F_HZ) == pytest.approx(2 * h.response(F_HZ), rel=1e-12)  # builtin sum from 0
+    with pytest.raises(ValueError):
+        Rational.sum([])
+    delayed = Rational(h.gain, h.num, h.den, np.array([1e-6, 1e-6]))
+    with pytest.raises(ValueError):
+        h + delayed
+
+
+@pytest.mark.filterwarnings("ignore:Badly conditioned filter coefficients")
+@SETTINGS
+@given(rationals(n_corners=3), rationals(n_corners=3), st.sampled_from([-1, 1]))
+def test_feedback_matches_control_feedback(g_rows, h_rows, sign):
+    """G.feedback(H, sign) equals control.feedback(G, H, sign): response and closed-loop poles."""
+    g, _ = g_rows
+    h, _ = h_rows
+    cl = g.feedback(h, sign)
+    w = TWO_PI * F_HZ
+    resp = cl.response(F_HZ)
+    for k in range(3):
+        ref = control.feedback(g.to_control(k), h.to_control(k), sign=sign)
+        _assert_response_close(resp[k], ref(1j * w), 1e-6)
+        p = cl.poles_hz()[k]
+        _match_roots(p[np.isfinite(p)] * TWO_PI, ref.poles(), rtol=1e-5)
+
+
+def test_feedback_with_a_constant_path_and_bad_arguments():
+    """Unity and scalar feedback against control.feedback; a delay or a bad sign is refused."""
+    g = Rational.from_roots_hz(1e3, [], [0.0, -2e3])
+    w = TWO_PI * F_HZ
+    for path in (1.0, 0.25):
+        ref = control.feedback(g.to_control(0), path)
+        _assert_response_close(g.feedback(path).response(F_HZ)[0], ref(1j * w), 1e-9)
+    with pytest.raises(ValueError):
+        g.feedback(1.0, sign=0)
+    with pytest.raises(ValueError):
+        Rational(g.gain, g.num, g.den, np.array([1e-6])).feedback(1.0)
+
+
+def test_cancel_removes_exactly_repeated_factors_like_control_minreal():
+    """(G * P) / P with the same factors: cancel() leaves G's poles and zeros (as control.minreal does)
+    and the same response; factors that differ beyond rounding are left alone."""
+    g = Rational.from_roots_hz([3.0, -2.0], [[-5e3], [2e4]], [[-100.0, -4e4], [-300.0, -4e4]])
+    p = Rational.from_roots_hz(1.0, [[-700.0 + 900j, -700.0 - 900j]] * 2, [[-50.0]] * 2)
+    both = (g * p) / p
+    minimal = both.cancel()
+    w = TWO_PI * F_HZ
+    for k in range(2):
+        ref = control.minreal(both.to_control(k), verbose=False)
+        assert np.sum(np.isfinite(minimal.poles_hz()[k])) == len(ref.poles()) == 2
+        assert np.sum(np.isfinite(minimal.zeros_hz()[k])) == len(ref.zeros()) == 1
+        _assert_response_close(minimal.response(F_HZ)[k], ref(1j * w), 1e-9)
+    near = Rational.from_roots_hz(1.0, [-100.0 * (1 + 1e-6)], [-100.0])
+    assert np.sum(np.isfinite(near.cancel().poles_hz())) == 1

@@ -45,7 +45,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..design import Stage
-from ..rational import TWO_PI, Rational, poly_roots_inverse
+from ..rational import TWO_PI, Rational, _roots_as_factors, poly_roots_inverse
 
 #: Fixed-point steps of the DCM operating point with conduction losses: the
 #: resistive drops shift the peak current by a fraction of a per cent, so the
@@ -56,7 +56,13 @@ __all__ = [
     "DCM_ITERATIONS",
     "CcmPoint",
     "DcmPoint",
+    "ccm_gid",
+    "ccm_gig_gii",
+    "ccm_slopes",
     "ccm_transfer_functions",
+    "dcm_gid",
+    "dcm_gig_gii",
+    "dcm_slopes",
     "dcm_transfer_functions",
     "output_admittance",
     "pulsed_esr_resistance",
@@ -211,3 +217,124 @@ def dcm_transfer_functions(stage: Stage, op: DcmPoint, r_load: np.ndarray) -> tu
 def hf_pole_hz(stage: Stage, op: DcmPoint) -> np.ndarray:
     """The DCM high-frequency pole 2 fsw / D2 (rad/s) expressed in Hz."""
     return 2.0 * stage.fsw / op.d2 / TWO_PI
+
+
+# ---------------------------------------------------------------------------- current-mode quantities
+def ccm_gid(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> Rational:
+    """Control-to-inductor-current ``Gid = i/d`` of CCM corners (vg = 0), A per unit duty.
+
+    Notes
+    -----
+    From equations (1) and (2) with ``Y_o = ny/dy``: ``v = (b_i i + b_d d) dy/ny``
+    into (1) gives ``i (Z_s ny - a_v b_i dy) = (e ny + a_v b_d dy) d``: the same
+    characteristic polynomial as Gvd over the numerator ``e ny + a_v b_d dy``
+    (degree = number of capacitor banks).  Ideal buck: ``Gid = (V/(D R))
+    (1 + s R C)/(1 + s L/R + s^2 L C)`` (Erickson & Maksimovic, 2nd ed., ch. 12,
+    the inductor-current transfer function of the CCM model).  Flyback: ``i`` is
+    the magnetising current seen from the primary, the current the primary switch
+    carries while on.
+    """
+    n = op.duty.shape[0]
+    ny, dy = output_admittance(stage, r_load)
+    zs = np.stack([op.r_series, op.l_h], axis=1)
+    char = np.zeros((n, ny.shape[1] + 1))
+    for k in range(ny.shape[1]):
+        char[:, k] += ny[:, k] * zs[:, 0]
+        char[:, k + 1] += ny[:, k] * zs[:, 1]
+    char[:, : dy.shape[1]] -= (op.a_v * op.b_i)[:, None] * dy
+    num = op.e[:, None] * ny + (op.a_v * op.b_d)[:, None] * dy
+    gain, factors = _roots_as_factors(num)
+    return _over_char(gain, factors, char)
+
+
+def ccm_gig_gii(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> tuple[Rational, Rational]:
+    """Line-to-inductor-current ``Gig = i/vg`` (A/V) and output-injection-to-inductor-current
+    ``Gii = i/i_inj`` (A/A) of CCM corners, d = 0.
+
+    Notes
+    -----
+    From equations (1) and (2): ``i (Z_s ny - a_v b_i dy) = a_g ny vg + a_v dy i_inj``,
+    so ``Gig = a_g ny / char`` and ``Gii = a_v dy / char`` over Gvd's
+    characteristic polynomial.  Peak current mode needs them for its closed
+    current loop's line-to-output and output impedance.
+    """
+    n = op.duty.shape[0]
+    ny, dy = output_admittance(stage, r_load)
+    zs = np.stack([op.r_series, op.l_h], axis=1)
+    char = np.zeros((n, ny.shape[1] + 1))
+    for k in range(ny.shape[1]):
+        char[:, k] += ny[:, k] * zs[:, 0]
+        char[:, k + 1] += ny[:, k] * zs[:, 1]
+    char[:, : dy.shape[1]] -= (op.a_v * op.b_i)[:, None] * dy
+    g_ny, f_ny = _roots_as_factors(ny)
+    banks = _bank_factors(stage, n)  # dy = prod(1 + s ESR_k C_k)
+    gig = _over_char(op.a_g * g_ny, f_ny, char)
+    gii = _over_char(op.a_v * dy[:, 0], banks, char)
+    return gig, gii
+
+
+def ccm_slopes(op: CcmPoint, fsw: float) -> tuple[np.ndarray, np.ndarray]:
+    """On- and off-time inductor current slopes (magnitudes, A/s) of CCM corners.
+
+    The on-slope is the inductor voltage while the switch is on (conduction drops
+    at the average current, as in ``op.ripple = sn D Ts``) over L; the off-slope
+    follows from the volt-second balance of the averaged steady state,
+    ``D sn = D' sf``, so it carries every loss the duty carries.  Flyback: the
+    magnetising current seen from the primary (the secondary current referred
+    to the primary while off).
+    """
+    sn = op.ripple * fsw / op.duty
+    return sn, sn * op.duty / (1.0 - op.duty)
+
+
+def dcm_slopes(op: DcmPoint, fsw: float) -> tuple[np.ndarray, np.ndarray]:
+    """Rising and falling inductor current slopes (A/s) of DCM corners: ipk/(D Ts), ipk/(D2 Ts)."""
+    return op.i_peak * fsw / op.duty, op.i_peak * fsw / op.d2
+
+
+def dcm_gid(stage: Stage, op: DcmPoint, gvd: Rational, slope_sensitivity: np.ndarray, i_l: np.ndarray) -> Rational:
+    """Control-to-average-inductor-current of DCM corners (vg = 0), A per unit duty.
+
+    Notes
+    -----
+    In DCM the inductor current is not a state of the reduced-order model
+    (Erickson & Maksimovic, 2nd ed., ch. 11): its average over a period,
+    ``iL = ipk (D + D2)/2 = Ts d^2 sn (sn + sf) / (2 sf)`` with ``ipk = sn d Ts``
+    and ``D2 = sn d / sf``, follows d at once and v through the slopes:
+    ``Gid = (2 iL / D) H_hf + (d iL/d v) Gvd``, with
+    ``d ln iL / dv = sn_v/sn + (sn_v + sf_v)/(sn + sf) - sf_v/sf`` (``sn_v``,
+    ``sf_v``: the slopes' sensitivities to v).  ``H_hf`` is the
+    high-frequency pole 2 fsw/D2 of Sun et al. (2001), the lag of the inductor
+    current in the full-order model; approximate above about fsw/10.
+    """
+    n = op.duty.shape[0]
+    sn, sf = dcm_slopes(op, stage.fsw)
+    sn_v, sf_v = slope_sensitivity[:, 0, 1], slope_sensitivity[:, 1, 1]
+    dil_dv = i_l * (sn_v / sn + (sn_v + sf_v) / (sn + sf) - sf_v / sf)
+    w2 = 2.0 * stage.fsw / op.d2
+    hf = Rational.from_factors(2.0 * i_l / op.duty, (), np.stack([np.ones(n), 1.0 / w2], axis=1)[:, None, :])
+    return hf + gvd * dil_dv
+
+
+def dcm_gig_gii(
+    stage: Stage, op: DcmPoint, gvg: Rational, zout: Rational, slope_sensitivity: np.ndarray, i_l: np.ndarray
+) -> tuple[Rational, Rational]:
+    """Line-to-inductor-current and output-injection-to-inductor-current of DCM corners (d = 0).
+
+    Notes
+    -----
+    As in :func:`dcm_gid`: ``iL = Ts d^2 sn (sn + sf)/(2 sf)`` moves with vg and v
+    through the slopes, ``Gig = diL/dvg + (diL/dv) Gvg`` and
+    ``Gii = (diL/dv) Zout`` (reduced-order model; the vg term carries the
+    high-frequency pole of Sun et al. 2001 like Gvg does).
+    """
+    n = op.duty.shape[0]
+    sn, sf = dcm_slopes(op, stage.fsw)
+
+    def dlog(k):
+        a, b = slope_sensitivity[:, 0, k], slope_sensitivity[:, 1, k]
+        return i_l * (a / sn + (a + b) / (sn + sf) - b / sf)
+
+    w2 = 2.0 * stage.fsw / op.d2
+    direct = Rational.from_factors(dlog(0), (), np.stack([np.ones(n), 1.0 / w2], axis=1)[:, None, :])
+    return direct + gvg * dlog(1), zout * dlog(1)

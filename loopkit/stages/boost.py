@@ -26,7 +26,7 @@ import numpy as np
 from ..design import Stage
 from .base import DCM_ITERATIONS, CcmPoint, DcmPoint, pulsed_esr_resistance, solve_quadratic_dprime
 
-__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
+__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem", "slope_sensitivity"]
 
 
 def ideal_ratio(duty):
@@ -84,3 +84,11 @@ def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
         r2=re * (b / a) ** 2,
         sign=1.0,
     )
+
+
+def slope_sensitivity(stage: Stage) -> np.ndarray:
+    """Sensitivities of the inductor slopes to vg and v, 1/H: ``[[dsn/dvg, dsn/dv], [dsf/dvg, dsf/dv]]``.
+
+    On: ``sn = vg/L``; off: ``sf = (v - vg)/L`` (ideal).
+    """
+    return np.array([[1.0, 0.0], [-1.0, 1.0]]) / stage.inductance

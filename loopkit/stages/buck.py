@@ -25,7 +25,7 @@ import numpy as np
 from ..design import Stage
 from .base import DCM_ITERATIONS, CcmPoint, DcmPoint, pulsed_esr_resistance
 
-__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
+__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem", "slope_sensitivity"]
 
 
 def ideal_ratio(duty):
@@ -87,3 +87,13 @@ def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
         r2=re * (v1 / vg1) ** 2,
         sign=1.0,
     )
+
+
+def slope_sensitivity(stage: Stage) -> np.ndarray:
+    """Sensitivities of the inductor slopes to vg and v, 1/H: ``[[dsn/dvg, dsn/dv], [dsf/dvg, dsf/dv]]``.
+
+    On: ``sn = (vg - v)/L``; off: ``sf = v/L`` (ideal; the conduction drops do not
+    depend on vg or v).  Used for the feedforward and feedback gains of peak
+    current-mode control (Ridley 1991).
+    """
+    return np.array([[1.0, -1.0], [0.0, 1.0]]) / stage.inductance

@@ -29,7 +29,7 @@ from ..design import Stage
 from .base import CcmPoint, DcmPoint, pulsed_esr_resistance, solve_quadratic_dprime
 from .inverting_buck_boost import energy_dcm
 
-__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
+__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem", "slope_sensitivity"]
 
 
 def ideal_ratio(duty, turns_ratio=1.0):
@@ -73,3 +73,13 @@ def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
     io = np.asarray(load, float)
     return energy_dcm(vg, v1, io, stage.inductance, 1.0 / stage.fsw, stage.r_switch + stage.dcr,
                       stage.r_rectifier, stage.turns_ratio, pulsed_esr_resistance(stage, float(vout) / io))
+
+
+def slope_sensitivity(stage: Stage) -> np.ndarray:
+    """Sensitivities of the magnetising-current slopes (seen from the primary) to vg and v, 1/H.
+
+    ``[[dsn/dvg, dsn/dv], [dsf/dvg, dsf/dv]]``; on: ``sn = vg/Lm``; off: the
+    secondary current falls at ``v/(Lm/n^2)``, i.e. ``sf = n v/Lm`` referred to the
+    primary (ideal).
+    """
+    return np.array([[1.0, 0.0], [0.0, stage.turns_ratio]]) / stage.inductance

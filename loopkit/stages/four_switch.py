@@ -56,7 +56,11 @@ def _buck_mode_dcm(stage: Stage, vin, load, vout: float):
 
 #: Buck mode as a topology module: the buck with D4's drop (if any) added to vout.
 buck_mode = SimpleNamespace(
-    ccm=_buck_mode_ccm, dcm=_buck_mode_dcm, ideal_ratio=buck.ideal_ratio, range_problem=buck.range_problem
+    ccm=_buck_mode_ccm,
+    dcm=_buck_mode_dcm,
+    ideal_ratio=buck.ideal_ratio,
+    range_problem=buck.range_problem,
+    slope_sensitivity=buck.slope_sensitivity,
 )
 
 

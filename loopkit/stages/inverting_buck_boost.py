@@ -26,7 +26,7 @@ import numpy as np
 from ..design import Stage
 from .base import DCM_ITERATIONS, CcmPoint, DcmPoint, pulsed_esr_resistance, solve_quadratic_dprime
 
-__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem"]
+__all__ = ["ccm", "dcm", "ideal_ratio", "range_problem", "slope_sensitivity"]
 
 
 def ideal_ratio(duty):
@@ -97,3 +97,12 @@ def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
     point = energy_dcm(vg, v1, io, stage.inductance, 1.0 / stage.fsw, stage.r_switch + stage.dcr,
                        stage.r_rectifier + stage.dcr, 1.0, pulsed_esr_resistance(stage, abs(float(vout)) / io))
     return DcmPoint(**{**point.__dict__, "sign": -1.0})
+
+
+def slope_sensitivity(stage: Stage) -> np.ndarray:
+    """Sensitivities of the inductor slopes to vg and v (signed, negative), 1/H.
+
+    ``[[dsn/dvg, dsn/dv], [dsf/dvg, dsf/dv]]``; on: ``sn = vg/L``; off:
+    ``sf = |v|/L = -v/L`` (ideal).
+    """
+    return np.array([[1.0, 0.0], [0.0, -1.0]]) / stage.inductance

@@ -75,7 +75,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import brentq
 
-__all__ = ["SsaParams", "SsaPoint", "four_switch_mode", "params_from_stage", "responses", "solve"]
+__all__ = ["SsaParams", "SsaPoint", "four_switch_mode", "params_from_stage", "responses", "slopes", "solve"]
 
 _TOPOLOGIES = ("buck", "boost", "inverting-buck-boost", "flyback", "four-switch-buck", "four-switch-boost")
 
@@ -261,7 +261,12 @@ def solve(p: SsaParams, vg: float, vout: float, load: float) -> SsaPoint:
 
 
 def responses(pt: SsaPoint, f_hz) -> dict[str, np.ndarray]:
-    """Gvd, Gvg and Zout (complex, one value per frequency in Hz) of a dc point."""
+    """Gvd, Gvg, Zout and the inductor current's Gid, Gig, Gii (complex, one value per frequency in Hz).
+
+    Gig: line to inductor current; Gii: current injected into the output node to
+    inductor current (the state x[0]; flyback: magnetising current seen from the
+    primary).
+    """
     a, b, c, e = pt.averaged()
     (a1, b1, c1, e1), (a2, b2, c2, e2) = pt.m1, pt.m2
     f_vec = (a1 - a2) @ pt.x + (b1 - b2) @ pt.u
@@ -272,7 +277,25 @@ def responses(pt: SsaPoint, f_hz) -> dict[str, np.ndarray]:
     rhs = np.stack([f_vec, b[:, 0], b[:, 2]], axis=1).astype(complex)  # (nx, 3)
     sol = np.linalg.solve(si_a, np.broadcast_to(rhs, (s.size,) + rhs.shape))
     y = c[0] @ sol  # (nf, 3)
-    return {"gvd": y[:, 0] + g_vec, "gvg": y[:, 1] + e[0, 0], "zout": y[:, 2] + e[0, 2]}
+    # the inductor current is state 0: its control-to-state response is Gid (vg = 0)
+    return {
+        "gvd": y[:, 0] + g_vec,
+        "gvg": y[:, 1] + e[0, 0],
+        "zout": y[:, 2] + e[0, 2],
+        "gid": sol[:, 0, 0],
+        "gig": sol[:, 0, 1],
+        "gii": sol[:, 0, 2],
+    }
+
+
+def slopes(pt: SsaPoint) -> tuple[float, float]:
+    """Inductor current slopes (A/s, magnitudes) in the on and off intervals at the averaged dc state.
+
+    ``dx/dt`` of interval k at (X, U), state 0; flyback: the magnetising current
+    seen from the primary.
+    """
+    (a1, b1, _, _), (a2, b2, _, _) = pt.m1, pt.m2
+    return float((a1 @ pt.x + b1 @ pt.u)[0]), float(-(a2 @ pt.x + b2 @ pt.u)[0])
 
 
 def four_switch_mode(stage, vg: float, vout: float, load: float) -> tuple[str, str]:
