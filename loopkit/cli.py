@@ -34,6 +34,7 @@ from .designfile import load_design
 from .errors import DesignError, DesignFileError
 from .margins import GM_WORDS, gm_state
 from .powerstage import StageResult, analyse_stage
+from .schemes import scheme_module
 from .tables import EMPTY, Column, format_table, wrap_note
 from .units import format_value, parse_value
 
@@ -187,11 +188,42 @@ def stage_report(design: Design, stage: StageResult, path: str = "") -> str:
         legend.append("trans: four-switch transition band.")
     legend.append(f"{EMPTY}: does not apply." + (" !: see warnings." if warned else ""))
     out.append(wrap_note(" ".join(legend)))
-    notes = _findings_text(stage.findings)
+    findings = list(stage.findings)
+    if design.control.scheme != "voltage-mode":
+        scheme = scheme_module(design.control.scheme).uncompensated(design, stage)
+        out += ["", _current_mode_table(design, stage, scheme.figures)]
+        findings += list(scheme.findings)
+    notes = _findings_text(findings)
     if notes:
         out += ["", "Warnings and notes:"] + notes
     out += ["", wrap_note(CAUTION)]
     return "\n".join(out)
+
+
+def _current_mode_table(design: Design, stage: StageResult, fig: dict) -> str:
+    """Peak current mode per corner: slopes at the comparator, mc, Qp, perturbation ratio, peak current."""
+    cols = [Column("#", "", "<"), Column("Vin", "V"), Column("Load", "A"), Column("Mode", "", "<"),
+            Column("Sn", "V/s"), Column("Sf", "V/s"), Column("mc"), Column("Qp"), Column("ratio"),
+            Column("Ipeak", "A")]
+    rows = []
+    for k in range(stage.n_corners):
+        dcm = bool(stage.dcm[k])
+        rows.append([str(k), _fmt(stage.vin[k]), _fmt(stage.load[k]), _mode_text(stage, k),
+                     _fmt(fig["sn_v_per_s"][k]), _fmt(fig["sf_v_per_s"][k]), _plain(fig["mc"][k], ".3g"),
+                     EMPTY if dcm else _plain(fig["qp"][k], ".3g"), EMPTY if dcm else _plain(fig["ratio"][k], "+.3f"),
+                     _fmt(fig["i_peak_a"][k])])
+    se = float(fig["se_v_per_s"][0])
+    c = design.control
+    how = ("as given" if c.slope is not None or c.slope_amplitude is not None
+           else f"{c.slope_ratio:g} x the steepest down-slope" if c.slope_ratio is not None
+           else "chosen for Qp = 1 at the worst CCM corner")
+    legend = (f"Peak current mode, sense gain {_fmt(c.sense_gain, 'ohm' if _ASCII else 'Ω')}, external ramp"
+              f" {_fmt(se, 'V/s')} ({_fmt(se / design.stage.fsw, 'V')} per period; {how}). Sn, Sf: on- and"
+              " off-time slopes of the sensed current at the comparator. mc = 1 + Se/Sn. Qp: Q of the"
+              " sampling double pole at fsw/2 (Ridley 1991). ratio: a peak-current error's factor from one"
+              " period to the next, -(Sf - Se)/(Sn + Se); |ratio| >= 1 is subharmonic oscillation."
+              f" Ipeak: peak inductor current{' (primary)' if design.stage.topology == 'flyback' else ''}.")
+    return format_table(cols, rows) + "\n" + wrap_note(legend)
 
 
 # ---------------------------------------------------------------------- design

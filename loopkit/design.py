@@ -389,10 +389,13 @@ class Control:
         inductor current; sense resistor times amplifier gain; flyback: primary current).
     slope : float or None
         External slope-compensation ramp at the comparator, V/s (0 = none).
+    slope_amplitude : float or None
+        The external ramp as its amplitude over one switching period, V, instead of ``slope``.
     slope_ratio : float or None
-        The external slope as a multiple of the inductor's down-slope at the comparator
-        (Ri times the off-time slope) at each corner, instead of ``slope``.  With neither
-        given the slope is chosen automatically (:func:`loopkit.schemes.peak_current.auto_slope`).
+        The external slope as a multiple of the steepest down-slope at the comparator (Ri times
+        the off-time slope) over the CCM corners.  With none of ``slope``, ``slope_amplitude``
+        and ``slope_ratio`` the slope is chosen automatically
+        (:func:`loopkit.schemes.peak_current.auto_slope`: Qp = 1 at the worst CCM corner).
     current_limit : float
         Peak inductor current limit, A (0 = not checked).
     """
@@ -400,6 +403,7 @@ class Control:
     scheme: str = "voltage-mode"
     sense_gain: float = 0.0
     slope: float | None = None
+    slope_amplitude: float | None = None
     slope_ratio: float | None = None
     current_limit: float = 0.0
 
@@ -411,10 +415,14 @@ class Control:
         if self.scheme == "peak-current" and not self.sense_gain > 0:
             raise DesignError("control.sense_gain", format_value(self.sense_gain, "Ω"),
                               "peak current mode needs the current-sense gain (> 0 ohm)")
-        if self.slope is not None and self.slope_ratio is not None:
-            raise DesignError("control.slope_ratio", self.slope_ratio, "give slope or slope_ratio, not both")
+        given = [k for k in ("slope", "slope_amplitude", "slope_ratio") if getattr(self, k) is not None]
+        if len(given) > 1:
+            raise DesignError(f"control.{given[1]}", getattr(self, given[1]),
+                              f"give one of slope, slope_amplitude, slope_ratio (also given: {given[0]})")
         if self.slope is not None:
             _non_negative("control.slope", self.slope, "V/s")
+        if self.slope_amplitude is not None:
+            _non_negative("control.slope_amplitude", self.slope_amplitude, "V")
         if self.slope_ratio is not None:
             _between("control.slope_ratio", self.slope_ratio, -1e-12, 100.0, "0 and 100")
 

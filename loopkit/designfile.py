@@ -92,6 +92,7 @@ _UNITS = {
     "r_out": "ohm",
     "sense_gain": "ohm",
     "slope": "V/s",
+    "slope_amplitude": "V",
     "current_limit": "A",
 }
 #: Dimensionless fields written as plain TOML numbers (the rest as engineering text).

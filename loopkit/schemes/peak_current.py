@@ -95,8 +95,10 @@ from ..units import format_value
 
 __all__ = [
     "MC_MAX",
+    "NAME",
     "SAMPLING",
     "SLOPE_RULES",
+    "TITLE",
     "auto_slope",
     "control_to_output",
     "figures",
@@ -104,7 +106,12 @@ __all__ = [
     "line_to_output",
     "output_impedance",
     "sampling_gain",
+    "slope_of",
+    "uncompensated",
 ]
+
+NAME = "peak-current"
+TITLE = "peak current mode"
 
 #: Sampling-gain forms accepted by :func:`control_to_output`.
 SAMPLING = ("quadratic", "pade")
@@ -495,3 +502,47 @@ def findings(
                 )
             )
     return tuple(out)
+
+
+# ---------------------------------------------------------------------------- the scheme plug-in
+def slope_of(design, stage: StageResult) -> float:
+    """The external ramp Se (V/s at the comparator) a design asks for.
+
+    ``control.slope`` as given; ``control.slope_amplitude`` (V per switching period) times fsw;
+    ``control.slope_ratio`` times the steepest down-slope ``Ri sf`` over the CCM corners (one
+    physical ramp serves every corner); with none of them, :func:`auto_slope` (Qp = 1 at the
+    worst CCM corner).
+    """
+    c = design.control
+    ri = c.sense_gain
+    if c.slope is not None:
+        return float(c.slope)
+    if c.slope_amplitude is not None:
+        return float(c.slope_amplitude) * design.stage.fsw
+    if c.slope_ratio is not None:
+        ccm = ~stage.dcm
+        sf = float(np.max(stage.sf_a_per_s[ccm])) if np.any(ccm) else 0.0
+        return float(c.slope_ratio) * ri * sf
+    return auto_slope(stage, ri)
+
+
+def uncompensated(design, stage: StageResult):
+    """The loop from the error amplifier's output to its input without the network: H x vo/vc.
+
+    The error amplifier's output is the comparator's control voltage ``vc`` (the current-sense
+    gain and the ramp are referred to it), so ``Tu = H vo/vc`` with ``H`` the sensing; the
+    line-to-output and output impedance have the current loop closed.
+    """
+    from ..networks.sensing import sensing_transfer
+    from .base import SchemeLoop
+
+    ri = design.control.sense_gain
+    se = slope_of(design, stage)
+    limit = design.control.current_limit or None
+    fig = figures(stage, ri, se)
+    fig["se_v_per_s"] = np.full(stage.n_corners, se)
+    return SchemeLoop(
+        tu=sensing_transfer(design) * control_to_output(stage, ri, se),
+        gvg=line_to_output(stage, ri, se), zout=output_impedance(stage, ri, se),
+        figures=fig, findings=tuple(findings(stage, ri, se, peak_limit_a=limit)),
+    )
