@@ -1,4 +1,4 @@
-"""The loop at every corner: T(s) = sensing x compensator x modulator x Gvd.
+"""The loop at every corner: T(s) = -Tu(s) Gc(s), from the design to a :class:`LoopResult`.
 
 :class:`LoopSession` holds what does not change while the targets move (the
 power stage at every corner, the uncompensated loop on the frequency grid);
@@ -6,16 +6,16 @@ power stage at every corner, the uncompensated loop on the frequency grid);
 parts to the E-series, and gives the margins at every corner before and after
 snapping.  CLI, app and tests all go through it.
 
-Sign convention: the uncompensated loop is ``Tu = H Fm Gvd`` (sensing,
-modulator, plant) and the loop gain ``T = -Tu Gc``, where the error-amplifier
-network ``Gc`` is inverting (negative at low frequency).  A correctly wired
-loop therefore has T(0) > 0 and is analysed in the form 1 + T.
+The control scheme (:mod:`loopkit.schemes`) gives the uncompensated loop ``Tu``
+(voltage mode: ``H Fm Gvd``); the loop gain is ``T = -Tu Gc`` with the inverting
+network ``Gc`` (sign convention: :mod:`loopkit.result`).  Findings are worded in
+:mod:`loopkit.findings`, the verdict in :mod:`loopkit.verdict`, the worst-corner
+placement search in :mod:`loopkit.worst_corner`.
 """
 
 from __future__ import annotations
 
-import functools
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 
 import numpy as np
 
@@ -23,21 +23,24 @@ from . import eseries
 from .cautions import CAUTION
 from .design import Design
 from .errors import Finding, InfeasibleDesign
-from .margins import Margins, loop_margins
+from .findings import loop_findings, opamp_findings, target_findings, unique, why_not_single_crossover, worst_corner
+from .margins import loop_margins
 from .networks import NetworkContext, network_module
-from .powerstage import StageResult, analyse_stage, corner_label
+from .powerstage import StageResult, analyse_stage
 from .rational import Rational
+from .result import LoopResult, OpenLoop, Targets, apply_parts, closed_loop, targets_with, with_targets
 from .schemes import scheme_module
 from .schemes.voltage_mode import modulator_transfer
 from .synthesis import Placement, place
 from .units import format_value
-from .verdict import model_findings, verdict_findings
+from .verdict import verdict_findings
 from .worst_corner import search_placement
 
 __all__ = [
     "CAUTION",
     "LoopResult",
     "LoopSession",
+    "OpenLoop",
     "Targets",
     "apply_parts",
     "closed_loop",
@@ -45,6 +48,7 @@ __all__ = [
     "frequency_grid",
     "modulator_transfer",
     "network_context",
+    "targets_with",
 ]
 
 #: Fixed-point steps correcting gain (and boost) for a finite amplifier at the design corner.
@@ -52,140 +56,6 @@ SOLVE_STEPS = 40
 #: Kept for the app's colours until they follow the targets (common practice, no source).
 PM_WARN_DEG = 45.0
 GM_WARN_DB = 6.0
-
-
-@dataclass(frozen=True)
-class Targets:
-    """What the designer asks of the loop (see :class:`loopkit.design.Compensator`)."""
-
-    network: str
-    fc_hz: float
-    pm_deg: float
-    boost_split: float = 0.5
-    design_corner: int | None = None
-    resistor_series: str = "E96"
-    capacitor_series: str = "E12"
-    method: str = "auto"
-    gm_db: float = 6.0
-    fc_band: float = 2.0
-
-    @classmethod
-    def from_design(cls, design: Design) -> Targets:
-        c = design.compensator
-        return cls(c.network, c.fc, c.pm, c.boost_split, c.design_corner, c.resistor_series,
-                   c.capacitor_series, c.method, c.gm_db, c.fc_band)
-
-
-@dataclass(frozen=True, eq=False)
-class OpenLoop:
-    """The uncompensated loop Tu per corner and on the analysis grid (response, continuous phase), and the
-    line-to-output and output impedance of the plant with the scheme's inner loops closed."""
-
-    tu: Rational
-    resp: np.ndarray
-    phase_deg: np.ndarray
-    gvg: Rational
-    zout: Rational
-
-    def with_network(self, gc: Rational, f_hz: np.ndarray, corner: int | None = None):
-        """(T, Gc on the grid, T on the grid, continuous phase of T) with the network ``gc``, every corner or one.
-
-        T = -Tu Gc; its continuous phase is the sum of the parts' factor angles, corrected for the
-        signs of the parts' gains and of the product's.
-        """
-        tu = self.tu if corner is None else self.tu.take(corner)
-        tu_resp = self.resp if corner is None else self.resp[corner:corner + 1]
-        tu_phase = self.phase_deg if corner is None else self.phase_deg[corner:corner + 1]
-        loop = -(tu * gc)
-        comp_resp = gc.response(f_hz)
-        resp = -tu_resp * comp_resp
-        phase = (tu_phase + gc.phase_deg(f_hz)
-                 - np.where(tu.gain < 0, -180.0, 0.0)[:, None]
-                 - np.where(gc.gain < 0, -180.0, 0.0)[:, None]
-                 + np.where(loop.gain < 0, -180.0, 0.0)[:, None])
-        return loop, comp_resp, resp, phase
-
-
-@dataclass(frozen=True, eq=False)
-class LoopResult:
-    """Everything the designer sees about the loop; see /DEVELOPERS.md.
-
-    ``feasible`` False means no parts were produced: ``findings`` say why and
-    the part, transfer-function and margin fields are empty or None.
-    """
-
-    design: Design
-    stage: StageResult
-    targets: Targets
-    f_hz: np.ndarray
-    feasible: bool
-    network: str
-    parts_exact: dict
-    parts: dict
-    zeros_hz: tuple
-    poles_hz: tuple
-    placement: Placement | None
-    compensator: Rational | None
-    compensator_exact: Rational | None
-    loop: Rational | None
-    loop_exact: Rational | None
-    plant_resp: np.ndarray
-    comp_resp: np.ndarray | None
-    loop_resp: np.ndarray | None
-    loop_phase_deg: np.ndarray | None
-    margins: Margins | None
-    worst_corner: int
-    design_corner: int
-    findings: tuple = field(default_factory=tuple)
-    open_loop: OpenLoop | None = field(default=None, repr=False)
-
-    @property
-    def met(self) -> bool:
-        """True when parts exist and no finding is an error (every corner meets every target)."""
-        return self.feasible and not any(f.severity == "error" for f in self.findings)
-
-    @property
-    def corner_labels(self) -> list[str]:
-        return [corner_label(v, i) for v, i in zip(self.stage.vin, self.stage.load)]
-
-    @functools.cached_property
-    def _exact_on_grid(self):
-        if self.loop_exact is None:
-            return None
-        if self.compensator_exact is self.compensator:
-            return self.loop_resp, self.loop_phase_deg
-        _, _, resp, phase = self.open_loop.with_network(self.compensator_exact, self.f_hz)
-        return resp, phase
-
-    @property
-    def loop_resp_exact(self) -> np.ndarray | None:
-        """T on ``f_hz`` with the computed (unrounded) parts; worked out on first use."""
-        return None if self._exact_on_grid is None else self._exact_on_grid[0]
-
-    @functools.cached_property
-    def margins_exact(self) -> Margins | None:
-        """Margins with the computed (unrounded) parts; worked out on first use."""
-        if self.loop_exact is None:
-            return None
-        if self.compensator_exact is self.compensator:
-            return self.margins
-        resp, phase = self._exact_on_grid
-        return loop_margins(self.loop_exact, self.f_hz, resp, phase, self.design.stage.fsw / 2)
-
-    @functools.cached_property
-    def loop_mag_db(self) -> np.ndarray | None:
-        """|T| in dB on ``f_hz`` with the parts to build, (corners, frequencies)."""
-        return None if self.loop_resp is None else 20.0 * np.log10(np.abs(self.loop_resp))
-
-    def closed_loop_response(self, which: str) -> np.ndarray:
-        """Closed-loop ``"zout"`` (output impedance, ohm) or ``"gvg"`` (line to output) on ``f_hz``.
-
-        ``H / (1 + T)`` with the parts to build, shape (corners, frequencies).
-        """
-        if self.loop_resp is None:
-            raise ValueError("no loop: the targets were infeasible")
-        plant = {"zout": self.open_loop.zout, "gvg": self.open_loop.gvg}[which]
-        return plant.response(self.f_hz) / (1.0 + self.loop_resp)
 
 
 def frequency_grid(stage: StageResult, fsw: float, points: int = 1000) -> np.ndarray:
@@ -274,7 +144,7 @@ class LoopSession:
     # ------------------------------------------------------------------ synthesis
     def _synthesise(self, targets: Targets) -> LoopResult:
         findings = list(self.stage.findings) + list(self.scheme.findings)
-        findings.extend(self._target_findings(targets))
+        findings.extend(target_findings(self.stage, self.design.stage.fsw, targets))
         if targets.fc_hz <= 0:
             return self._infeasible(targets, findings, "compensator.fc", targets.fc_hz, "give a crossover target > 0 Hz")
         fsw = self.design.stage.fsw
@@ -426,23 +296,23 @@ class LoopSession:
             at_corner = loop_margins(loop_x.take(corner), self.f_hz, resp_c, phase_c, self.design.stage.fsw / 2)
             if at_corner.n_crossovers[0] != 1 or not at_corner.stable[0]:
                 return self._infeasible(targets, findings, "compensator.fc", format_value(targets.fc_hz, "Hz"),
-                                        _why_not_single_crossover(self.stage, corner, at_corner, 0,
+                                        why_not_single_crossover(self.stage, corner, at_corner, 0,
                                                                   targets.network, targets.fc_hz))
         loop, comp_resp, resp, phase = self._loop_on_grid(gc)
         margins = loop_margins(loop, self.f_hz, resp, phase, self.design.stage.fsw / 2)
         zeros, poles = module.poles_zeros(parts, self.ctx)
-        worst = _worst_corner(margins)
+        worst = worst_corner(margins)
         findings.extend(eseries.part_warnings(parts))
-        findings.extend(self._loop_findings(margins, targets))
-        findings.extend(self._opamp_findings(module, parts))
+        findings.extend(loop_findings(margins, self.stage, self.design.stage.fsw, targets))
+        findings.extend(opamp_findings(module, parts, self.ctx, self.f_hz))
         return LoopResult(
-            design=_with_targets(self.design, targets), stage=self.stage, targets=targets, f_hz=self.f_hz,
+            design=with_targets(self.design, targets), stage=self.stage, targets=targets, f_hz=self.f_hz,
             feasible=True,
             network=targets.network, parts_exact=dict(parts_exact), parts=parts, zeros_hz=tuple(zeros),
             poles_hz=tuple(poles), placement=placement, compensator=gc, compensator_exact=gc_exact, loop=loop,
             loop_exact=loop_x, plant_resp=self.plant_resp, comp_resp=comp_resp, loop_resp=resp,
             loop_phase_deg=phase, margins=margins, worst_corner=worst, design_corner=corner,
-            findings=tuple(_unique(findings)), open_loop=self.open_loop,
+            findings=tuple(unique(findings)), open_loop=self.open_loop,
         )
 
     def _infeasible(self, targets, findings, field_name, value, allowed, reasons=()) -> LoopResult:
@@ -451,146 +321,16 @@ class LoopSession:
             message += " (" + "; ".join(reasons) + ")"
         findings = list(findings) + [Finding("infeasible", message, None)]
         return LoopResult(
-            design=_with_targets(self.design, targets), stage=self.stage, targets=targets, f_hz=self.f_hz,
+            design=with_targets(self.design, targets), stage=self.stage, targets=targets, f_hz=self.f_hz,
             feasible=False,
             network=targets.network, parts_exact={}, parts={}, zeros_hz=(), poles_hz=(), placement=None,
             compensator=None, compensator_exact=None, loop=None, loop_exact=None, plant_resp=self.plant_resp,
             comp_resp=None, loop_resp=None, loop_phase_deg=None, margins=None, worst_corner=-1, design_corner=-1,
-            findings=tuple(_unique(findings)), open_loop=self.open_loop,
+            findings=tuple(unique(findings)), open_loop=self.open_loop,
         )
-
-    # ------------------------------------------------------------------ findings
-    def _target_findings(self, targets: Targets) -> list[Finding]:
-        out = []
-        fc, fsw = targets.fc_hz, self.design.stage.fsw
-        st = self.stage
-        out.extend(model_findings(fc, fsw))
-        if np.isfinite(self._rhp_min) and fc > self._rhp_min / 3:
-            k = int(np.nanargmin(st.f_rhp_hz))
-            out.append(Finding("rhp-zero", f"crossover {format_value(fc, 'Hz')} is above one third of the RHP zero"
-                               f" ({format_value(self._rhp_min, 'Hz')} at {corner_label(st.vin[k], st.load[k])};"
-                               " common practice): lower fc or raise the RHP zero (less inductance)", k))
-        if targets.network in ("type2", "gm-type2", "opto-type2"):
-            f0 = st.f0_hz
-            no_esr = ~np.any(st.f_esr_hz < fc, axis=1)
-            below = np.isfinite(f0) & (fc < f0) & no_esr
-            if np.any(below):
-                k = int(np.nonzero(below)[0][0])
-                out.append(Finding("type2-below-f0", f"crossover {format_value(fc, 'Hz')} is below the double pole"
-                                   f" ({format_value(f0[k], 'Hz')} at {corner_label(st.vin[k], st.load[k])}) and no ESR"
-                                   " zero lies below fc: the LC resonance can cross 0 dB again; use Type III with"
-                                   " fc above the double pole, or more damping", k))
-        return out
-
-    def _loop_findings(self, m: Margins, targets: Targets) -> list[Finding]:
-        st = self.stage
-        out = verdict_findings(m, st, targets, self.design.stage.fsw)
-        for k in range(st.n_corners):
-            where = corner_label(st.vin[k], st.load[k])
-            if m.conditional[k]:
-                out.append(Finding("conditional", f"{where}: conditionally stable: a gain drop of"
-                                   f" {m.gm_low_db[k]:.1f} dB (an error amplifier recovering from saturation, a"
-                                   " soft start) makes the loop unstable; raise the phase below the crossover (zeros"
-                                   " nearer the double pole) or lower fc", k))
-            if m.beyond_grid[k]:
-                out.append(Finding("gain-at-fsw", f"{where}: |T| is still above 0 dB at the switching frequency", k))
-            if m.gm_beyond_model[k]:
-                out.append(Finding("gm-beyond-model", f"{where}: the phase reaches -180 deg only at"
-                                   f" {format_value(m.f180_beyond_hz[k], 'Hz')}, above fsw/2, where the averaged model"
-                                   " does not predict it: no gain margin is given; measure it", k, "note"))
-        return out
-
-    def _opamp_findings(self, module, parts: dict) -> list[Finding]:
-        check = getattr(module, "gain_shortfall", None)
-        if check is None or self.ctx.opamp.ideal:
-            return []
-        short = check(parts, self.ctx, self.f_hz)
-        if short is None:
-            return []
-        return [Finding("opamp-gain", f"the network needs more gain than the op-amp has above"
-                        f" {format_value(short, 'Hz')}: choose an op-amp with more gain-bandwidth", None)]
-
-
-def _why_not_single_crossover(stage: StageResult, corner: int, m: Margins, row: int, network: str,
-                              fc_hz: float) -> str:
-    crossings = ", ".join(format_value(x, "Hz") for x in m.crossovers_hz[row])
-    where = corner_label(stage.vin[corner], stage.load[corner])
-    text = (f"the network puts a crossover at the target, but at {where} the loop gain crosses 0 dB"
-            f" {m.n_crossovers[row]} times ({crossings})")
-    if not m.stable[row]:
-        text += " and the closed loop is unstable"
-    f0 = stage.f0_hz[corner]
-    if np.isfinite(f0):
-        text += f"; the double pole at {format_value(f0, 'Hz')} (Q {stage.q[corner]:.1f}) peaks above 0 dB"
-        if network != "type3":
-            text += ": use Type III with fc above the double pole, or lower fc well below it"
-        elif fc_hz > f0:
-            text += ": move the zeros nearer the double pole (method auto or placement), or raise fc further above it"
-        else:
-            text += ": raise fc above the double pole, or lower it well below"
-    return text
-
-
-def _with_targets(design: Design, t: Targets) -> Design:
-    """The design as the targets set it (parts as they were)."""
-    c = design.compensator
-    if Targets.from_design(design) == t:
-        return design
-    comp = replace(c, network=t.network, fc=t.fc_hz, pm=t.pm_deg, boost_split=t.boost_split,
-                   design_corner=t.design_corner, resistor_series=t.resistor_series,
-                   capacitor_series=t.capacitor_series, method=t.method, gm_db=t.gm_db, fc_band=t.fc_band)
-    return replace(design, compensator=comp)
-
-
-def _worst_corner(m: Margins) -> int:
-    """Lowest phase margin; an unstable corner or one without crossover is worse still."""
-    score = np.where(np.isfinite(m.pm_deg), m.pm_deg, -1e3)
-    score = np.where(m.stable, score, -1e6 + np.nan_to_num(m.pm_deg, nan=0.0))
-    return int(np.argmin(score))
-
-
-def _unique(findings: list) -> list:
-    seen, out = set(), []
-    for f in findings:
-        key = (f.code, f.message, f.corner)
-        if key not in seen:
-            seen.add(key)
-            out.append(f)
-    return out
-
-
-def closed_loop(result: LoopResult, which: str, exact_parts: bool = False) -> Rational:
-    """Closed-loop ``"zout"`` or ``"gvg"`` as a transfer function per corner: H (1 + T)^-1.
-
-    With T = N/D (polynomials), H / (1 + T) = H D / (D + N); the roots of D + N
-    are the closed-loop poles used for the stability verdict.
-    """
-    loop = result.loop_exact if exact_parts else result.loop
-    if loop is None:
-        raise ValueError("no loop: the targets were infeasible")
-    plant = {"zout": result.open_loop.zout, "gvg": result.open_loop.gvg}[which]
-    num, den = loop.polys()
-    k = max(num.shape[1], den.shape[1])
-    char = np.zeros((loop.n_corners, k))
-    char[:, : num.shape[1]] += num
-    char[:, : den.shape[1]] += den
-    return plant * Rational.from_polys(den, char)
-
 
 def design_loop(design: Design, targets: Targets | None = None, f_hz=None) -> LoopResult:
     """Synthesise and analyse in one call: ``LoopSession(design, f_hz).run(targets)``."""
     return LoopSession(design, f_hz).run(targets)
-
-
-def apply_parts(design: Design, result: LoopResult) -> Design:
-    """The design with the result's targets and snapped parts written back."""
-    targeted = _with_targets(design, result.targets)
-    comp = replace(targeted.compensator, parts={k: float(v) for k, v in result.parts.items()})
-    return replace(targeted, compensator=comp)
-
-
-def targets_with(targets: Targets, **changes) -> Targets:
-    """A copy of ``targets`` with some fields changed."""
-    return replace(targets, **changes)
 
 
