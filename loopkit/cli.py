@@ -29,10 +29,11 @@ import numpy as np
 from . import __version__
 from .atomicfile import check_writable, write_files_atomic, write_text_atomic
 from .cautions import CAUTION
-from .design import METHODS, NETWORKS, Design
+from .design import METHODS, Design
 from .designfile import load_design
 from .errors import DesignError, DesignFileError
 from .margins import GM_WORDS, gm_state
+from .networks import NETWORKS, network_title
 from .powerstage import StageResult, analyse_stage
 from .schemes import scheme_module
 from .tables import EMPTY, Column, format_table, wrap_note
@@ -227,15 +228,6 @@ def _current_mode_table(design: Design, stage: StageResult, fig: dict) -> str:
 
 
 # ---------------------------------------------------------------------- design
-NETWORK_TITLES = {
-    "type1": "Type I (integrator), op-amp",
-    "type2": "Type II, op-amp",
-    "type3": "Type III, op-amp",
-    "gm-type2": "Type II, transconductance amplifier",
-    "opto-type2": "Type II, shunt reference and optocoupler",
-}
-
-
 def _part_unit(designator: str) -> str:
     if designator.startswith("R"):
         return "ohm" if _ASCII else "Ω"
@@ -255,7 +247,9 @@ def _angle(value: float) -> str:
 def _targets_lines(result) -> list[str]:
     t, st = result.targets, result.stage
     given = _given(result)
-    lines = [f"Network: {NETWORK_TITLES.get(result.network, result.network)} [{result.network}]"]
+    lines = [f"Network: {network_title(result.network)} [{result.network}]"]
+    if result.design.control.scheme != "voltage-mode":
+        lines.append(f"Control: {scheme_module(result.design.control.scheme).TITLE}")
     if given:
         lines.append(
             "Parts: as given in the design file's [compensator.parts] (no synthesis; use --synthesise"

@@ -15,6 +15,7 @@ import numpy as np
 
 from .errors import DesignError
 from .eseries import SERIES_NAMES
+from .networks import NETWORKS
 from .units import format_value
 
 __all__ = [
@@ -40,8 +41,6 @@ TOPOLOGIES = ("buck", "boost", "inverting-buck-boost", "four-switch-buck-boost",
 #: Synthesis methods accepted in ``compensator.method``.
 METHODS = ("auto", "k-factor", "placement")
 
-#: Compensator network names accepted in ``compensator.network``.
-NETWORKS = ("type1", "type2", "type3", "gm-type2", "opto-type2")
 
 
 def _positive(name: str, value: float, unit: str = "") -> None:

@@ -60,6 +60,7 @@ import numpy as np
 from .design import CapacitorBank, Compensator, Control, Design, Modulator, OpAmp, Operating, Sensing, Stage
 from .errors import DesignError, DesignFileError
 from .eseries import is_capacitor, is_resistor
+from .networks import network_module
 from .networks.opto_type2 import OPTO_KEYS
 from .units import format_value, parse_value
 
@@ -505,11 +506,11 @@ def design_to_dict(design: Design, ranges: bool = True) -> dict:
         for f in fields(Compensator)
         if f.name not in ("parts", "placement", "opto", "opamp", "design_corner")
     }
-    if comp.network != "type3":
+    if network_module(comp.network).ZEROS != 2:
         compensator = _without(compensator, Compensator, {"boost_split"})
     compensator["design_corner"] = "worst" if comp.design_corner is None else comp.design_corner
     opamp = {f.name: getattr(comp.opamp, f.name) for f in fields(OpAmp)}
-    if comp.network == "gm-type2":  # gain_db, gbw unused by a gm amplifier: written only where changed
+    if network_module(comp.network).AMPLIFIER == "transconductance":  # gain_db, gbw unused: written only where changed
         typical = OpAmp.typical()
         opamp = {k: v for k, v in opamp.items() if k in ("gm", "r_out") or v != getattr(typical, k)}
     elif comp.opamp.ideal:

@@ -47,7 +47,7 @@ def bom_csv(result: LoopResult) -> str:
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(["designator", "value", "value_si", "unit", "series", "tolerance", "kind", "computed"])
     for name, key in (("Rled", "r_led"), ("Rpull", "r_pull")):
-        if result.network == "opto-type2" and result.design.compensator.opto.get(key):
+        if network_module(result.network).AMPLIFIER == "optocoupler" and result.design.compensator.opto.get(key):
             value = float(result.design.compensator.opto[key])
             writer.writerow([name, format_value(value, "Ω", digits=4), repr(value), "ohm", "given", "", "resistor",
                              repr(value)])

@@ -10,6 +10,7 @@ import numpy as np
 
 from .errors import Finding
 from .margins import Margins
+from .networks import network_module
 from .powerstage import StageResult, corner_label
 from .units import format_value
 from .verdict import model_findings, verdict_findings
@@ -30,7 +31,7 @@ def target_findings(stage: StageResult, fsw: float, targets) -> list[Finding]:
         out.append(Finding("rhp-zero", f"crossover {format_value(fc, 'Hz')} is above one third of the RHP zero"
                            f" ({format_value(rhp_min, 'Hz')} at {corner_label(st.vin[k], st.load[k])};"
                            " common practice): lower fc or raise the RHP zero (less inductance)", k))
-    if targets.network in ("type2", "gm-type2", "opto-type2"):
+    if network_module(targets.network).ZEROS == 1:
         f0 = st.f0_hz
         no_esr = ~np.any(st.f_esr_hz < fc, axis=1)
         below = np.isfinite(f0) & (fc < f0) & no_esr
@@ -86,7 +87,7 @@ def why_not_single_crossover(stage: StageResult, corner: int, m: Margins, row: i
     f0 = stage.f0_hz[corner]
     if np.isfinite(f0):
         text += f"; the double pole at {format_value(f0, 'Hz')} (Q {stage.q[corner]:.1f}) peaks above 0 dB"
-        if network != "type3":
+        if network_module(network).ZEROS < 2:
             text += ": use Type III with fc above the double pole, or lower fc well below it"
         elif fc_hz > f0:
             text += ": move the zeros nearer the double pole (method auto or placement), or raise fc further above it"

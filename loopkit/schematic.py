@@ -26,8 +26,8 @@ import itertools
 import sys
 from contextlib import contextmanager
 
-from .design import NETWORKS
 from .errors import DesignError
+from .networks import NETWORKS, network_module
 from .units import format_value
 
 __all__ = ["network_svg"]
@@ -161,7 +161,7 @@ def _vref_text(ctx) -> str:
     return "vref" if ctx is None else f"vref {ctx.vref:.4g} V"
 
 
-def _opamp_network(sheet: _Sheet, network: str, ctx) -> None:
+def draw_opamp_network(sheet: _Sheet, network: str, ctx) -> None:
     """Inverting op-amp: R1 input, Rb to ground (dc), feedback per type; Type III adds R3-C3 across R1."""
     y_fb1, y_fb2 = 2.5, 5.0
     x_in, x_j, x_inv, x_rb, x_riser, x_op, x_out = 0.0, 1.0, 5.0, 6.5, 8.0, 10.0, 14.0
@@ -202,7 +202,7 @@ def _opamp_network(sheet: _Sheet, network: str, ctx) -> None:
     sheet.capacitor((x_riser, y_fb2), (x_out, y_fb2), "C2")
 
 
-def _gm_network(sheet: _Sheet, ctx) -> None:
+def draw_gm_network(sheet: _Sheet, ctx) -> None:
     """gm amplifier: divider R1/Rb into its inverting input, Rc-Cc and Chf from its output to ground."""
     x_in, x_fb, x_op = 0.0, 4.0, 7.5
     sheet.terminal((x_in, 0), "in")
@@ -233,7 +233,7 @@ def _gm_network(sheet: _Sheet, ctx) -> None:
     sheet.ground((x_hf, yo - 3.0))
 
 
-def _opto_network(sheet: _Sheet, ctx) -> None:
+def draw_opto_network(sheet: _Sheet, ctx) -> None:
     """Shunt regulator + optocoupler: R1/Rb to its reference, Cz (+Rz) feedback, LED from in via R_LED."""
     opto = dict(ctx.opto) if ctx is not None else {}
 
@@ -339,10 +339,5 @@ def network_svg(network: str, parts: dict, ctx=None, *, outline_text: bool = Tru
         raise DesignError("compensator.network", network, f"must be one of {', '.join(NETWORKS)}")
     with _svg_settings(outline_text):
         sheet = _Sheet(parts, ctx)
-        if network in ("type1", "type2", "type3"):
-            _opamp_network(sheet, network, ctx)
-        elif network == "gm-type2":
-            _gm_network(sheet, ctx)
-        else:
-            _opto_network(sheet, ctx)
+        network_module(network).draw(sheet, ctx)  # each network draws itself with the sheet's parts
         return sheet.svg()

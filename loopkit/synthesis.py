@@ -28,22 +28,18 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import Finding, InfeasibleDesign
+from .networks import network_module
 from .units import format_value
 
 __all__ = ["Placement", "boost_limits", "pair_k", "place"]
 
-#: Hard limits of the phase boost (deg) each network can give: one zero-pole pair
-#: tends to 90 deg as K -> infinity, two pairs to 180 deg.
-HARD_BOOST = {"type1": 0.0, "type2": 90.0, "gm-type2": 90.0, "opto-type2": 90.0, "type3": 180.0}
-#: Practical limits (common practice, no source): beyond these K is so large that
-#: the parts spread over many decades and the op-amp's bandwidth limits.
-PRACTICAL_BOOST = {"type1": 0.0, "type2": 75.0, "gm-type2": 75.0, "opto-type2": 75.0, "type3": 150.0}
 MIN_PAIR_BOOST = 1.0  # deg: below this a zero-pole pair is pointless
 
 
 def boost_limits(network: str) -> tuple[float, float]:
-    """(practical, hard) phase-boost limits of a network, deg."""
-    return PRACTICAL_BOOST[network], HARD_BOOST[network]
+    """(practical, hard) phase-boost limits of a network, deg (from the network's own module)."""
+    module = network_module(network)
+    return module.PRACTICAL_BOOST_DEG, module.HARD_BOOST_DEG
 
 
 def pair_k(boost_deg):
@@ -126,13 +122,14 @@ def place(network: str, method: str, fc_hz: float, pm_deg: float, tu_fc: complex
     required = pm_deg - tu_phase_deg - 90.0
     practical, hard = boost_limits(network)
     notes = []
-    label = {"type1": "Type I", "type3": "Type III"}.get(network, "Type II")
-    if method == "placement" and network != "type1":
+    module = network_module(network)
+    label = module.SHORT_TITLE
+    if method == "placement" and module.ZEROS > 0:
         zeros, poles = _explicit(network, placement or {}, defaults or {})
         fc = fc_hz
         boost = float(sum(np.degrees(np.arctan(fc / z)) for z in zeros) - sum(np.degrees(np.arctan(fc / p)) for p in poles))
         return Placement(fc_hz, gain, zeros, poles, boost, required, tu_phase_deg, float("nan"), corner, ())
-    if network == "type1":
+    if module.ZEROS == 0:
         if required > 0.05:
             raise InfeasibleDesign(
                 "compensator.pm", pm_deg,
@@ -147,16 +144,19 @@ def place(network: str, method: str, fc_hz: float, pm_deg: float, tu_fc: complex
             "compensator.fc", format_value(fc_hz, "Hz"),
             f"the target needs {required:.1f} deg of phase boost at {format_value(fc_hz, 'Hz')} but a {label}"
             f" network gives less than {hard:.0f} deg; lower the crossover, "
-            + ("use Type III, " if network != "type3" else "")
+            + ("use Type III, " if module.ZEROS < 2 else "")
             + "or add output capacitance / an ESR zero",
             (f"plant phase at fc is {tu_phase_deg:.1f} deg; boost needed {required:.1f} deg",))
     if required > practical:
+        limit = {"op-amp": "the op-amp's gain-bandwidth will matter",
+                 "transconductance": "the amplifier's output resistance and the high-frequency capacitor will matter",
+                 "optocoupler": "the optocoupler's own pole will matter"}[module.AMPLIFIER]
         notes.append(Finding(
             "boost-practical",
             f"{label} boost of {required:.1f} deg exceeds the practical {practical:.0f} deg (common practice):"
-            " parts spread widely and the op-amp bandwidth will matter", corner))
+            f" parts spread widely and {limit}; lower fc" + (" or use Type III" if module.ZEROS < 2 else ""), corner))
     boost = required
-    n_pairs = 2 if network == "type3" else 1
+    n_pairs = module.ZEROS
     if boost < MIN_PAIR_BOOST * n_pairs:
         notes.append(Finding(
             "pm-above-target",
@@ -164,7 +164,7 @@ def place(network: str, method: str, fc_hz: float, pm_deg: float, tu_fc: complex
             f" {format_value(fc_hz, 'Hz')}; the {label} network gives its minimum {MIN_PAIR_BOOST * n_pairs:.0f} deg,"
             " so the margin is higher than asked (a Type I integrator may do)", corner, "note"))
         boost = MIN_PAIR_BOOST * n_pairs
-    if network == "type3":
+    if n_pairs == 2:
         b1 = boost * boost_split
         b2 = boost - b1
         for b in (b1, b2):
@@ -186,7 +186,7 @@ def _explicit(network: str, placement: dict, defaults: dict) -> tuple[tuple, tup
     fz = defaults.get("f_zero")
     fp1 = defaults.get("f_pole1")
     fp2 = defaults.get("f_pole2")
-    if network == "type3":
+    if network_module(network).ZEROS == 2:
         zeros = (placement.get("fz1", fz), placement.get("fz2", placement.get("fz1", fz)))
         poles = (placement.get("fp1", fp1), placement.get("fp2", fp2))
     else:

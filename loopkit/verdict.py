@@ -22,6 +22,7 @@ import numpy as np
 
 from .errors import Finding
 from .margins import Margins
+from .networks import network_module
 from .units import format_value
 
 __all__ = ["FC_FSW_LIMIT", "model_findings", "verdict_findings"]
@@ -41,7 +42,7 @@ def _pm_advice(stage, k: int, targets, fsw: float) -> str:
     rhp = stage.f_rhp_hz[k]
     if np.isfinite(rhp) and targets.fc_hz > rhp / 5:
         return f"lower fc well below the RHP zero ({format_value(rhp, 'Hz')} here)"
-    if targets.network != "type3":
+    if network_module(targets.network).ZEROS < 2:
         return "use Type III (two zeros), or lower fc"
     return "lower fc, or add output capacitance or an ESR zero"
 

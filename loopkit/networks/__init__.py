@@ -2,6 +2,15 @@
 
 Every network module provides (``ctx`` is a :class:`NetworkContext`):
 
+``NAME``, ``TITLE``, ``SHORT_TITLE``
+    Its design-file name (``compensator.network``) and how it is called, e.g.
+    ``"type3"``, ``"Type III, op-amp"``, ``"Type III"``.
+``AMPLIFIER``
+    ``"op-amp"``, ``"transconductance"`` or ``"optocoupler"``: which of
+    ``[compensator.opamp]`` (gain_db, gbw or gm, r_out) and ``[compensator.opto]`` apply.
+``HARD_BOOST_DEG``, ``PRACTICAL_BOOST_DEG``
+    The phase boost its zero-pole pairs can give at most, and in practice.
+
 ``DESIGNATORS``
     tuple of the designators of the parts it needs, e.g. ``("R1", "R2", "C1", "C2")``;
     a designator starting with R is a resistor (ohm), with C a capacitor (F).
@@ -35,10 +44,12 @@ from __future__ import annotations
 import importlib
 from dataclasses import dataclass, field
 from types import ModuleType
+from typing import TYPE_CHECKING
 
-from ..design import OpAmp
+if TYPE_CHECKING:  # the design imports the registry; the context needs the op-amp only when built
+    from ..design import OpAmp
 
-__all__ = ["NETWORK_MODULE_NAMES", "NetworkContext", "network_module"]
+__all__ = ["NETWORKS", "NETWORK_MODULE_NAMES", "NetworkContext", "network_module", "network_title"]
 
 NETWORK_MODULE_NAMES = {
     "type1": "type1",
@@ -47,6 +58,15 @@ NETWORK_MODULE_NAMES = {
     "gm-type2": "gm_type2",
     "opto-type2": "opto_type2",
 }
+
+#: Network names accepted in ``compensator.network``.
+NETWORKS = tuple(NETWORK_MODULE_NAMES)
+
+
+def _ideal_opamp():
+    from ..design import OpAmp
+
+    return OpAmp()
 
 
 @dataclass(frozen=True)
@@ -70,7 +90,7 @@ class NetworkContext:
         ``c_opto`` (the optocoupler's own collector capacitance, F).
     """
 
-    opamp: OpAmp = field(default_factory=OpAmp)
+    opamp: OpAmp = field(default_factory=_ideal_opamp)
     vref: float = 0.8
     v_sensed: float = 3.3
     opto: dict = field(default_factory=dict)
@@ -81,5 +101,10 @@ class NetworkContext:
 
 
 def network_module(name: str) -> ModuleType:
-    """The module implementing network ``name`` (one of loopkit.design.NETWORKS)."""
+    """The module implementing network ``name`` (one of :data:`NETWORKS`)."""
     return importlib.import_module(f".{NETWORK_MODULE_NAMES[name]}", __name__)
+
+
+def network_title(name: str) -> str:
+    """The network's title, e.g. ``"Type III, op-amp"``."""
+    return network_module(name).TITLE

@@ -38,11 +38,18 @@ from . import NetworkContext
 from .spice import ac_deck, spice_number
 
 __all__ = [
+    "AMPLIFIER",
     "DESIGNATORS",
+    "HARD_BOOST_DEG",
+    "NAME",
     "OPTIONAL_DESIGNATORS",
     "POLES",
+    "PRACTICAL_BOOST_DEG",
+    "SHORT_TITLE",
+    "TITLE",
     "ZEROS",
     "divider_bottom",
+    "draw",
     "netlist",
     "part_value",
     "poles_zeros",
@@ -55,6 +62,15 @@ __all__ = [
 #: (``R1 vref / (v_sensed - vref)``) is returned by :func:`synthesise` whenever the
 #: sensed voltage is above vref; a part list without it gets it from R1 and the
 #: context.  It is absent when the sensed voltage equals vref (no divider).
+#: The network's identity: design-file name, titles, amplifier kind and phase-boost limits (deg; one
+#: zero-pole pair tends to 90 deg as K grows, two pairs to 180; the practical limits, beyond which the
+#: parts spread over many decades, are common practice, no source).
+NAME = "gm-type2"
+TITLE = "Type II, transconductance amplifier"
+SHORT_TITLE = "Type II"
+AMPLIFIER = "transconductance"
+HARD_BOOST_DEG = 90.0
+PRACTICAL_BOOST_DEG = 75.0
 OPTIONAL_DESIGNATORS = ("Rb",)
 DESIGNATORS = ("R1", "Rc", "Cc", "Chf")
 ZEROS = 1
@@ -294,3 +310,10 @@ def netlist(parts: dict, ctx: NetworkContext, title: str = "gm-type2 compensator
         "Ro = " + ("1e15 ohm standing in for an ideal amplifier" if math.isinf(ro) else "its output resistance"),
     ]
     return ac_deck(title, elements, v_in_dc=ctx.v_sensed, comments=comments)
+
+
+def draw(sheet, ctx) -> None:
+    """Draw the network on a :mod:`loopkit.schematic` sheet (its parts and values are the sheet's)."""
+    from ..schematic import draw_gm_network
+
+    draw_gm_network(sheet, ctx)

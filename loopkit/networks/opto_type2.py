@@ -60,11 +60,18 @@ from .gm_type2 import divider_bottom, part_value, type2_inputs
 from .spice import OPAMP_SUBCKT, ac_deck, opamp_subcircuit, spice_number
 
 __all__ = [
+    "AMPLIFIER",
     "DESIGNATORS",
+    "HARD_BOOST_DEG",
+    "NAME",
     "OPTIONAL_DESIGNATORS",
     "OPTO_KEYS",
     "POLES",
+    "PRACTICAL_BOOST_DEG",
+    "SHORT_TITLE",
+    "TITLE",
     "ZEROS",
+    "draw",
     "netlist",
     "poles_zeros",
     "synthesise",
@@ -75,6 +82,15 @@ __all__ = [
 #: (v_sensed - vref)``; it matters only with a finite-gain shunt) and ``Rz`` (zero
 #: resistor; absent = a short) are returned by :func:`synthesise` but may be left
 #: out of a part list: ``Rb`` is then computed from R1 and the context.
+#: The network's identity: design-file name, titles, amplifier kind and phase-boost limits (deg; one
+#: zero-pole pair tends to 90 deg as K grows, two pairs to 180; the practical limits, beyond which the
+#: parts spread over many decades, are common practice, no source).
+NAME = "opto-type2"
+TITLE = "Type II, shunt reference and optocoupler"
+SHORT_TITLE = "Type II"
+AMPLIFIER = "optocoupler"
+HARD_BOOST_DEG = 90.0
+PRACTICAL_BOOST_DEG = 75.0
 OPTIONAL_DESIGNATORS = ("Rb", "Rz")
 DESIGNATORS = ("R1", "Cz", "Cpole")
 ZEROS = 1
@@ -307,3 +323,10 @@ def netlist(parts: dict, ctx: NetworkContext, title: str = "opto-type2 compensat
         "phototransistor = Fopto (CTR x LED current) pulling the controller pin 'out' against Rpull",
     ]
     return ac_deck(title, elements, v_in_dc=ctx.v_sensed, subcircuits=opamp_subcircuit(ctx.opamp), comments=comments)
+
+
+def draw(sheet, ctx) -> None:
+    """Draw the network on a :mod:`loopkit.schematic` sheet (its parts and values are the sheet's)."""
+    from ..schematic import draw_opto_network
+
+    draw_opto_network(sheet, ctx)

@@ -33,10 +33,17 @@ from .opamp import (
 from .spice import spice_number as sn
 
 __all__ = [
+    "AMPLIFIER",
     "DESIGNATORS",
+    "HARD_BOOST_DEG",
+    "NAME",
     "OPTIONAL_DESIGNATORS",
     "POLES",
+    "PRACTICAL_BOOST_DEG",
+    "SHORT_TITLE",
+    "TITLE",
     "ZEROS",
+    "draw",
     "gain_need",
     "gain_shortfall",
     "inverting_network",
@@ -52,6 +59,15 @@ NAME = "Type I"
 #: ``R1 vref / (v_sensed - vref)``) is added by :func:`synthesise` when the sensed
 #: voltage is above vref; when a part list lacks it, it is computed from R1 and the
 #: context (it matters only with a finite-gain op-amp).
+#: The network's identity: design-file name, titles, amplifier kind and phase-boost limits (deg; one
+#: zero-pole pair tends to 90 deg as K grows, two pairs to 180; the practical limits, beyond which the
+#: parts spread over many decades, are common practice, no source).
+NAME = "type1"
+TITLE = "Type I (integrator), op-amp"
+SHORT_TITLE = "Type I"
+AMPLIFIER = "op-amp"
+HARD_BOOST_DEG = 0.0
+PRACTICAL_BOOST_DEG = 0.0
 OPTIONAL_DESIGNATORS = ("Rb",)
 DESIGNATORS = ("R1", "C1")
 ZEROS = 0
@@ -121,3 +137,10 @@ def netlist(parts: dict, ctx, title: str) -> str:
 
 
 gain_need, gain_shortfall = gain_checks(inverting_network, poles_zeros)
+
+
+def draw(sheet, ctx) -> None:
+    """Draw the network on a :mod:`loopkit.schematic` sheet (its parts and values are the sheet's)."""
+    from ..schematic import draw_opamp_network
+
+    draw_opamp_network(sheet, NAME, ctx)
