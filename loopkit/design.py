@@ -13,6 +13,7 @@ from dataclasses import dataclass, field, fields, replace
 
 import numpy as np
 
+from . import bounds
 from .errors import DesignError
 from .eseries import SERIES_NAMES
 from .units import format_value
@@ -37,20 +38,9 @@ TOPOLOGIES = ("buck", "boost", "inverting-buck-boost", "four-switch-buck-boost",
 #: Compensator network names accepted in ``compensator.network``.
 NETWORKS = ("type1", "type2", "type3", "gm-type2", "opto-type2")
 
-
-def _positive(name: str, value: float, unit: str = "") -> None:
-    if not (value > 0):
-        raise DesignError(name, format_value(value, unit), "must be > 0")
-
-
-def _non_negative(name: str, value: float, unit: str = "") -> None:
-    if not (value >= 0):
-        raise DesignError(name, format_value(value, unit), "must be >= 0")
-
-
-def _between(name: str, value: float, lo: float, hi: float, what: str) -> None:
-    if not (lo < value < hi):
-        raise DesignError(name, format_value(value), f"must be between {what}")
+#: Smallest ideal duty (and 1 minus the largest) a turns ratio may ask for: below it the
+#: switch would conduct for a few nanoseconds at the highest fsw (common practice, no source).
+_MIN_DUTY = 1e-3
 
 
 @dataclass(frozen=True)
@@ -62,10 +52,11 @@ class CapacitorBank:
     count: int = 1
 
     def check(self, where: str) -> None:
-        _positive(f"{where}.capacitance", self.capacitance, "F")
-        _non_negative(f"{where}.esr", self.esr, "Ω")
-        if not isinstance(self.count, (int, np.integer)) or self.count < 1:
+        bounds.check(f"{where}.capacitance", self.capacitance)
+        bounds.check(f"{where}.esr", self.esr)
+        if not isinstance(self.count, (int, np.integer)) or isinstance(self.count, bool) or self.count < 1:
             raise DesignError(f"{where}.count", self.count, "must be a whole number >= 1")
+        bounds.check(f"{where}.count", int(self.count))
 
     @property
     def c_total(self) -> float:
@@ -132,20 +123,16 @@ class Stage:
     def __post_init__(self):
         if self.topology not in TOPOLOGIES:
             raise DesignError("stage.topology", self.topology, f"must be one of {', '.join(TOPOLOGIES)}")
-        _positive("stage.fsw", self.fsw, "Hz")
-        _positive("stage.inductance", self.inductance, "H")
-        for name in ("dcr", "r_switch", "r_rectifier"):
-            _non_negative(f"stage.{name}", getattr(self, name), "Ω")
-        _non_negative("stage.diode_drop", self.diode_drop, "V")
+        for name in ("fsw", "inductance", "dcr", "r_switch", "r_rectifier", "diode_drop"):
+            bounds.check(f"stage.{name}", getattr(self, name))
         if self.rectifier not in ("synchronous", "diode"):
             raise DesignError("stage.rectifier", self.rectifier, "must be synchronous or diode")
         if self.light_load not in ("", "dcm", "forced-ccm"):
             raise DesignError("stage.light_load", self.light_load, "must be dcm or forced-ccm (or left out)")
         if self.rectifier == "diode" and self.light_load == "forced-ccm":
             raise DesignError("stage.light_load", self.light_load, "a diode cannot conduct backwards: use dcm")
-        _positive("stage.turns_ratio", self.turns_ratio)
-        _between("stage.buck_max_duty", self.buck_max_duty, 0.0, 1.0, "0 and 1")
-        _between("stage.boost_min_duty", self.boost_min_duty, 0.0, 1.0, "0 and 1")
+        for name in ("turns_ratio", "buck_max_duty", "boost_min_duty"):
+            bounds.check(f"stage.{name}", getattr(self, name))
         if not self.output_caps:
             raise DesignError("stage.output_caps", "[]", "needs at least one capacitor bank")
         object.__setattr__(self, "output_caps", tuple(self.output_caps))
@@ -187,20 +174,29 @@ class Operating:
     vin_nominal: float | None = None
 
     def __post_init__(self):
-        if self.vout == 0 or not np.isfinite(self.vout):
+        if not isinstance(self.vout, (int, float)) or self.vout == 0 or not np.isfinite(self.vout):
             raise DesignError("operating.vout", self.vout, "must be a nonzero voltage")
+        bounds.check("operating.vout", self.vout, magnitude=True)
         object.__setattr__(self, "vin", tuple(float(v) for v in self.vin))
         object.__setattr__(self, "load", tuple(float(v) for v in self.load))
         if not self.vin:
             raise DesignError("operating.vin", "[]", "needs at least one input voltage")
         if not self.load:
             raise DesignError("operating.load", "[]", "needs at least one load current")
+        n = len(self.vin) * len(self.load)
+        if n > bounds.MAX_CORNERS:
+            raise DesignError(
+                "operating",
+                f"{len(self.vin)} input voltages x {len(self.load)} loads = {n} corners",
+                f"at most {bounds.MAX_CORNERS} corners; sweep more in chunks (one design per block of input"
+                " voltages, as the app's dense sweep does)",
+            )
         for i, v in enumerate(self.vin):
-            _positive(f"operating.vin[{i}]", v, "V")
+            bounds.check(f"operating.vin[{i}]", v)
         for i, v in enumerate(self.load):
-            _positive(f"operating.load[{i}]", v, "A")
+            bounds.check(f"operating.load[{i}]", v)
         if self.vin_nominal is not None:
-            _positive("operating.vin_nominal", self.vin_nominal, "V")
+            bounds.check("operating.vin_nominal", self.vin_nominal)
 
     @property
     def n_corners(self) -> int:
@@ -233,10 +229,8 @@ class Sensing:
     def __post_init__(self):
         if self.kind not in ("divider", "differential"):
             raise DesignError("sensing.kind", self.kind, "must be divider or differential")
-        _positive("sensing.reference", self.reference, "V")
-        _non_negative("sensing.r_top", self.r_top, "Ω")
-        _positive("sensing.divider_current", self.divider_current, "A")
-        _non_negative("sensing.diff_bandwidth", self.diff_bandwidth, "Hz")
+        for name in ("reference", "r_top", "divider_current", "diff_bandwidth"):
+            bounds.check(f"sensing.{name}", getattr(self, name))
 
 
 @dataclass(frozen=True)
@@ -252,8 +246,8 @@ class Modulator:
     feedforward: bool = False
 
     def __post_init__(self):
-        _positive("modulator.ramp", self.ramp, "V")
-        _between("modulator.max_duty", self.max_duty, 0.0, 1.0, "0 and 1")
+        bounds.check("modulator.ramp", self.ramp)
+        bounds.check("modulator.max_duty", self.max_duty)
 
 
 @dataclass(frozen=True)
@@ -266,10 +260,8 @@ class OpAmp:
     r_out: float = 0.0
 
     def __post_init__(self):
-        _non_negative("compensator.opamp.gain_db", self.gain_db)
-        _non_negative("compensator.opamp.gbw", self.gbw, "Hz")
-        _non_negative("compensator.opamp.gm", self.gm, "S")
-        _non_negative("compensator.opamp.r_out", self.r_out, "Ω")
+        for name in ("gain_db", "gbw", "gm", "r_out"):
+            bounds.check(f"compensator.opamp.{name}", getattr(self, name))
 
     @property
     def ideal(self) -> bool:
@@ -320,11 +312,11 @@ class Compensator:
     def __post_init__(self):
         if self.network not in NETWORKS:
             raise DesignError("compensator.network", self.network, f"must be one of {', '.join(NETWORKS)}")
-        _non_negative("compensator.fc", self.fc, "Hz")
-        _between("compensator.pm", self.pm, 0.0, 180.0, "0 and 180 deg")
+        bounds.check("compensator.fc", self.fc)
+        bounds.check("compensator.pm", self.pm)
         if self.method not in ("k-factor", "placement"):
             raise DesignError("compensator.method", self.method, "must be k-factor or placement")
-        _between("compensator.boost_split", self.boost_split, 0.0, 1.0, "0 and 1")
+        bounds.check("compensator.boost_split", self.boost_split)
         for name in ("resistor_series", "capacitor_series"):
             value = getattr(self, name)
             if value not in SERIES_NAMES:
@@ -332,6 +324,13 @@ class Compensator:
         for key, value in self.parts.items():
             if not (isinstance(value, float) and value > 0):
                 raise DesignError(f"compensator.parts.{key}", value, "must be > 0")
+            if bounds.bound_for(f"compensator.parts.{key}") is not None:
+                bounds.check(f"compensator.parts.{key}", value)
+        for key, value in self.placement.items():
+            bounds.check(f"compensator.placement.{key}", value)
+        for key, value in self.opto.items():
+            if bounds.bound_for(f"compensator.opto.{key}") is not None:
+                bounds.check(f"compensator.opto.{key}", value)
         if self.design_corner is not None and self.design_corner < 0:
             raise DesignError("compensator.design_corner", self.design_corner, "must be a corner index >= 0 or 'worst'")
 
@@ -360,6 +359,40 @@ class Design:
             )
         if vout < 0 and self.sensing.kind != "differential":
             raise DesignError("sensing.kind", self.sensing.kind, "a negative output needs differential sensing")
+        self._check_where_fields_meet()
+
+    def _check_where_fields_meet(self) -> None:
+        """Consistency where fields meet: crossover and fsw, divider current and R1, turns ratio and duty."""
+        fc, fsw = self.compensator.fc, self.stage.fsw
+        if fc > 0 and not fc < fsw / 2:
+            raise DesignError(
+                "compensator.fc",
+                format_value(fc, "Hz"),
+                f"must be below half the switching frequency ({format_value(fsw / 2, 'Hz')}): the averaged"
+                " model holds only below it",
+            )
+        s, vout = self.sensing, abs(self.operating.vout)
+        if s.kind == "divider" and s.r_top == 0 and vout > s.reference:
+            r1 = (vout - s.reference) / s.divider_current
+            bound = bounds.bound_for("compensator.parts.R1")
+            if not bound.contains(r1):
+                raise DesignError(
+                    "sensing.divider_current",
+                    format_value(s.divider_current, "A"),
+                    f"gives a divider top resistor R1 = {format_value(r1, 'Ω')}, outside {bound.allowed()}:"
+                    " change divider_current or give r_top",
+                )
+        if self.stage.topology == "flyback":
+            n = self.stage.turns_ratio
+            for v in (min(self.operating.vin), max(self.operating.vin)):
+                duty = n * vout / (v + n * vout)  # ideal flyback, M = D / (n (1 - D)) (Erickson & Maksimovic, 2001)
+                if not _MIN_DUTY <= duty <= 1 - _MIN_DUTY:
+                    raise DesignError(
+                        "stage.turns_ratio",
+                        f"{n:g}",
+                        f"gives a duty of {duty:.3g} at {format_value(v, 'V')} in (ideal: n vout / (vin + n vout));"
+                        f" choose Np/Ns so that it lies between {_MIN_DUTY:g} and {1 - _MIN_DUTY:g}",
+                    )
 
     def design_corner_out_of_range(self) -> bool:
         c = self.compensator.design_corner
