@@ -293,7 +293,8 @@ class Compensator:
         network).  Empty until designed; given parts are analysed as they are.
     placement : dict
         For ``method = "placement"``: frequencies in Hz, keys ``fz1``, ``fz2``,
-        ``fp1``, ``fp2`` (Type III) or ``fz``, ``fp`` (Type II) and ``gain``.
+        ``fp1``, ``fp2`` (Type III) or ``fz``, ``fp`` (Type II); the gain is always
+        the one that puts the crossover at ``fc``.
     """
 
     network: str = "type2"
