@@ -60,6 +60,7 @@ from pathlib import Path
 
 import numpy as np
 
+from . import bounds
 from .bounds import MAX_CORNERS, MAX_FILE_BYTES
 from .design import CapacitorBank, Compensator, Design, Modulator, OpAmp, Operating, Sensing, Stage
 from .errors import DesignError, DesignFileError, shorten
@@ -174,6 +175,8 @@ def _list_or_range(table: dict, key: str, where: str, log: bool) -> tuple[float,
         raise DesignError(f"{where}.{key}", "(missing)", f"give a list {key} = [...] or {lo_key} and {hi_key}")
     lo = parse_value(table[lo_key], f"{where}.{lo_key}", _UNITS[key])
     hi = parse_value(table[hi_key], f"{where}.{hi_key}", _UNITS[key])
+    for name, value in ((lo_key, lo), (hi_key, hi)):
+        bounds.check(f"{where}.{name}", value)
     if not hi >= lo:
         raise DesignError(
             f"{where}.{hi_key}", table[hi_key], f"must be >= {where}.{lo_key} ({shorten(table[lo_key])})"
@@ -343,6 +346,10 @@ def loads_design(text: str, file: str = "<text>") -> Design:
     except DesignError as exc:
         raw = _raw(data, exc.field) if exc.field else None
         value = raw if isinstance(raw, str) else exc.value  # show what the user typed
+        if raw is None and exc.field and _raw(data, exc.field.rpartition(".")[0]) is not None and not str(
+            exc.value
+        ).startswith("("):
+            value = f"{shorten(exc.value)} (the default)"  # a key left out: its default does not fit
         raise DesignFileError(file, exc.field, value, exc.allowed) from None
 
 
