@@ -86,6 +86,8 @@ class Bound:
         lo, hi = self.show(self.lo), self.show(self.hi)
         if self.open_ends:
             return f"between {self.lo:g} and {hi}"
+        if self.zero and self.lo == 0:
+            return f"from 0 ({self.zero}) to {hi}"
         text = f"from {lo} to {hi}"
         return f"0 ({self.zero}) or {text}" if self.zero else text
 
@@ -112,9 +114,9 @@ _F_PLACE = Bound(
     0.01, 1e9, "Hz",
     "placed poles and zeros: from far below any crossover to far above any switching frequency",
 )
-_RES = "0 ... 100 Ω: the worst winding or switch resistance of a power stage is a few ohms"
+_RES = "the worst winding or switch resistance of a power stage is a few ohms"
 
-#: Field (dotted, as in the design file; ``[i]`` left out) -> its bound.
+#: Field (dotted, as in the design file; ``[i]`` left out; ``R*``: every R designator) -> its bound.
 BOUNDS: dict[str, Bound] = {
     # --- [stage]
     "stage.fsw": Bound(1e3, 100e6, "Hz", "from mains-adjacent kilohertz drives to 100 MHz integrated converters"),
@@ -164,9 +166,9 @@ BOUNDS: dict[str, Bound] = {
     "compensator.opto.r_pull": _R_PART,
     "compensator.opto.r_led": _R_PART,
     "compensator.opto.c_opto": Bound(_C_PART.lo, _C_PART.hi, "F", _C_PART.why, zero="neglected"),
-    "compensator.parts.R": _R_PART,
-    "compensator.parts.C": _C_PART,
-    "compensator.placement": _F_PLACE,
+    "compensator.parts.R*": _R_PART,
+    "compensator.parts.C*": _C_PART,
+    "compensator.placement.*": _F_PLACE,
 }
 
 
@@ -180,9 +182,9 @@ def bound_for(field: str) -> Bound | None:
         return BOUNDS[key]
     head, _, name = key.rpartition(".")
     if head == "compensator.parts" and name[:1] in ("R", "C"):
-        return BOUNDS[f"compensator.parts.{name[0]}"]
+        return BOUNDS[f"compensator.parts.{name[0]}*"]
     if head == "compensator.placement":
-        return BOUNDS["compensator.placement"]
+        return BOUNDS["compensator.placement.*"]
     if head == "operating" and name.endswith(("_min", "_max")):
         return BOUNDS.get(f"operating.{name[:-4]}")
     return None

@@ -332,7 +332,7 @@ def loads_design(text: str, file: str = "<text>") -> Design:
         Naming ``file``, the key, the value as written there and what is allowed.
     """
     if len(text) > MAX_FILE_BYTES:
-        raise DesignFileError(file, "", "(file)", f"is larger than {MAX_FILE_BYTES // 1024} KiB: not a design file")
+        raise DesignFileError(file, "", "(file)", f"is larger than {MAX_FILE_BYTES / 2**20:g} MiB: not a design file")
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -369,7 +369,7 @@ def load_design(path) -> Design:
             raise DesignFileError(str(path), "", "(file)", "is not a regular file (a pipe or a device?): give a file")
         if info.st_size > MAX_FILE_BYTES:
             raise DesignFileError(
-                str(path), "", "(file)", f"is larger than {MAX_FILE_BYTES // 1024} KiB: not a design file"
+                str(path), "", "(file)", f"is larger than {MAX_FILE_BYTES / 2**20:g} MiB: not a design file"
             )
         # O_NONBLOCK: should the path become a FIFO after the check, opening it does not wait for a writer
         fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
@@ -380,7 +380,7 @@ def load_design(path) -> Design:
     except OSError as exc:
         raise DesignFileError(str(path), "", "(file)", f"cannot be read: {exc.strerror or exc}") from None
     if len(raw) > MAX_FILE_BYTES:
-        raise DesignFileError(str(path), "", "(file)", f"is larger than {MAX_FILE_BYTES // 1024} KiB: not a design file")
+        raise DesignFileError(str(path), "", "(file)", f"is larger than {MAX_FILE_BYTES / 2**20:g} MiB: not a design file")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
