@@ -12,7 +12,6 @@ zero, DCM poles).
 from __future__ import annotations
 
 import contextlib
-
 from dataclasses import dataclass
 
 import numpy as np

@@ -23,13 +23,12 @@ import threading
 from pathlib import Path
 
 import pytest
+from test_fuzz_designs import BASES, OPTO, check_document, toml_text
 
 from loopkit.bounds import BOUNDS, MAX_CORNERS, MAX_FILE_BYTES, bound_for, bounds_markdown
 from loopkit.designfile import load_design, loads_design
 from loopkit.errors import DesignError, DesignFileError
 from loopkit.loop import LoopSession
-
-from test_fuzz_designs import BASES, OPTO, check_document, toml_text
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = {p.stem: p for p in (ROOT / "sample_designs").glob("*.toml")}
@@ -53,7 +52,7 @@ def refusal(text: str) -> DesignError:
 # ------------------------------------------------------------ the one table
 def test_readme_table_is_the_code_table():
     readme = (ROOT / "README.md").read_text(encoding="utf-8")
-    m = re.search(r"<!-- bounds table: [^>]*-->\n(.*?)<!-- end of bounds table -->", readme, re.S)
+    m = re.search(r"<!-- bounds table: [^>]*-->\n(.*?)<!-- end of bounds table -->", readme, re.DOTALL)
     assert m, "README has no bounds table"
     assert m.group(1) == bounds_markdown()
 
@@ -294,7 +293,7 @@ def test_fifo_and_device_are_refused_at_once(tmp_path):
 def _cli(args: str, shell_tail: str = "") -> subprocess.CompletedProcess:
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     cmd = f"{sys.executable} -c 'import sys; from loopkit.cli import main; sys.exit(main())' {args} {shell_tail}"
-    return subprocess.run(["bash", "-c", cmd], capture_output=True, text=True, env=env, timeout=120, cwd=ROOT)
+    return subprocess.run(["bash", "-c", cmd], capture_output=True, text=True, env=env, timeout=120, cwd=ROOT, check=False)
 
 
 @pytest.mark.parametrize("command", ["stage", "design", "bode"])
