@@ -323,10 +323,10 @@ class Compensator:
             if value not in SERIES_NAMES:
                 raise DesignError(f"compensator.{name}", value, f"must be one of {', '.join(SERIES_NAMES)}")
         for key, value in self.parts.items():
-            if not (isinstance(value, float) and value > 0):
-                raise DesignError(f"compensator.parts.{key}", value, "must be > 0")
             if bounds.bound_for(f"compensator.parts.{key}") is not None:
                 bounds.check(f"compensator.parts.{key}", value)
+            elif not (isinstance(value, float) and value > 0):
+                raise DesignError(f"compensator.parts.{key}", value, "must be > 0")
         for key, value in self.placement.items():
             bounds.check(f"compensator.placement.{key}", value)
         for key, value in self.opto.items():

@@ -104,13 +104,14 @@ def _as_written(value: float, draw) -> object:
     return float(value)
 
 
-def _number_like(old, draw, field: str = "") -> object:
-    """A numeric mutation of ``old``: decades away, anywhere, zero, or a wrong type."""
+def _number_like(old, draw, field: str = "", inside: bool = False) -> object:
+    """A numeric mutation of ``old``: within its bound, decades away, anywhere, zero, or a wrong type."""
     try:
         base = float(old) if not isinstance(old, str) else float(loads_number(old))
     except (TypeError, ValueError):
         base = 1.0
-    kind = draw(st.sampled_from(("inside", "inside", "inside", "decades", "decades", "anywhere", "zero", "wrong")))
+    kinds = ("inside",) if inside else ("inside", "inside", "inside", "decades", "decades", "anywhere", "zero", "wrong")
+    kind = draw(st.sampled_from(kinds))
     bound = bound_for(field)
     if kind == "inside" and bound is not None:
         lo = max(bound.lo, 1e-30) if bound.lo >= 0 else bound.lo
@@ -119,6 +120,8 @@ def _number_like(old, draw, field: str = "") -> object:
             value = (bound.lo + bound.hi) / 2
         if field.endswith(".vout") and base < 0:
             value = -value
+        if field.endswith(".count"):
+            return int(round(value))
     elif kind in ("decades", "inside"):
         value = (base or 1.0) * 10.0 ** draw(st.integers(-12, 12))
     elif kind == "anywhere":
@@ -156,9 +159,10 @@ def mutated_documents(draw) -> dict:
     comp["network"] = draw(st.sampled_from(NETWORKS))
     if comp["network"] == "opto-type2":
         comp.setdefault("opto", dict(OPTO))
-    for _ in range(draw(st.integers(1, 3))):
+    inside = draw(st.booleans())  # only values within their bounds, several at once: stress the arithmetic
+    for _ in range(draw(st.integers(2, 6) if inside else st.integers(1, 3))):
         path = draw(st.sampled_from(sorted(KEYS)))
-        what = draw(st.sampled_from(("set",) * 8 + ("delete", "extra")))
+        what = "set" if inside else draw(st.sampled_from(("set",) * 8 + ("delete", "extra")))
         table = _table_at(doc, path, create=what == "set")
         if table is None:
             continue
@@ -172,18 +176,19 @@ def mutated_documents(draw) -> dict:
             table.pop(key, None)
             continue
         old = table.get(key)
-        if key in TEXT_CHOICES and draw(st.integers(0, 4)):
+        if key in TEXT_CHOICES and (inside or draw(st.integers(0, 4))):
             table[key] = draw(st.sampled_from(TEXT_CHOICES[key]))
         elif isinstance(old, list):
             items = list(old)
             if items and draw(st.booleans()):
                 i = draw(st.integers(0, len(items) - 1))
-                items[i] = _number_like(items[i], draw, f"{path}.{key}")
+                items[i] = _number_like(items[i], draw, f"{path}.{key}", inside)
             else:
-                items = [_number_like(x, draw, f"{path}.{key}") for x in items] or [_number_like(1.0, draw)]
+                items = [_number_like(x, draw, f"{path}.{key}", inside) for x in items] or [_number_like(1.0, draw)]
             table[key] = items
         else:
-            table[key] = _number_like(old if old is not None else 1.0, draw, f"{path.removesuffix('[]')}.{key}")
+            field = f"{path.removesuffix('[]')}.{key}"
+            table[key] = _number_like(old if old is not None else 1.0, draw, field, inside)
     return doc
 
 
