@@ -363,15 +363,12 @@ class Design:
         self._check_where_fields_meet()
 
     def _check_where_fields_meet(self) -> None:
-        """Consistency where fields meet: crossover and fsw, divider current and R1, turns ratio and duty."""
-        fc, fsw = self.compensator.fc, self.stage.fsw
-        if fc > 0 and not fc < fsw / 2:
-            raise DesignError(
-                "compensator.fc",
-                format_value(fc, "Hz"),
-                f"must be below half the switching frequency ({format_value(fsw / 2, 'Hz')}): the averaged"
-                " model holds only below it",
-            )
+        """Consistency where fields meet: divider current and R1, turns ratio and duty.
+
+        (The crossover target against fsw is checked where the targets are used,
+        :meth:`loopkit.loop.LoopSession.run`: there it is a reason the targets
+        cannot be met, also when the app's slider asks for it.)
+        """
         s, vout = self.sensing, abs(self.operating.vout)
         if s.kind == "divider" and s.r_top == 0 and vout > s.reference:
             r1 = (vout - s.reference) / s.divider_current

@@ -36,6 +36,7 @@ from loopkit.bounds import bound_for
 from loopkit.cli import design_text
 from loopkit.design import NETWORKS, TOPOLOGIES
 from loopkit.designfile import loads_design
+from loopkit.export import results_json
 from loopkit.errors import DesignError
 from loopkit.loop import LoopSession
 
@@ -237,6 +238,7 @@ def check_document(doc: dict) -> str:
         design = loads_design(text, "fuzz.toml")
         result = LoopSession(design).run()
         report = design_text(result, "fuzz.toml")
+        document = json.loads(results_json(result), parse_constant=_no_constant)
     except DesignError as exc:
         message = str(exc)
         assert exc.field or exc.value == "(file)", f"an error naming no field: {message[:300]}"
@@ -258,8 +260,12 @@ def check_document(doc: dict) -> str:
         crossed = m.n_crossovers > 0
         assert np.all(np.isfinite(m.fc_hz[crossed])) and np.all(np.isfinite(m.pm_deg[crossed]))
         assert not np.any(np.isnan(m.gm_db)), f"gm_db NaN: {m.gm_db}"
-    assert report.strip()
+    assert report.strip() and document["caution"]
     return "finite"
+
+
+def _no_constant(name: str):
+    raise AssertionError(f"the results document holds {name}: not JSON")
 
 
 @pytest.mark.filterwarnings("ignore::loopkit.errors.LoopkitWarning")
