@@ -16,6 +16,7 @@ Size limits (corners, file size) live here too.
 from __future__ import annotations
 
 import math
+import numbers
 from dataclasses import dataclass
 
 from .errors import DesignError
@@ -67,7 +68,7 @@ class Bound:
     open_ends: bool = False
 
     def contains(self, value: float) -> bool:
-        if not isinstance(value, (int, float)) or isinstance(value, bool) or not math.isfinite(value):
+        if not isinstance(value, numbers.Real) or isinstance(value, bool) or not math.isfinite(value):
             return False
         if self.zero and value == 0:
             return True
@@ -95,9 +96,9 @@ class Bound:
         """What to say of a value outside: the sign first where it is wrong, then the range."""
         if self.open_ends:
             return f"must be {self.allowed()}"
-        if isinstance(value, (int, float)) and value < 0 and self.lo >= 0:
+        if isinstance(value, numbers.Real) and value < 0 and self.lo >= 0:
             return f"must be >= 0 ({self.allowed()})" if self.zero else f"must be > 0 ({self.allowed()})"
-        if isinstance(value, (int, float)) and value == 0 and not self.zero:
+        if isinstance(value, numbers.Real) and value == 0 and not self.zero:
             return f"must be > 0 ({self.allowed()})"
         return f"must be {self.allowed()}"
 
@@ -211,7 +212,7 @@ def check(field: str, value: float, magnitude: bool = False) -> None:
     if bound is None:
         raise KeyError(f"no bound for {field}")
     shown = value
-    if isinstance(value, (int, float)) and not isinstance(value, bool):
+    if isinstance(value, numbers.Real) and not isinstance(value, bool):
         shown = repr(value) if not math.isfinite(value) else f"{value:g}" if bound.unit in ('', 'dB', 'deg') else bound.show(value)
         value = abs(value) if magnitude else value
     if not bound.contains(value):

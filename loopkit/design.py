@@ -9,6 +9,7 @@ what is allowed.  Designs are frozen; use :func:`dataclasses.replace` (or
 
 from __future__ import annotations
 
+import numbers
 from dataclasses import dataclass, field, fields, replace
 
 import numpy as np
@@ -174,11 +175,15 @@ class Operating:
     vin_nominal: float | None = None
 
     def __post_init__(self):
-        if not isinstance(self.vout, (int, float)) or self.vout == 0 or not np.isfinite(self.vout):
+        if not isinstance(self.vout, numbers.Real) or self.vout == 0 or not np.isfinite(self.vout):
             raise DesignError("operating.vout", self.vout, "must be a nonzero voltage")
         bounds.check("operating.vout", self.vout, magnitude=True)
-        object.__setattr__(self, "vin", tuple(float(v) for v in self.vin))
-        object.__setattr__(self, "load", tuple(float(v) for v in self.load))
+        for name in ("vin", "load"):
+            values = getattr(self, name)
+            for i, v in enumerate(values):
+                if not isinstance(v, numbers.Real) or isinstance(v, bool):
+                    raise DesignError(f"operating.{name}[{i}]", v, "must be a number")
+            object.__setattr__(self, name, tuple(float(v) for v in values))
         if not self.vin:
             raise DesignError("operating.vin", "[]", "needs at least one input voltage")
         if not self.load:
