@@ -33,11 +33,11 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from loopkit.bounds import bound_for
-from loopkit.cli import design_text
+from loopkit.cli import design_text, stage_report
 from loopkit.design import NETWORKS, TOPOLOGIES
 from loopkit.designfile import loads_design
-from loopkit.export import results_json
 from loopkit.errors import DesignError
+from loopkit.export import results_json
 from loopkit.loop import LoopSession
 
 SAMPLES = sorted((Path(__file__).resolve().parents[1] / "sample_designs").glob("*.toml"))
@@ -122,7 +122,7 @@ def _number_like(old, draw, field: str = "", inside: bool = False) -> object:
         if field.endswith(".vout") and base < 0:
             value = -value
         if field.endswith(".count"):
-            return int(round(value))
+            return round(value)
     elif kind in ("decades", "inside"):
         value = (base or 1.0) * 10.0 ** draw(st.integers(-12, 12))
     elif kind == "anywhere":
@@ -236,7 +236,9 @@ def check_document(doc: dict) -> str:
     text = toml_text(doc)
     try:
         design = loads_design(text, "fuzz.toml")
-        result = LoopSession(design).run()
+        session = LoopSession(design)
+        assert stage_report(design, session.stage, "fuzz.toml").strip()  # what `loopkit stage` prints
+        result = session.run()
         report = design_text(result, "fuzz.toml")
         document = json.loads(results_json(result), parse_constant=_no_constant)
     except DesignError as exc:
