@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import argparse
 import csv
+import errno
 import io
 import os
 import sys
@@ -693,13 +694,34 @@ def _stdout_can(text: str) -> bool:
     return True
 
 
+def _quiet_stdout() -> None:
+    """Point standard output at the null device, so the interpreter's last flush cannot fail."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+    except (OSError, AttributeError, ValueError):
+        pass
+
+
 def main(argv: list[str] | None = None) -> int:
-    """Run the command line; returns the exit status (0 success, 2 bad input)."""
+    """Run the command line; returns the exit status (0 success, 2 bad input).
+
+    A closed standard output (``loopkit ... >&-``) is one line on stderr and
+    status 2; a reader that stops early (``loopkit ... | head -1``) ends the
+    command quietly with status 0: what it read was complete.
+    """
     global _ASCII
+    if sys.stdout is None:  # started with standard output closed
+        if sys.stderr is not None:
+            print("loopkit: error: standard output is closed: there is nowhere to write", file=sys.stderr)
+        return EXIT_BAD_INPUT
     _ASCII = not _stdout_can("µΩ")
     args = build_parser().parse_args(argv)
     try:
-        return args.run(args)
+        status = args.run(args)
+        sys.stdout.flush()  # a write error shows here, not as a traceback at exit
+        return status
     except DesignFileError as exc:
         print(f"loopkit {args.command}: error: {exc}", file=sys.stderr)
     except DesignError as exc:  # found after loading (e.g. a corner the stage cannot reach): name the file
@@ -707,9 +729,13 @@ def main(argv: list[str] | None = None) -> int:
         where = "" if exc.field.startswith("--") or not file or file in str(exc) else f"{file}: "
         print(f"loopkit {args.command}: error: {where}{exc}", file=sys.stderr)
     except BrokenPipeError:  # e.g. piped into head: stop quietly
-        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        _quiet_stdout()
         return 0
     except OSError as exc:
+        if exc.filename is None and exc.errno in (errno.EBADF, errno.ENOSPC, errno.EIO):
+            _quiet_stdout()  # the standard output itself failed (closed, full disk)
+            print(f"loopkit {args.command}: error: cannot write the standard output: {exc.strerror}", file=sys.stderr)
+            return EXIT_BAD_INPUT
         where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
         print(f"loopkit {args.command}: error: {where}{exc.strerror or exc}", file=sys.stderr)
     except KeyboardInterrupt:

@@ -9,10 +9,12 @@ what is allowed.  Designs are frozen; use :func:`dataclasses.replace` (or
 
 from __future__ import annotations
 
+import numbers
 from dataclasses import dataclass, field, fields, replace
 
 import numpy as np
 
+from . import bounds
 from .errors import DesignError
 from .eseries import SERIES_NAMES
 from .networks import NETWORKS
@@ -42,20 +44,9 @@ TOPOLOGIES = ("buck", "boost", "inverting-buck-boost", "four-switch-buck-boost",
 METHODS = ("auto", "k-factor", "placement")
 
 
-
-def _positive(name: str, value: float, unit: str = "") -> None:
-    if not (value > 0):
-        raise DesignError(name, format_value(value, unit), "must be > 0")
-
-
-def _non_negative(name: str, value: float, unit: str = "") -> None:
-    if not (value >= 0):
-        raise DesignError(name, format_value(value, unit), "must be >= 0")
-
-
-def _between(name: str, value: float, lo: float, hi: float, what: str) -> None:
-    if not (lo < value < hi):
-        raise DesignError(name, format_value(value), f"must be between {what}")
+#: Smallest ideal duty (and 1 minus the largest) a turns ratio may ask for: below it the
+#: switch would conduct for a few nanoseconds at the highest fsw (common practice, no source).
+_MIN_DUTY = 1e-3
 
 
 @dataclass(frozen=True)
@@ -67,10 +58,11 @@ class CapacitorBank:
     count: int = 1
 
     def check(self, where: str) -> None:
-        _positive(f"{where}.capacitance", self.capacitance, "F")
-        _non_negative(f"{where}.esr", self.esr, "Ω")
-        if not isinstance(self.count, (int, np.integer)) or self.count < 1:
+        bounds.check(f"{where}.capacitance", self.capacitance)
+        bounds.check(f"{where}.esr", self.esr)
+        if not isinstance(self.count, (int, np.integer)) or isinstance(self.count, bool) or self.count < 1:
             raise DesignError(f"{where}.count", self.count, "must be a whole number >= 1")
+        bounds.check(f"{where}.count", int(self.count))
 
     @property
     def c_total(self) -> float:
@@ -137,20 +129,16 @@ class Stage:
     def __post_init__(self):
         if self.topology not in TOPOLOGIES:
             raise DesignError("stage.topology", self.topology, f"must be one of {', '.join(TOPOLOGIES)}")
-        _positive("stage.fsw", self.fsw, "Hz")
-        _positive("stage.inductance", self.inductance, "H")
-        for name in ("dcr", "r_switch", "r_rectifier"):
-            _non_negative(f"stage.{name}", getattr(self, name), "Ω")
-        _non_negative("stage.diode_drop", self.diode_drop, "V")
+        for name in ("fsw", "inductance", "dcr", "r_switch", "r_rectifier", "diode_drop"):
+            bounds.check(f"stage.{name}", getattr(self, name))
         if self.rectifier not in ("synchronous", "diode"):
             raise DesignError("stage.rectifier", self.rectifier, "must be synchronous or diode")
         if self.light_load not in ("", "dcm", "forced-ccm"):
             raise DesignError("stage.light_load", self.light_load, "must be dcm or forced-ccm (or left out)")
         if self.rectifier == "diode" and self.light_load == "forced-ccm":
             raise DesignError("stage.light_load", self.light_load, "a diode cannot conduct backwards: use dcm")
-        _positive("stage.turns_ratio", self.turns_ratio)
-        _between("stage.buck_max_duty", self.buck_max_duty, 0.0, 1.0, "0 and 1")
-        _between("stage.boost_min_duty", self.boost_min_duty, 0.0, 1.0, "0 and 1")
+        for name in ("turns_ratio", "buck_max_duty", "boost_min_duty"):
+            bounds.check(f"stage.{name}", getattr(self, name))
         if not self.output_caps:
             raise DesignError("stage.output_caps", "[]", "needs at least one capacitor bank")
         object.__setattr__(self, "output_caps", tuple(self.output_caps))
@@ -192,20 +180,33 @@ class Operating:
     vin_nominal: float | None = None
 
     def __post_init__(self):
-        if self.vout == 0 or not np.isfinite(self.vout):
+        if not isinstance(self.vout, numbers.Real) or self.vout == 0 or not np.isfinite(self.vout):
             raise DesignError("operating.vout", self.vout, "must be a nonzero voltage")
-        object.__setattr__(self, "vin", tuple(float(v) for v in self.vin))
-        object.__setattr__(self, "load", tuple(float(v) for v in self.load))
+        bounds.check("operating.vout", self.vout, magnitude=True)
+        for name in ("vin", "load"):
+            values = getattr(self, name)
+            for i, v in enumerate(values):
+                if not isinstance(v, numbers.Real) or isinstance(v, bool):
+                    raise DesignError(f"operating.{name}[{i}]", v, "must be a number")
+            object.__setattr__(self, name, tuple(float(v) for v in values))
         if not self.vin:
             raise DesignError("operating.vin", "[]", "needs at least one input voltage")
         if not self.load:
             raise DesignError("operating.load", "[]", "needs at least one load current")
+        n = len(self.vin) * len(self.load)
+        if n > bounds.MAX_CORNERS:
+            raise DesignError(
+                "operating",
+                f"{len(self.vin)} input voltages x {len(self.load)} loads = {n} corners",
+                f"at most {bounds.MAX_CORNERS} corners; sweep more in chunks (one design per block of input"
+                " voltages, as the app's dense sweep does)",
+            )
         for i, v in enumerate(self.vin):
-            _positive(f"operating.vin[{i}]", v, "V")
+            bounds.check(f"operating.vin[{i}]", v)
         for i, v in enumerate(self.load):
-            _positive(f"operating.load[{i}]", v, "A")
+            bounds.check(f"operating.load[{i}]", v)
         if self.vin_nominal is not None:
-            _positive("operating.vin_nominal", self.vin_nominal, "V")
+            bounds.check("operating.vin_nominal", self.vin_nominal)
 
     @property
     def n_corners(self) -> int:
@@ -238,10 +239,8 @@ class Sensing:
     def __post_init__(self):
         if self.kind not in ("divider", "differential"):
             raise DesignError("sensing.kind", self.kind, "must be divider or differential")
-        _positive("sensing.reference", self.reference, "V")
-        _non_negative("sensing.r_top", self.r_top, "Ω")
-        _positive("sensing.divider_current", self.divider_current, "A")
-        _non_negative("sensing.diff_bandwidth", self.diff_bandwidth, "Hz")
+        for name in ("reference", "r_top", "divider_current", "diff_bandwidth"):
+            bounds.check(f"sensing.{name}", getattr(self, name))
 
 
 @dataclass(frozen=True)
@@ -257,8 +256,8 @@ class Modulator:
     feedforward: bool = False
 
     def __post_init__(self):
-        _positive("modulator.ramp", self.ramp, "V")
-        _between("modulator.max_duty", self.max_duty, 0.0, 1.0, "0 and 1")
+        bounds.check("modulator.ramp", self.ramp)
+        bounds.check("modulator.max_duty", self.max_duty)
 
 
 #: The error amplifier a design gets when it names none: a typical general-purpose op-amp of
@@ -283,10 +282,8 @@ class OpAmp:
     r_out: float = 0.0
 
     def __post_init__(self):
-        _non_negative("compensator.opamp.gain_db", self.gain_db)
-        _non_negative("compensator.opamp.gbw", self.gbw, "Hz")
-        _non_negative("compensator.opamp.gm", self.gm, "S")
-        _non_negative("compensator.opamp.r_out", self.r_out, "Ω")
+        for name in ("gain_db", "gbw", "gm", "r_out"):
+            bounds.check(f"compensator.opamp.{name}", getattr(self, name))
 
     @classmethod
     def typical(cls) -> OpAmp:
@@ -331,7 +328,8 @@ class Compensator:
         network).  Empty until designed; given parts are analysed as they are.
     placement : dict
         For ``method = "placement"``: frequencies in Hz, keys ``fz1``, ``fz2``,
-        ``fp1``, ``fp2`` (Type III) or ``fz``, ``fp`` (Type II) and ``gain``.
+        ``fp1``, ``fp2`` (Type III) or ``fz``, ``fp`` (Type II); the gain is always
+        the one that puts the crossover at ``fc``.
     """
 
     network: str = "type2"
@@ -352,21 +350,27 @@ class Compensator:
     def __post_init__(self):
         if self.network not in NETWORKS:
             raise DesignError("compensator.network", self.network, f"must be one of {', '.join(NETWORKS)}")
-        _non_negative("compensator.fc", self.fc, "Hz")
-        _between("compensator.pm", self.pm, 0.0, 180.0, "0 and 180 deg")
+        bounds.check("compensator.fc", self.fc)
+        bounds.check("compensator.pm", self.pm)
         if self.method not in METHODS:
             raise DesignError("compensator.method", self.method, f"must be one of {', '.join(METHODS)}")
-        _between("compensator.gm_db", self.gm_db, 0.0, 60.0, "0 and 60 dB")
-        if not (1.0 < self.fc_band <= 100.0):
-            raise DesignError("compensator.fc_band", self.fc_band, "must be above 1 and at most 100 (a factor)")
-        _between("compensator.boost_split", self.boost_split, 0.0, 1.0, "0 and 1")
+        bounds.check("compensator.gm_db", self.gm_db)
+        bounds.check("compensator.fc_band", self.fc_band)
+        bounds.check("compensator.boost_split", self.boost_split)
         for name in ("resistor_series", "capacitor_series"):
             value = getattr(self, name)
             if value not in SERIES_NAMES:
                 raise DesignError(f"compensator.{name}", value, f"must be one of {', '.join(SERIES_NAMES)}")
         for key, value in self.parts.items():
-            if not (isinstance(value, float) and value > 0):
+            if bounds.bound_for(f"compensator.parts.{key}") is not None:
+                bounds.check(f"compensator.parts.{key}", value)
+            elif not (isinstance(value, float) and value > 0):
                 raise DesignError(f"compensator.parts.{key}", value, "must be > 0")
+        for key, value in self.placement.items():
+            bounds.check(f"compensator.placement.{key}", value)
+        for key, value in self.opto.items():
+            if bounds.bound_for(f"compensator.opto.{key}") is not None:
+                bounds.check(f"compensator.opto.{key}", value)
         if self.design_corner is not None and self.design_corner < 0:
             raise DesignError("compensator.design_corner", self.design_corner, "must be a corner index >= 0 or 'worst'")
 
@@ -409,8 +413,8 @@ class Control:
     def __post_init__(self):
         if self.scheme not in SCHEMES:
             raise DesignError("control.scheme", self.scheme, f"must be one of {', '.join(SCHEMES)}")
-        _non_negative("control.sense_gain", self.sense_gain, "Ω")
-        _non_negative("control.current_limit", self.current_limit, "A")
+        bounds.check("control.sense_gain", self.sense_gain)
+        bounds.check("control.current_limit", self.current_limit)
         if self.scheme == "peak-current" and not self.sense_gain > 0:
             raise DesignError("control.sense_gain", format_value(self.sense_gain, "Ω"),
                               "peak current mode needs the current-sense gain (> 0 ohm)")
@@ -418,12 +422,9 @@ class Control:
         if len(given) > 1:
             raise DesignError(f"control.{given[1]}", getattr(self, given[1]),
                               f"give one of slope, slope_amplitude, slope_ratio (also given: {given[0]})")
-        if self.slope is not None:
-            _non_negative("control.slope", self.slope, "V/s")
-        if self.slope_amplitude is not None:
-            _non_negative("control.slope_amplitude", self.slope_amplitude, "V")
-        if self.slope_ratio is not None:
-            _between("control.slope_ratio", self.slope_ratio, -1e-12, 100.0, "0 and 100")
+        for name in ("slope", "slope_amplitude", "slope_ratio"):
+            if getattr(self, name) is not None:
+                bounds.check(f"control.{name}", getattr(self, name))
 
 
 @dataclass(frozen=True)
@@ -451,6 +452,37 @@ class Design:
             )
         if vout < 0 and self.sensing.kind != "differential":
             raise DesignError("sensing.kind", self.sensing.kind, "a negative output needs differential sensing")
+        self._check_where_fields_meet()
+
+    def _check_where_fields_meet(self) -> None:
+        """Consistency where fields meet: divider current and R1, turns ratio and duty.
+
+        (The crossover target against fsw is checked where the targets are used,
+        :meth:`loopkit.loop.LoopSession.run`: there it is a reason the targets
+        cannot be met, also when the app's slider asks for it.)
+        """
+        s, vout = self.sensing, abs(self.operating.vout)
+        if s.kind == "divider" and s.r_top == 0 and vout > s.reference:
+            r1 = (vout - s.reference) / s.divider_current
+            bound = bounds.bound_for("compensator.parts.R1")
+            if not bound.contains(r1):
+                raise DesignError(
+                    "sensing.divider_current",
+                    format_value(s.divider_current, "A"),
+                    f"gives a divider top resistor R1 = {format_value(r1, 'Ω')}, outside {bound.allowed()}:"
+                    " change divider_current or give r_top",
+                )
+        if self.stage.topology == "flyback":
+            n = self.stage.turns_ratio
+            for v in (min(self.operating.vin), max(self.operating.vin)):
+                duty = n * vout / (v + n * vout)  # ideal flyback, M = D / (n (1 - D)) (Erickson & Maksimovic, 2001)
+                if not _MIN_DUTY <= duty <= 1 - _MIN_DUTY:
+                    raise DesignError(
+                        "stage.turns_ratio",
+                        f"{n:g}",
+                        f"gives a duty of {duty:.3g} at {format_value(v, 'V')} in (ideal: n vout / (vin + n vout));"
+                        f" choose Np/Ns so that it lies between {_MIN_DUTY:g} and {1 - _MIN_DUTY:g}",
+                    )
 
     def design_corner_out_of_range(self) -> bool:
         c = self.compensator.design_corner

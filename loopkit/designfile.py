@@ -50,15 +50,19 @@ turns ratio of a buck) are left out so the file reads cleanly.
 from __future__ import annotations
 
 import math
+import os
 import re
+import stat
 import tomllib
 from dataclasses import MISSING, fields, replace
 from pathlib import Path
 
 import numpy as np
 
+from . import bounds
+from .bounds import MAX_CORNERS, MAX_FILE_BYTES
 from .design import CapacitorBank, Compensator, Control, Design, Modulator, OpAmp, Operating, Sensing, Stage
-from .errors import DesignError, DesignFileError
+from .errors import DesignError, DesignFileError, shorten
 from .eseries import is_capacitor, is_resistor
 from .networks import network_module
 from .networks.opto_type2 import OPTO_KEYS
@@ -111,7 +115,7 @@ _PLAIN_NUMBERS = {
     "gain",
     "slope_ratio",
 }
-#: Keys of [compensator.placement] (Hz, except the dimensionless ``gain``).
+#: Keys of [compensator.placement], all in Hz (the gain is always the one that puts the crossover at fc).
 PLACEMENT_KEYS = ("fz", "fp", "fz1", "fz2", "fp1", "fp2")
 
 
@@ -170,13 +174,21 @@ def _list_or_range(table: dict, key: str, where: str, log: bool) -> tuple[float,
         values = table[key]
         if not isinstance(values, list):
             values = [values]
+        if len(values) > MAX_CORNERS:
+            raise DesignError(
+                f"{where}.{key}", f"({len(values)} values)", f"at most {MAX_CORNERS} (and {MAX_CORNERS} corners in all)"
+            )
         return tuple(parse_value(v, f"{where}.{key}[{i}]", _UNITS[key]) for i, v in enumerate(values))
     if lo_key not in table or hi_key not in table:
         raise DesignError(f"{where}.{key}", "(missing)", f"give a list {key} = [...] or {lo_key} and {hi_key}")
     lo = parse_value(table[lo_key], f"{where}.{lo_key}", _UNITS[key])
     hi = parse_value(table[hi_key], f"{where}.{hi_key}", _UNITS[key])
+    for name, value in ((lo_key, lo), (hi_key, hi)):
+        bounds.check(f"{where}.{name}", value)
     if not hi >= lo:
-        raise DesignError(f"{where}.{hi_key}", table[hi_key], f"must be >= {where}.{lo_key} ({table[lo_key]})")
+        raise DesignError(
+            f"{where}.{hi_key}", table[hi_key], f"must be >= {where}.{lo_key} ({shorten(table[lo_key])})"
+        )
     n = table.get(n_key, 3 if key == "vin" else 2)
     if hi == lo:
         if n_key in table and n != 1:
@@ -298,9 +310,7 @@ def _compensator(table: dict) -> Compensator:
     sub["parts"] = {k: parse_value(v, f"{where}.parts.{k}", _part_unit(k)) for k, v in parts.items()}
     placement = _table(table.get("placement", {}), f"{where}.placement")
     _check_keys(placement, set(PLACEMENT_KEYS), f"{where}.placement")
-    sub["placement"] = {
-        k: parse_value(v, f"{where}.placement.{k}", None if k == "gain" else "Hz") for k, v in placement.items()
-    }
+    sub["placement"] = {k: parse_value(v, f"{where}.placement.{k}", "Hz") for k, v in placement.items()}
     opto = _table(table.get("opto", {}), f"{where}.opto")
     _check_keys(opto, set(OPTO_KEYS), f"{where}.opto")
     sub["opto"] = {k: parse_value(v, f"{where}.opto.{k}", OPTO_KEYS[k] or None) for k, v in opto.items()}
@@ -346,10 +356,14 @@ def loads_design(text: str, file: str = "<text>") -> Design:
     DesignFileError
         Naming ``file``, the key, the value as written there and what is allowed.
     """
+    if len(text) > MAX_FILE_BYTES:
+        raise DesignFileError(file, "", "(file)", f"is larger than {MAX_FILE_BYTES / 2**20:g} MiB: not a design file")
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise DesignFileError(file, "", "(TOML)", f"not valid TOML: {exc}") from None
+    except RecursionError:
+        raise DesignFileError(file, "", "(TOML)", "tables or arrays nested too deeply to read") from None
     try:
         return design_from_dict(data)
     except DesignFileError:
@@ -357,16 +371,43 @@ def loads_design(text: str, file: str = "<text>") -> Design:
     except DesignError as exc:
         raw = _raw(data, exc.field) if exc.field else None
         value = raw if isinstance(raw, str) else exc.value  # show what the user typed
+        if raw is None and exc.field and _raw(data, exc.field.rpartition(".")[0]) is not None and not str(
+            exc.value
+        ).startswith("("):
+            value = f"{shorten(exc.value)} (the default)"  # a key left out: its default does not fit
         raise DesignFileError(file, exc.field, value, exc.allowed) from None
 
 
 def load_design(path) -> Design:
-    """Read and validate a design file (UTF-8 TOML); errors name the file."""
+    """Read and validate a design file (UTF-8 TOML); errors name the file.
+
+    Only a regular file of at most :data:`~loopkit.bounds.MAX_FILE_BYTES` is
+    read: a FIFO, a device or a folder is refused at once (reading one could
+    wait for ever or never end).
+    """
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        info = os.stat(path)
+        if stat.S_ISDIR(info.st_mode):
+            raise DesignFileError(str(path), "", "(file)", "cannot be read: it is a folder, not a design file")
+        if not stat.S_ISREG(info.st_mode):
+            raise DesignFileError(str(path), "", "(file)", "is not a regular file (a pipe or a device?): give a file")
+        if info.st_size > MAX_FILE_BYTES:
+            raise DesignFileError(
+                str(path), "", "(file)", f"is larger than {MAX_FILE_BYTES / 2**20:g} MiB: not a design file"
+            )
+        # O_NONBLOCK: should the path become a FIFO after the check, opening it does not wait for a writer
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        with os.fdopen(fd, "rb") as fh:
+            if not stat.S_ISREG(os.fstat(fh.fileno()).st_mode):
+                raise DesignFileError(str(path), "", "(file)", "is not a regular file: give a file")
+            raw = fh.read(MAX_FILE_BYTES + 1)
     except OSError as exc:
-        raise DesignFileError(str(path), "", "(file)", f"cannot be read: {exc.strerror}") from None
+        raise DesignFileError(str(path), "", "(file)", f"cannot be read: {exc.strerror or exc}") from None
+    if len(raw) > MAX_FILE_BYTES:
+        raise DesignFileError(str(path), "", "(file)", f"is larger than {MAX_FILE_BYTES / 2**20:g} MiB: not a design file")
+    try:
+        text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise DesignFileError(str(path), "", "(file)", f"is not UTF-8 text (byte {exc.start})") from None
     return loads_design(text, str(path))

@@ -10,7 +10,32 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-__all__ = ["DesignError", "DesignFileError", "Finding", "InfeasibleDesign", "LoopkitWarning"]
+__all__ = ["DesignError", "DesignFileError", "Finding", "InfeasibleDesign", "LoopkitWarning", "shorten"]
+
+#: Characters of a value echoed in a message; longer ones are cut and end in "...".
+SHOWN_CHARS = 60
+
+_CONTROL = {ord(c): f"\\x{ord(c):02x}" for c in map(chr, range(32))} | {
+    ord("\n"): "\\n", ord("\r"): "\\r", ord("\t"): "\\t", 0x7F: "\\x7f", 0x2028: " ", 0x2029: " "
+}
+
+
+def shorten(value: object, limit: int = SHOWN_CHARS) -> str:
+    """``value`` as text for a one-line message: control characters escaped, cut to ``limit`` + "...".
+
+    A value of a megabyte, or one holding newlines, would otherwise flood or
+    break the one line the CLI prints (common practice, no source).
+    """
+    text = value if isinstance(value, str) else repr(value)
+    if len(text) > 4 * limit:
+        text = text[: 4 * limit]  # escape only what is shown
+        cut = True
+    else:
+        cut = False
+    text = text.translate(_CONTROL)
+    if cut or len(text) > limit:
+        return text[:limit] + "..."
+    return text
 
 
 class DesignError(ValueError):
@@ -27,11 +52,12 @@ class DesignError(ValueError):
     """
 
     def __init__(self, field: str, value: object, allowed: str):
-        self.field = field
+        self.field = shorten(field, 2 * SHOWN_CHARS)
         self.value = value
-        self.allowed = allowed
-        shown = value if isinstance(value, str) else repr(value)
-        super().__init__(f"{field} = {shown}: {allowed}" if field else f"{shown}: {allowed}")
+        self.allowed = shorten(allowed, 10 * SHOWN_CHARS)
+        shown = shorten(value)
+        field = self.field
+        super().__init__(f"{field} = {shown}: {self.allowed}" if field else f"{shown}: {self.allowed}")
 
 
 class DesignFileError(DesignError):
@@ -40,7 +66,7 @@ class DesignFileError(DesignError):
     def __init__(self, file: str, field: str, value: object, allowed: str):
         self.file = file
         super().__init__(field, value, allowed)
-        self.args = (f"{file}: {self.args[0]}",)
+        self.args = (f"{shorten(file, 4 * SHOWN_CHARS)}: {self.args[0]}",)
 
     def __str__(self) -> str:
         return self.args[0]

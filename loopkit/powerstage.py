@@ -11,6 +11,7 @@ zero, DCM poles).
 
 from __future__ import annotations
 
+import contextlib
 from dataclasses import dataclass
 
 import numpy as np
@@ -150,6 +151,40 @@ def _range_check(design: Design, vin: np.ndarray) -> None:
         )
 
 
+def _check_dcm_point(design: Design, dp, vin: np.ndarray, load: np.ndarray) -> None:
+    """Refuse a DCM operating point that does not exist (losses above the input, no duty in 0 .. 1)."""
+    duty, d2, ipk = (np.asarray(x, float) for x in (dp.duty, dp.d2, dp.i_peak))
+    bad = ~(np.isfinite(duty) & np.isfinite(d2) & np.isfinite(ipk) & (duty > 0) & (duty < 1) & (d2 > 0))
+    if np.any(bad):
+        k = int(np.nonzero(bad)[0][0])
+        stage = design.stage
+        raise DesignError(
+            "stage.inductance",
+            format_value(stage.inductance, "H"),
+            f"at {corner_label(vin[k], load[k])} the {stage.topology} in DCM has no operating point: the current"
+            " pulse through this inductance drops more across the resistances than the input gives; raise the"
+            " inductance (or fsw), or lower the resistances",
+        )
+
+
+@contextlib.contextmanager
+def _numerics(design: Design, vin: np.ndarray, load: np.ndarray, mode: str):
+    """Turn a numerical failure of a small-signal model into a DesignError naming the corners."""
+    try:
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            yield
+    except DesignError:
+        raise
+    except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
+        corners = ", ".join(corner_label(v, i) for v, i in zip(np.atleast_1d(vin)[:3], np.atleast_1d(load)[:3]))
+        raise DesignError(
+            "stage",
+            f"{design.stage.topology} in {mode} at {corners}",
+            f"its small-signal model cannot be computed ({type(exc).__name__}): the values are too far apart for"
+            " double precision; check the inductance, capacitances and loads for a slipped prefix",
+        ) from None
+
+
 def _double_pole(poles_hz: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """f0 and Q from the two lowest poles of each row (complex pair or two real)."""
     p = np.where(np.isfinite(poles_hz), poles_hz, np.nan)
@@ -230,7 +265,8 @@ def analyse_stage(design: Design) -> StageResult:
         ccm_idx, dcm_idx = np.nonzero(~in_dcm)[0], np.nonzero(in_dcm)[0]
         if ccm_idx.size:
             sel = _select(cp, ccm_idx)
-            gvd, gvg, zo = ccm_transfer_functions(st, sel, r_load[idx][ccm_idx])
+            with _numerics(design, vin[idx][ccm_idx], load[idx][ccm_idx], "CCM"):
+                gvd, gvg, zo = ccm_transfer_functions(st, sel, r_load[idx][ccm_idx])
             k = idx[ccm_idx]
             out["duty"][k] = sel.duty
             out["i_l"][k] = sel.i_l
@@ -248,8 +284,11 @@ def analyse_stage(design: Design) -> StageResult:
             sens[k] = module.slope_sensitivity(st)
         if dcm_idx.size:
             k = idx[dcm_idx]
-            dp = module.dcm(st, vin[k], load[k], vout)
-            gvd, gvg, zo = dcm_transfer_functions(st, dp, r_load[k])
+            with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+                dp = module.dcm(st, vin[k], load[k], vout)
+            _check_dcm_point(design, dp, vin[k], load[k])
+            with _numerics(design, vin[k], load[k], "DCM"):
+                gvd, gvg, zo = dcm_transfer_functions(st, dp, r_load[k])
             out["duty"][k] = dp.duty
             out["i_l"][k] = dp.i_peak * (dp.duty + dp.d2) / 2.0
             out["ripple_pp"][k] = dp.i_peak

@@ -10,7 +10,7 @@ import math
 import numbers
 import re
 
-from .errors import DesignError
+from .errors import DesignError, shorten
 
 __all__ = ["PREFIXES", "format_value", "parse_value"]
 
@@ -44,10 +44,12 @@ def _check_unit(text: str, unit_text: str, field: str, unit: str | None, prefix:
     meaning = _UNIT_WORDS.get(unit_text.lower())
     if meaning is None:
         raise DesignError(
-            field, text, f"unknown unit '{prefix}{unit_text}' (use a number with an SI prefix, e.g. 22u, 4.7k, 400kHz)"
+            field,
+            text,
+            f"unknown unit '{shorten(prefix + unit_text, 20)}' (use a number with an SI prefix, e.g. 22u, 4.7k, 400kHz)",
         )
     if unit is not None and meaning != _meaning(unit):
-        raise DesignError(field, text, f"expected a value in {unit}, not '{unit_text}'")
+        raise DesignError(field, text, f"expected a value in {unit}, not '{shorten(unit_text, 20)}'")
 
 
 def _scaled(number: str, scale: float) -> float:

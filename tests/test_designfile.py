@@ -129,25 +129,36 @@ SAMPLE_DESIGNS = [load_design(p) for p in SAMPLES]
 positive = st.floats(min_value=1e-12, max_value=1e9, allow_nan=False, allow_infinity=False)
 
 
+def within(field: str):
+    """Floats over the whole range loopkit.bounds allows for ``field``."""
+    from loopkit.bounds import bound_for
+
+    b = bound_for(field)
+    return st.floats(min_value=b.lo, max_value=b.hi, exclude_min=b.open_ends, exclude_max=b.open_ends)
+
+
 @settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(
     base=st.sampled_from(SAMPLE_DESIGNS),
-    inductance=positive,
-    fsw=positive,
-    dcr=st.floats(min_value=0.0, max_value=10.0),
-    esr=st.floats(min_value=0.0, max_value=10.0),
-    capacitance=positive,
-    vout=st.floats(min_value=1e-3, max_value=1e3),
-    vin=st.lists(st.floats(min_value=1e-3, max_value=1e3), min_size=1, max_size=5),
-    load=st.lists(st.floats(min_value=1e-6, max_value=1e3), min_size=1, max_size=4),
-    pm=st.floats(min_value=0.01, max_value=179.99),
-    ramp=positive,
-    parts=st.dictionaries(st.sampled_from(["R1", "R2", "R3", "C1", "C2", "C3", "Rb"]), positive, max_size=7),
+    inductance=within("stage.inductance"),
+    fsw=within("stage.fsw"),
+    dcr=within("stage.dcr"),
+    esr=within("stage.output_caps.esr"),
+    capacitance=within("stage.output_caps.capacitance"),
+    vout=st.floats(min_value=0.1, max_value=100.0),  # with vin, keeps the flyback's duty within 0.001 .. 0.999
+    vin=st.lists(st.floats(min_value=0.5, max_value=100.0), min_size=1, max_size=5),
+    load=st.lists(within("operating.load"), min_size=1, max_size=4),
+    pm=within("compensator.pm"),
+    ramp=within("modulator.ramp"),
+    r_parts=st.dictionaries(st.sampled_from(["R1", "R2", "R3", "Rb"]), within("compensator.parts.R*"), max_size=4),
+    c_parts=st.dictionaries(st.sampled_from(["C1", "C2", "C3"]), within("compensator.parts.C*"), max_size=3),
     title=st.text(max_size=40),
 )
 def test_round_trip_after_changing_values(
-    base, inductance, fsw, dcr, esr, capacitance, vout, vin, load, pm, ramp, parts, title
+    base, inductance, fsw, dcr, esr, capacitance, vout, vin, load, pm, ramp, r_parts, c_parts, title
 ):
+    parts = {**r_parts, **c_parts}
+    fc = base.compensator.fc if base.compensator.fc < fsw / 2 else 0.0
     sign = -1.0 if base.stage.topology == "inverting-buck-boost" else 1.0
     d = dataclasses.replace(
         base,
@@ -163,7 +174,7 @@ def test_round_trip_after_changing_values(
             base.operating, vout=sign * vout, vin=tuple(vin), load=tuple(load), vin_nominal=None
         ),
         modulator=dataclasses.replace(base.modulator, ramp=ramp),
-        compensator=dataclasses.replace(base.compensator, pm=pm, parts=parts),
+        compensator=dataclasses.replace(base.compensator, pm=pm, parts=parts, fc=fc),
     )
     text = dumps_design(d)
     assert loads_design(text) == d
@@ -732,7 +743,7 @@ def test_wrong_output_sign_for_the_topology():
 
 def test_value_given_as_a_toml_number_is_shown_with_its_unit():
     err = error_of(edit(BUCK, 'inductance = "4.7u"', "inductance = -22e-6"))
-    assert str(err) == "buck.toml: stage.inductance = -22µH: must be > 0"
+    assert str(err) == "buck.toml: stage.inductance = -22µH: must be > 0 (from 1nH to 1H)"
 
 
 @pytest.mark.parametrize(

@@ -1,0 +1,237 @@
+"""Physical bounds of every numeric design field: one table, used at the door and shown in the README.
+
+Each field has a range wide enough for every real converter, from an integrated
+100 MHz buck to a kilowatt flyback, with a margin of a decade or more on both
+sides; a value outside it is almost always a slip of a prefix (``1.5n`` for
+``1.5u``) and, left in, would reach numbers the arithmetic cannot hold.  The
+ranges are common practice, no source: each is argued in its ``why`` (what real
+parts sit at the ends) and the README's "Limits" table is rendered from
+:data:`BOUNDS` (a test checks the two agree).
+
+:func:`check` refuses a value outside its range with a
+:class:`~loopkit.errors.DesignError` naming the field, the value and the range.
+Size limits (corners, file size) live here too.
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+from dataclasses import dataclass
+
+from .errors import DesignError
+from .units import format_value
+
+__all__ = [
+    "BOUNDS",
+    "MAX_CORNERS",
+    "MAX_FILE_BYTES",
+    "Bound",
+    "bound_for",
+    "bounds_markdown",
+    "check",
+]
+
+#: Most operating corners (input voltages x loads) one design may hold.  Each corner
+#: carries responses on a 1000-point grid and the roots of 1 + T; 1000 corners take a
+#: few hundred MB at most.  More: sweep in chunks (the app's dense sweep does).
+MAX_CORNERS = 1000
+
+#: Largest design file read, bytes (a real one is a few kB).
+MAX_FILE_BYTES = 1 << 20
+
+
+@dataclass(frozen=True)
+class Bound:
+    """The range of one numeric field.
+
+    Attributes
+    ----------
+    lo, hi : float
+        Smallest and largest value allowed (in SI units; for ``operating.vout``
+        the magnitude).
+    unit : str
+        Unit shown with the values.
+    why : str
+        Why these ends: the real parts near them (common practice, no source).
+    zero : str
+        If not empty, 0 is allowed too and means this (e.g. ``"ideal"``).
+    open_ends : bool
+        The ends themselves are excluded (duty-like fractions between 0 and 1).
+    """
+
+    lo: float
+    hi: float
+    unit: str
+    why: str
+    zero: str = ""
+    open_ends: bool = False
+
+    def contains(self, value: float) -> bool:
+        if not isinstance(value, numbers.Real) or isinstance(value, bool) or not math.isfinite(value):
+            return False
+        if self.zero and value == 0:
+            return True
+        if self.open_ends:
+            return self.lo < value < self.hi
+        return self.lo <= value <= self.hi
+
+    def show(self, value: float) -> str:
+        """``value`` with the unit: engineering notation, plain ``%g`` for counts, dB and degrees."""
+        if self.unit in ("", "dB", "deg"):
+            return f"{value:g}{' ' + self.unit if self.unit else ''}"
+        return format_value(value, self.unit)
+
+    def allowed(self) -> str:
+        """The range in words, e.g. ``"from 1nH to 1H"`` or ``"0 (ideal) or from 1kHz to 10GHz"``."""
+        lo, hi = self.show(self.lo), self.show(self.hi)
+        if self.open_ends:
+            return f"between {self.lo:g} and {hi}"
+        if self.zero and self.lo == 0:
+            return f"from 0 ({self.zero}) to {hi}"
+        text = f"from {lo} to {hi}"
+        return f"0 ({self.zero}) or {text}" if self.zero else text
+
+    def refusal(self, value: float) -> str:
+        """What to say of a value outside: the sign first where it is wrong, then the range."""
+        if self.open_ends:
+            return f"must be {self.allowed()}"
+        if isinstance(value, numbers.Real) and value < 0 and self.lo >= 0:
+            return f"must be >= 0 ({self.allowed()})" if self.zero else f"must be > 0 ({self.allowed()})"
+        if isinstance(value, numbers.Real) and value == 0 and not self.zero:
+            return f"must be > 0 ({self.allowed()})"
+        return f"must be {self.allowed()}"
+
+
+_R_PART = Bound(
+    1.0, 100e6, "Ω",
+    "compensator resistors: below 1 Ω the op-amp cannot drive the network, above 100 MΩ board leakage is comparable",
+)
+_C_PART = Bound(
+    0.1e-12, 1.0, "F",
+    "compensator capacitors: 0.1 pF is below any placed capacitor's stray; 1 F is beyond any compensation part",
+)
+_F_PLACE = Bound(
+    0.01, 1e9, "Hz",
+    "placed poles and zeros: from far below any crossover to far above any switching frequency",
+)
+_RES = "the worst winding or switch resistance of a power stage is a few ohms"
+
+#: Field (dotted, as in the design file; ``[i]`` left out; ``R*``: every R designator) -> its bound.
+BOUNDS: dict[str, Bound] = {
+    # --- [stage]
+    "stage.fsw": Bound(1e3, 100e6, "Hz", "from mains-adjacent kilohertz drives to 100 MHz integrated converters"),
+    "stage.inductance": Bound(1e-9, 1.0, "H", "from nanohenry package inductors at tens of MHz to 1 H chokes"),
+    "stage.dcr": Bound(0.0, 100.0, "Ω", _RES, zero="ideal"),
+    "stage.r_switch": Bound(0.0, 100.0, "Ω", _RES, zero="ideal"),
+    "stage.r_rectifier": Bound(0.0, 100.0, "Ω", _RES, zero="ideal"),
+    "stage.diode_drop": Bound(0.0, 10.0, "V", "one diode drops under 3 V; 10 V allows a series stack", zero="ideal"),
+    "stage.turns_ratio": Bound(
+        0.01, 100.0, "", "Np/Ns from 1:100 (step-up to kilovolts) to 100:1 (mains to a few volts)"
+    ),
+    "stage.buck_max_duty": Bound(0.0, 1.0, "", "a duty cycle", open_ends=True),
+    "stage.boost_min_duty": Bound(0.0, 1.0, "", "a duty cycle", open_ends=True),
+    "stage.output_caps.capacitance": Bound(
+        1e-12, 10.0, "F", "from picofarads at the output of a 100 MHz converter to supercapacitor banks"
+    ),
+    "stage.output_caps.esr": Bound(0.0, 100.0, "Ω", "a small electrolytic has a few ohms", zero="ideal"),
+    "stage.output_caps.count": Bound(1, 1000, "", "capacitors in parallel in one bank"),
+    # --- [operating]
+    "operating.vout": Bound(
+        10e-3, 10e3, "V", "magnitude: from sub-volt core rails to 10 kV supplies (negative for inverting)"
+    ),
+    "operating.vin": Bound(10e-3, 10e3, "V", "from energy-harvesting millivolts to 10 kV buses"),
+    "operating.vin_nominal": Bound(10e-3, 10e3, "V", "as vin"),
+    "operating.load": Bound(
+        10e-6, 10e3, "A", "from 10 µA standby (keeps the load resistance finite) to 10 kA"
+    ),
+    # --- [sensing]
+    "sensing.reference": Bound(10e-3, 100.0, "V", "error-amplifier references are 0.5 V to 5 V"),
+    "sensing.r_top": Bound(1.0, 100e6, "Ω", "as a compensator resistor", zero="chosen from divider_current"),
+    "sensing.divider_current": Bound(10e-9, 1.0, "A", "from nanoamp dividers of battery devices to 1 A"),
+    "sensing.diff_bandwidth": Bound(100.0, 10e9, "Hz", "a differential amplifier's bandwidth", zero="ideal"),
+    # --- [modulator]
+    "modulator.ramp": Bound(1e-3, 100.0, "V", "PWM ramps are 0.1 V to 5 V peak to peak"),
+    "modulator.max_duty": Bound(0.0, 1.0, "", "a duty cycle", open_ends=True),
+    # --- [compensator]
+    "compensator.fc": Bound(0.1, 50e6, "Hz", "below half the highest fsw", zero="not set"),
+    "compensator.pm": Bound(0.0, 180.0, "deg", "a phase margin", open_ends=True),
+    "compensator.boost_split": Bound(0.0, 1.0, "", "a share of the phase boost", open_ends=True),
+    "compensator.gm_db": Bound(0.0, 60.0, "dB", "gain-margin targets are 6 dB to 20 dB"),
+    "compensator.fc_band": Bound(1.0, 100.0, "", "a factor around fc; 1 itself would ask every corner to cross at fc",
+                                 open_ends=True),
+    "control.sense_gain": Bound(1e-4, 1e4, "Ω", "sense resistors times amplifier gains span 1 mΩ to a few kΩ",
+                                zero="voltage mode"),
+    "control.slope": Bound(0.0, 1e12, "V/s", "external ramps of 1 V per period at 100 MHz stay below this"),
+    "control.slope_amplitude": Bound(0.0, 100.0, "V", "a ramp's amplitude over one period"),
+    "control.slope_ratio": Bound(0.0, 100.0, "", "a multiple of the inductor's down-slope"),
+    "control.current_limit": Bound(1e-3, 1e4, "A", "from milliamp converters to kiloamp stages", zero="not checked"),
+    "compensator.opamp.gain_db": Bound(20.0, 200.0, "dB", "op-amps have 60 dB to 140 dB open-loop", zero="ideal"),
+    "compensator.opamp.gbw": Bound(1e3, 10e9, "Hz", "from micropower op-amps to the fastest", zero="ideal"),
+    "compensator.opamp.gm": Bound(
+        1e-6, 1.0, "S", "transconductance amplifiers of controllers have 10 µS to 10 mS", zero="not used"
+    ),
+    "compensator.opamp.r_out": Bound(1e3, 10e9, "Ω", "a gm amplifier's output resistance", zero="ideal"),
+    "compensator.opto.ctr": Bound(0.01, 100.0, "", "current-transfer ratio: 1 % to Darlington outputs"),
+    "compensator.opto.r_pull": _R_PART,
+    "compensator.opto.r_led": _R_PART,
+    "compensator.opto.c_opto": Bound(_C_PART.lo, _C_PART.hi, "F", _C_PART.why, zero="neglected"),
+    "compensator.parts.R*": _R_PART,
+    "compensator.parts.C*": _C_PART,
+    "compensator.placement.*": _F_PLACE,
+}
+
+
+def bound_for(field: str) -> Bound | None:
+    """The bound of a dotted field (``stage.output_caps[1].esr``, ``compensator.parts.R2``), or None."""
+    key = field
+    while "[" in key:
+        start = key.index("[")
+        key = key[:start] + key[key.index("]", start) + 1:]
+    if key in BOUNDS:
+        return BOUNDS[key]
+    head, _, name = key.rpartition(".")
+    if head == "compensator.parts" and name[:1] in ("R", "C"):
+        return BOUNDS[f"compensator.parts.{name[0]}*"]
+    if head == "compensator.placement":
+        return BOUNDS["compensator.placement.*"]
+    if head == "operating" and name.endswith(("_min", "_max")):
+        return BOUNDS.get(f"operating.{name[:-4]}")
+    return None
+
+
+def check(field: str, value: float, magnitude: bool = False) -> None:
+    """Refuse ``value`` of ``field`` when it lies outside the field's bound.
+
+    Parameters
+    ----------
+    field : str
+        Dotted field name (its bound found by :func:`bound_for`).
+    value : float
+        The value in SI units.
+    magnitude : bool
+        Check ``abs(value)`` (a signed output voltage).
+
+    Raises
+    ------
+    DesignError
+        Naming the field, the value and the range.
+    """
+    bound = bound_for(field)
+    if bound is None:
+        raise KeyError(f"no bound for {field}")
+    shown = value
+    if isinstance(value, numbers.Real) and not isinstance(value, bool):
+        shown = repr(value) if not math.isfinite(value) else f"{value:g}" if bound.unit in ('', 'dB', 'deg') else bound.show(value)
+        value = abs(value) if magnitude else value
+    if not bound.contains(value):
+        text = bound.refusal(value)
+        raise DesignError(field, shown, f"magnitude {text}" if magnitude else text)
+
+
+def bounds_markdown() -> str:
+    """The README's table of bounds (Markdown), rendered from :data:`BOUNDS`."""
+    lines = ["| field | allowed | why |", "|---|---|---|"]
+    for name, bound in BOUNDS.items():
+        lines.append(f"| `{name}` | {bound.allowed()} | {bound.why} |")
+    return "\n".join(lines) + "\n"
