@@ -873,10 +873,9 @@ SAMPLE_TEXTS = [(p.read_text(encoding="utf-8"), load_design(p)) for p in SAMPLES
     vin_scale=st.floats(min_value=1.0, max_value=1.5),
     pm=st.floats(min_value=20.0, max_value=80.0),
     ramp=st.floats(min_value=0.1, max_value=5.0),
-    parts=st.dictionaries(
-        st.sampled_from(["R1", "R2", "R3", "C1", "C2", "C3", "Rb"]),
-        st.floats(min_value=1e-12, max_value=1e7),
-        max_size=7,
+    parts=st.one_of(
+        st.dictionaries(st.sampled_from(["R1", "R2", "R3", "Rb"]), st.floats(min_value=1.0, max_value=1e7), max_size=4),
+        st.dictionaries(st.sampled_from(["C1", "C2", "C3"]), st.floats(min_value=1e-12, max_value=1e-3), max_size=3),
     ),
     title=st.text(max_size=30),
     changed=st.sets(st.sampled_from(["L", "dcr", "esr", "vin", "pm", "ramp", "parts", "title"]), min_size=1),

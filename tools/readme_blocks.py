@@ -163,6 +163,17 @@ def stated_sample_count(text: str) -> int | None:
     return _WORDS.index(word) if word in _WORDS else int(word) if word.isdigit() else None
 
 
+_BOUNDS = re.compile(r"(<!-- bounds table: [^>]*-->\n)(.*?)(<!-- end of bounds table -->)", re.DOTALL)
+
+
+def _bounds_markdown() -> str:
+    """The README's table of physical bounds, from the checkout's own ``loopkit.bounds``."""
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+    from loopkit.bounds import bounds_markdown
+
+    return bounds_markdown()
+
+
 def regenerate(text: str) -> str:
     """The README text with every marked block and the sample count made true."""
     out, last = [], 0
@@ -170,6 +181,7 @@ def regenerate(text: str) -> str:
         out += [text[last : block.start], expected(block)]
         last = block.end
     text = "".join(out) + text[last:]
+    text = _BOUNDS.sub(lambda m: m.group(1) + _bounds_markdown() + m.group(3), text, count=1)
     return _COUNT.sub(
         lambda m: f"{number_word(sample_count())}{m.group('gap')}files in{m.group('gap2')}`sample_designs/`",
         text,
