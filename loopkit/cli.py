@@ -389,11 +389,17 @@ def design_text(result, path: str = "") -> str:
 
 
 # ---------------------------------------------------------------------- bode
+#: Frequencies a Bode table may span, Hz: below 1 mHz and above 10 GHz no converter loop has anything to show.
+F_GRID_HZ = (1e-3, 1e10)
+
+
 def _grid(args, design: Design, default_fmax: float) -> np.ndarray:
     fmin = parse_value(args.fmin, "--fmin", "Hz") if args.fmin is not None else 10.0
     fmax = parse_value(args.fmax, "--fmax", "Hz") if args.fmax is not None else default_fmax
-    if not fmin > 0:
-        raise DesignError("--fmin", args.fmin, "must be > 0 Hz")
+    for name, value, text in (("--fmin", fmin, args.fmin), ("--fmax", fmax, args.fmax)):
+        if not F_GRID_HZ[0] <= value <= F_GRID_HZ[1]:
+            raise DesignError(name, text if text is not None else _fmt(value, "Hz"),
+                              f"must be from {_fmt(F_GRID_HZ[0], 'Hz')} to {_fmt(F_GRID_HZ[1], 'Hz')}")
     if not fmax > fmin:
         raise DesignError(
             "--fmax",

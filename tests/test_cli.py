@@ -173,6 +173,7 @@ def _bad_design(tmp_path, old: str, new: str) -> Path:
         ("missing file", ["stage", "no/such/design.toml"], ["no/such/design.toml", "cannot be read"]),
         ("bad frequency", ["bode", str(BUCK), "--fmin", "abc"], ["--fmin", "abc"]),
         ("fmax below fmin", ["bode", str(BUCK), "--fmin", "10k", "--fmax", "1k"], ["--fmax", "1k", "above"]),
+        ("absurd fmin", ["bode", str(BUCK), "--fmin", "1e-300", "--fmax", "1e300"], ["--fmin", "1e-300", "1mHz"]),
         ("too few points", ["bode", str(BUCK), "--points", "1"], ["--points", "1"]),
         ("unknown command", ["nonsense"], ["nonsense"]),
         ("no file", ["stage"], ["FILE"]),
