@@ -106,21 +106,29 @@ class LoopSession:
                                   self.uncompensated.phase_deg(self.f_hz), self.scheme.gvg, self.scheme.zout)
         self.plant_resp = self.stage.gvd.response(self.f_hz)
         self.r1 = _default_r1(design, self.ctx)
+        self._searched: dict = {}  # targets (fc left out) -> last searched placement, relative to fc
         self._rhp_min = np.nanmin(self.stage.f_rhp_hz) if np.any(np.isfinite(self.stage.f_rhp_hz)) else np.nan
 
     # ------------------------------------------------------------------ public
-    def run(self, targets: Targets | None = None) -> LoopResult:
+    def run(self, targets: Targets | None = None, preview: bool = False) -> LoopResult:
         """Synthesise (or analyse the design's given parts) and analyse every corner.
 
         With ``targets`` None and parts in the design, those parts are analysed
         as given; otherwise the network is synthesised for the targets (the
         design's own by default).
+
+        ``preview`` True (a slider being dragged): where method ``auto`` needs
+        the worst-corner search, the placement found for the last such targets
+        (scaled to the new crossover) is tried first and kept when it meets
+        every target, which saves the search on most moves.  Without
+        ``preview`` the result depends only on the design and the targets (the
+        CLI's answer), so a drag ends with a run without it.
         """
         comp = self.design.compensator
         if targets is None and comp.parts:
             return self._analyse_given(Targets.from_design(self.design))
         targets = targets or Targets.from_design(self.design)
-        return self._synthesise(targets)
+        return self._synthesise(targets, preview)
 
     # ------------------------------------------------------------------ corners
     def design_corner(self, targets: Targets) -> int:
@@ -142,7 +150,7 @@ class LoopSession:
         return int(candidates[order[0]])
 
     # ------------------------------------------------------------------ synthesis
-    def _synthesise(self, targets: Targets) -> LoopResult:
+    def _synthesise(self, targets: Targets, preview: bool = False) -> LoopResult:
         findings = list(self.stage.findings) + list(self.scheme.findings)
         findings.extend(target_findings(self.stage, self.design.stage.fsw, targets))
         if targets.fc_hz <= 0:
@@ -154,6 +162,11 @@ class LoopSession:
                                     " the averaged model ends there")
         corner = self.design_corner(targets)
         module = network_module(targets.network)
+        key = replace(targets, fc_hz=0.0, resistor_series="", capacitor_series="")
+        if preview and targets.method == "auto" and key in self._searched:
+            reused = self._reuse(module, targets, corner, self._searched[key])
+            if reused is not None:
+                return self._assemble(targets, *reused, corner, findings + list(reused[1].notes))
         try:
             parts, placement = self._solve(module, targets, corner)
         except InfeasibleDesign as exc:
@@ -163,10 +176,27 @@ class LoopSession:
             searched = self._search(module, targets, corner, placement)
             if searched is not None and (before is None or self._shortfall(module, searched[0], targets) < before):
                 parts, placement = searched
+                self._searched[key] = (tuple(z / targets.fc_hz for z in placement.zeros_hz),
+                                       tuple(p / targets.fc_hz for p in placement.poles_hz))
         if parts is None:
             return self._infeasible(targets, findings, failure.field, failure.value, failure.allowed, failure.reasons)
         findings.extend(placement.notes)
         return self._assemble(targets, parts, placement, corner, findings)
+
+    def _reuse(self, module, targets: Targets, corner: int, shape: tuple) -> tuple[dict, Placement] | None:
+        """The last searched placement scaled to this crossover, when it meets every target."""
+        zeros, poles = (tuple(x * targets.fc_hz for x in part) for part in shape)
+        keys = ("fz1", "fz2", "fp1", "fp2") if module.ZEROS == 2 else ("fz", "fp")
+        try:
+            parts, placement = self._solve(module, replace(targets, method="placement"), corner,
+                                           dict(zip(keys, zeros + poles)))
+        except InfeasibleDesign:
+            return None
+        if self._shortfall(module, parts, targets)[0] > 0:
+            return None
+        note = Finding("placement-searched", "preview: the placement last searched for the worst corner, scaled to"
+                       " this crossover (the search runs again when the move ends)", None, "note")
+        return parts, replace(placement, notes=placement.notes + (note,))
 
     def _shortfall(self, module, parts: dict, targets: Targets) -> tuple[int, float]:
         """(number of corners missing a target, -worst PM excess) of a network: lower is better."""

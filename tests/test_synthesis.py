@@ -296,3 +296,18 @@ def test_auto_places_for_the_worst_corner_where_the_k_factor_leaves_one_behind(n
     assert any(f.code == "pm-below-target" and kf.stage.dcm[f.corner] for f in kf.findings)
     assert auto.met and np.all(auto.margins.pm_deg >= t.pm_deg - 0.05)
     assert any(f.code == "placement-searched" for f in auto.findings)
+
+
+def test_preview_reuses_the_search_and_a_full_run_does_not_depend_on_history():
+    """A slider preview may reuse the last searched placement (scaled to fc) when it meets every target;
+    a run without preview gives the same parts whatever came before (the CLI's answer)."""
+    design = load_design(SAMPLES[[p.stem for p in SAMPLES].index("buck_diode_12v_5v")])
+    session = LoopSession(design)
+    t = Targets.from_design(design)
+    fresh = session.run(t)
+    assert any(f.code == "placement-searched" for f in fresh.findings) and fresh.met
+    moved = session.run(replace(t, fc_hz=0.95 * t.fc_hz), preview=True)
+    assert not moved.met or np.all(moved.margins.pm_deg >= t.pm_deg - 0.05)
+    again = session.run(t)
+    assert again.parts == fresh.parts
+    assert LoopSession(design).run(t).parts == fresh.parts

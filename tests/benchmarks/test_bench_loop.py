@@ -74,3 +74,32 @@ def test_bench_slider_path_vs_python_control(benchmark):
     _, pm, _, _, wgc, _ = control.stability_margins(tfs[0])
     np.testing.assert_allclose(result.margins.pm_deg[0], pm, atol=1e-3)
     np.testing.assert_allclose(result.margins.fc_hz[0], wgc / TWO_PI, rtol=1e-6)
+
+
+def test_bench_slider_path_current_mode_vs_voltage_mode(benchmark):
+    """The slider path at 21 corners with peak current mode, as a ratio to voltage mode in the same run.
+
+    Current mode adds the inner current loop (Ridley's model closed with Rational.feedback) to the
+    session's fixed part; a slider move re-synthesises the network on the fixed Tu, as in voltage mode.
+    """
+    from dataclasses import replace
+
+    from loopkit.design import Control
+
+    vm = _session()
+    design = replace(vm.design, control=Control("peak-current", sense_gain=0.1))
+    cm = LoopSession(design)
+    assert cm.stage.n_corners == 21
+    vm_targets, cm_targets = Targets("type3", 40e3, 60.0), Targets("type2", 20e3, 60.0)
+    assert cm.run(cm_targets).feasible and vm.run(vm_targets).feasible
+    fcs = iter(np.geomspace(15e3, 25e3, 10_000))
+    benchmark(lambda: cm.run(Targets("type2", next(fcs), 60.0)))
+    t_cm = _median(lambda: cm.run(cm_targets), 20)
+    t_vm = _median(lambda: vm.run(vm_targets), 20)
+    t_build_cm = _median(lambda: LoopSession(design), 5)
+    t_build_vm = _median(lambda: LoopSession(vm.design), 5)
+    benchmark.extra_info.update({"current_mode_ms": t_cm * 1e3, "voltage_mode_ms": t_vm * 1e3,
+                                 "ratio_cm_to_vm": t_cm / t_vm, "session_build_cm_ms": t_build_cm * 1e3,
+                                 "session_build_vm_ms": t_build_vm * 1e3})
+    print(f"\nslider path, 21 corners: current mode {t_cm * 1e3:.2f} ms, voltage mode {t_vm * 1e3:.2f} ms,"
+          f" ratio {t_cm / t_vm:.2f}; session build {t_build_cm * 1e3:.1f} vs {t_build_vm * 1e3:.1f} ms")
