@@ -201,7 +201,7 @@ class CornersView(QWidget):
                 if m is not None:
                     pm_k, gm_k = float(m.pm_deg[k]), float(m.gm_db[k])
                     bad = (not bool(m.stable[k])) or not math.isfinite(pm_k)
-                    low = below_target(pm_k, result.targets.pm_deg)
+                    low = below_target(pm_k, self._model.targets.pm_deg)
                     self.table.item(k, 4).setForeground(
                         QBrush(_BAD_FG) if bad else QBrush(_LOW_FG) if low else QBrush())
                     gm_low = states[k] == "number" and below_target(gm_k, GM_WARN_DB)
@@ -213,7 +213,7 @@ class CornersView(QWidget):
             note = (f" GM {GM_WORDS['beyond-model']}: the phase reaches −180° only above fsw/2, where the averaged "
                     f"model does not predict it." if (states == "beyond-model").any() else "")
             self.caption.setText(f"{n} corners; ▶ marks the worst (lowest phase margin). Margins with the "
-                                 f"snapped parts; amber: below the PM target ({result.targets.pm_deg:g}°) or GM "
+                                 f"snapped parts; amber: below the PM target ({self._model.targets.pm_deg:g}°) or GM "
                                  f"below {GM_WARN_DB:g} dB.{note}")
         self._worst_row = worst
         self._fill_findings(result.findings)

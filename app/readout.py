@@ -66,7 +66,7 @@ class MarginsReadout(QWidget):
     def _on_results_changed(self, result) -> None:
         if result is None:
             return
-        t = result.targets
+        t = self._model.targets  # what the user set (with given parts the session may hold older ones)
         source = "given parts" if self._model.parts_given else (
             f"{t.resistor_series}/{t.capacitor_series} parts")
         targets = (f"<span style='color:#555'>Targets: {NETWORK_NAMES.get(result.network, result.network)}, "

@@ -303,6 +303,7 @@ def test_invalid_field_shows_message_and_keeps_design(window, qtbot, key, text, 
     assert field.property("invalid") is False
     assert not window.form.error_strip.isVisible()
     assert model.design is not before
+    assert window.statusBar().currentMessage() == ""  # the rejection no longer holds: it leaves the status bar
 
 
 def test_invalid_topology_change_reverts(window):
