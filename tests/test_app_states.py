@@ -30,7 +30,7 @@ from app.readout import GM_TARGET_DB
 from app.testing import settle
 from app.viewmodel import DesignModel
 from app.window import MainWindow
-from loopkit import format_value, load_design
+from loopkit import load_design
 from loopkit.loop import GM_WARN_DB, Targets, design_loop
 from loopkit.margins import GM_WORDS, gm_state
 
