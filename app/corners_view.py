@@ -191,7 +191,8 @@ class CornersView(QWidget):
                     item = self.table.item(k, c)
                     if is_worst and c == 0:
                         text = f"▶ {text}"
-                    item.setText(text)
+                    if item.text() != text:  # an unchanged cell is not repainted
+                        item.setText(text)
                     if restyle:
                         item.setFont(self._bold if is_worst else self._plain)
                         item.setBackground(QBrush(_WORST_BG) if is_worst else QBrush())

@@ -16,7 +16,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import QRectF, QSignalBlocker, Qt, Signal
 from PySide6.QtGui import QColor, QFont, QPen
-from PySide6.QtWidgets import QGraphicsView, QLabel, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QGraphicsItem, QGraphicsView, QLabel, QVBoxLayout, QWidget
 
 from loopkit import format_value
 from loopkit.margins import GM_WORDS, gm_state
@@ -162,6 +162,7 @@ class CurveBundle(pg.GraphicsObject):
         self._rect = QRectF()
         self._x = np.zeros(0)
         self._y = np.zeros((0, 0))
+        self._poly_x = None
 
     @property
     def n(self) -> int:
@@ -176,7 +177,20 @@ class CurveBundle(pg.GraphicsObject):
     def set_data(self, x: np.ndarray, y: np.ndarray) -> None:
         """``x`` (nf,) view coordinates shared by all curves, ``y`` (curves, nf)."""
         self._x, self._y = x, y
-        self._paths = [pg.arrayToQPath(x, row, connect=self._connect) for row in y]
+        if self._connect == "all":
+            # one polyline per curve, filled in place: cheaper to build and to draw than a QPainterPath
+            polys = self._paths if len(self._paths) == y.shape[0] and isinstance(self._poly_x, np.ndarray) \
+                and self._poly_x is x else None
+            if polys is None:
+                polys = [pg.functions.create_qpolygonf(x.size) for _ in range(y.shape[0])]
+                self._poly_x = x
+            for poly, row in zip(polys, y):
+                buf = pg.functions.ndarray_from_qpolygonf(poly)
+                buf[:, 0] = x
+                buf[:, 1] = row
+            self._paths = polys
+        else:
+            self._paths = [pg.arrayToQPath(x, row, connect=self._connect) for row in y]
         finite = y[np.isfinite(y)] if self._connect == "finite" else y
         if finite.size and x.size:
             y0, y1 = float(np.min(finite)), float(np.max(finite))
@@ -203,10 +217,14 @@ class CurveBundle(pg.GraphicsObject):
 
     def paint(self, p, *args) -> None:
         p.setRenderHint(p.RenderHint.Antialiasing, False)
+        poly = self._connect == "all"
         for k in self._order:
             if k < len(self._paths) and k < len(self._pens):
                 p.setPen(self._pens[k])
-                p.drawPath(self._paths[k])
+                if poly:
+                    p.drawPolyline(self._paths[k])
+                else:
+                    p.drawPath(self._paths[k])
 
 
 class Dot(pg.GraphicsObject):
@@ -233,6 +251,49 @@ class Dot(pg.GraphicsObject):
         p.setBrush(QColor("white"))
         r = self._RADIUS_PX
         p.drawEllipse(QRectF(-r, -r, 2 * r, 2 * r))
+
+
+class Shade(pg.GraphicsObject):
+    """A grey band from ``x0`` to ``x1`` (view coordinates) over the visible height, edged by a dotted line.
+
+    Drawn as one opaque rectangle in device pixels under the grid: a translucent
+    fill through the view's scaling (as a LinearRegionItem draws) costs a few
+    milliseconds a repaint.
+    """
+
+    def __init__(self, view_box):
+        super().__init__()
+        self._vb = view_box
+        self._x0 = self._x1 = 0.0
+        self._brush = QColor("#f0f0f0")  # opaque, under the grid: cheap to fill
+        self._edge = _pen("#888", Qt.DotLine, 1.0)
+        view_box.sigYRangeChanged.connect(self._on_range_changed)
+
+    def set_span(self, x0: float, x1: float) -> None:
+        self.prepareGeometryChange()
+        self._x0, self._x1 = float(x0), float(x1)
+        self.update()
+
+    def _on_range_changed(self, *_) -> None:
+        self.prepareGeometryChange()
+        self.update()
+
+    def boundingRect(self) -> QRectF:
+        (_, _), (y0, y1) = self._vb.viewRange()
+        return QRectF(self._x0, y0, max(self._x1 - self._x0, 0.0), y1 - y0)
+
+    def paint(self, p, *args) -> None:
+        r = self.boundingRect()
+        if r.width() <= 0:
+            return
+        p.setRenderHint(p.RenderHint.Antialiasing, False)
+        device = p.transform().mapRect(r).toAlignedRect()
+        p.save()
+        p.resetTransform()  # an axis-aligned fill in device pixels: the raster engine's fast path
+        p.fillRect(device, self._brush)
+        p.setPen(self._edge)
+        p.drawLine(device.topLeft(), device.bottomLeft())
+        p.restore()
 
 
 def _pen(colour, style=Qt.SolidLine, width=1.0, alpha=255) -> QPen:
@@ -299,6 +360,9 @@ class BodeView(QWidget):
         self.phase.getAxis("bottom").setLabel("Frequency (Hz)", **label_style)
         self.mag.getAxis("bottom").setStyle(showValues=False)
         self._grids = [_Grid(p, p.getAxis("bottom"), p.getAxis("left")) for p in (self.mag, self.phase)]
+        for plot in (self.mag, self.phase):  # axes change only with the view: repainted from a cached pixmap
+            for name in ("left", "bottom"):
+                plot.getAxis(name).setCacheMode(QGraphicsItem.DeviceCoordinateCache)
         self.canvas.ci.layout.setRowStretchFactor(0, 5)
         self.canvas.ci.layout.setRowStretchFactor(1, 4)
 
@@ -308,6 +372,8 @@ class BodeView(QWidget):
         bar_axis.setLabel("Input voltage (V)", **label_style)
         bar_axis.setWidth(58)
         self.canvas.addItem(self.colour_bar, row=0, col=1, rowspan=2)
+        for item in [self.colour_bar, *self.colour_bar.childItems()]:
+            item.setCacheMode(QGraphicsItem.DeviceCoordinateCache)
 
         # reference lines
         grey = _pen("#777", Qt.SolidLine, 1.0)
@@ -346,10 +412,9 @@ class BodeView(QWidget):
         self._infeasible = False
 
         # above fsw/2 the averaged model does not hold: shaded, with its edge marked
-        self._half_fsw = [pg.LinearRegionItem(values=(0.0, 1.0), movable=False, brush=(90, 90, 90, 22),
-                                              pen=_pen("#888", Qt.DotLine, 1.0)) for _ in range(2)]
+        self._half_fsw = [Shade(plot.getViewBox()) for plot in (self.mag, self.phase)]
         for plot, item in zip((self.mag, self.phase), self._half_fsw):
-            item.setZValue(-5)
+            item.setZValue(-20)  # under the grid (-10)
             item.setToolTip("Above fsw/2 the averaged model does not predict the loop")
             plot.addItem(item, ignoreBounds=True)
         self._half_fsw_text = pg.TextItem("fsw/2", color="#666", anchor=(1.05, 0.0))
@@ -396,6 +461,7 @@ class BodeView(QWidget):
         self.legend = pg.LegendItem(offset=(8, -8), labelTextSize="8pt", brush=(255, 255, 255, 215),
                                     pen="#bbb", verSpacing=-6)
         self.legend.setParentItem(self.mag.getViewBox())
+        self.legend.setCacheMode(QGraphicsItem.DeviceCoordinateCache)
         self._legend_items: list = []
 
         # why the targets cannot be met: a strip above the plot (never over the curves)
@@ -471,7 +537,7 @@ class BodeView(QWidget):
         self.marker.setBounds((self._x[0], self._x[-1]))
         x_half = hz_to_view(result.design.stage.fsw / 2.0)
         for item in self._half_fsw:
-            item.setRegion((x_half, max(float(self._x[-1]), x_half) + 3.0))
+            item.set_span(x_half, max(float(self._x[-1]), x_half))
         self._x_half = x_half
         self._half_fsw_text.setPos(x_half, 0.0)
         self._last_loop = None  # a new plant: the last feasible loop was another design's

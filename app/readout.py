@@ -6,7 +6,7 @@ import html
 import math
 
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QLabel, QSizePolicy, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QLabel, QWidget
 
 from loopkit import format_value
 from loopkit.loop import GM_WARN_DB
@@ -45,23 +45,26 @@ class MarginsReadout(QWidget):
     def __init__(self, model, parent=None):
         super().__init__(parent)
         self._model = model
-        layout = QVBoxLayout(self)
-        layout.setContentsMargins(8, 2, 8, 2)
-        layout.setSpacing(0)
-        self.worst = QLabel()
+        self.worst = QLabel(self)
         self.worst.setObjectName("readout_worst")
         self.worst.setStyleSheet("font-size: 11pt;")
         self.worst.setTextFormat(Qt.RichText)
-        self.targets = QLabel()
+        self.targets = QLabel(self)
         self.targets.setObjectName("readout_targets")
         self.targets.setTextFormat(Qt.RichText)
-        # two lines of fixed height: a drag never re-lays out the window, long text never widens it
-        for label in (self.worst, self.targets):
-            label.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Fixed)
-        layout.addWidget(self.worst)
-        layout.addWidget(self.targets)
+        # two lines placed by hand, no layout: a new text on every slider move never re-lays out the window
+        # (a layout would pass each label's size-hint change up to the main window, which then repaints whole)
+        self._line1 = self.worst.fontMetrics().height() + 6
+        self._line2 = self.targets.fontMetrics().height() + 2
+        self.setFixedHeight(self._line1 + self._line2 + 4)
         model.results_changed.connect(self._on_results_changed)
         self._on_results_changed(model.result)
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        w = max(self.width() - 16, 10)
+        self.worst.setGeometry(8, 2, w, self._line1)
+        self.targets.setGeometry(8, 2 + self._line1, w, self._line2)
 
     def _on_results_changed(self, result) -> None:
         if result is None:
