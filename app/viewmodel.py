@@ -36,7 +36,7 @@ from loopkit.loop import LoopSession, Targets
 
 from .undo import DesignStep
 
-__all__ = ["TARGET_FIELDS", "DesignModel", "starter_design"]
+__all__ = ["HEAVY_CORNERS", "RESULTS_KEPT", "TARGET_FIELDS", "DesignModel", "starter_design"]
 
 #: Compensator fields that are loop targets: changing them re-runs the session only.
 TARGET_FIELDS = ("network", "fc", "pm", "boost_split", "design_corner", "method", "resistor_series",
@@ -46,6 +46,8 @@ _FRAME_S = 1.0 / 60.0
 
 #: Designs with more corners than this are computed in a worker thread when edited.
 HEAVY_CORNERS = 60
+#: Results of the current session kept for targets visited again (a drag back and forth, undo/redo).
+RESULTS_KEPT = 24
 
 _PATH_TOKEN = re.compile(r"([A-Za-z_][A-Za-z0-9_]*)(?:\[(\d+)\])?")
 
@@ -179,6 +181,8 @@ class DesignModel(QObject):
         self._job_signals = _JobSignals(self)
         self._job_signals.done.connect(self._on_job_done)
         self._last_compute_s = 0.0
+        self._kept: dict = {}  # Targets -> LoopResult of the current session, oldest first
+        self._kept_next: dict | None = None
         self._queued_preview: Design | None = None
         self._preview_timer = QTimer(self)
         self._preview_timer.setSingleShot(True)
@@ -227,7 +231,14 @@ class DesignModel(QObject):
         return targets, session.run(None if design.compensator.parts else targets)
 
     def _compute(self, design: Design):
-        """(session, targets, result) for ``design``; raises DesignError for input it cannot use."""
+        """(session, targets, result) for ``design``; raises DesignError for input it cannot use.
+
+        Results of the current session are kept for the last :data:`RESULTS_KEPT`
+        target sets (synthesised parts only): a drag that comes back over
+        targets it passed, or an undo, redraws without recomputing.  The result
+        is the library's own for those targets (a run is a pure function of the
+        session and the targets).
+        """
         if self._prepared is not None and self._prepared[0] is design:
             return self._prepared[1:]
         t0 = time.perf_counter()
@@ -235,7 +246,17 @@ class DesignModel(QObject):
             session = self._session
         else:
             session = LoopSession(design)
-        targets, result = self._run(session, design)
+        key = None if design.compensator.parts else Targets.from_design(design)
+        kept = self._kept if session is self._session else {}
+        if key is not None and key in kept:
+            targets, result = key, kept.pop(key)
+        else:
+            targets, result = self._run(session, design)
+        if key is not None:
+            kept[key] = result
+            while len(kept) > RESULTS_KEPT:
+                kept.pop(next(iter(kept)))
+        self._kept_next = kept
         self._last_compute_s = time.perf_counter() - t0
         return session, targets, result
 
@@ -255,6 +276,8 @@ class DesignModel(QObject):
         finally:
             self._prepared = None
         structural = session is not self._session
+        self._kept = self._kept_next if self._kept_next is not None else ({} if structural else self._kept)
+        self._kept_next = None
         old_targets = self._targets
         self._design, self._session, self._targets, self._result = design, session, targets, result
         if structural:
