@@ -164,7 +164,7 @@ class DesignModel(QObject):
     compute_failed = Signal(str)
     busy_changed = Signal(bool, str)
 
-    def __init__(self, design: Design | None = None, parent=None):
+    def __init__(self, design: Design | None = None, parent=None, path: str = ""):
         super().__init__(parent)
         self.undo_stack = QUndoStack(self)
         self.undo_stack.cleanChanged.connect(self._on_clean_changed)
@@ -187,7 +187,7 @@ class DesignModel(QObject):
         self._preview_timer = QTimer(self)
         self._preview_timer.setSingleShot(True)
         self._preview_timer.timeout.connect(self._flush_preview)
-        self.reset(design or starter_design())
+        self.reset(design or starter_design(), str(Path(path).resolve()) if path else "")
 
     # ------------------------------------------------------------------ state
     @property

@@ -267,3 +267,51 @@ def test_network_drawing_readable_at_the_default_size(window):
     assert area.scale() >= MIN_DRAWING_SCALE - 1e-3
     assert 11 * area.scale() >= 8.7
     assert area.svg.height() >= 0.8 * natural.height() - 1
+
+
+# ---------------------------------------------------------------------- start-up
+def test_start_computes_the_design_once(qapp, tmp_path, monkeypatch):
+    """``loopkit-gui FILE`` builds one session and runs it once (not the starter design first, then the file)."""
+    import app.viewmodel as vm
+    from app.main import build_window
+
+    monkeypatch.setenv("LOOPKIT_APP_DIR", str(tmp_path))
+    sessions, runs = [], []
+
+    class Counting(vm.LoopSession):
+        def __init__(self, design):
+            sessions.append(design.title)
+            super().__init__(design)
+
+        def run(self, targets=None):
+            runs.append(targets)
+            return super().run(targets)
+
+    monkeypatch.setattr(vm, "LoopSession", Counting)
+    window = build_window(str(SAMPLES["buck_24v_3v3"]))
+    try:
+        assert sessions == [load_design(SAMPLES["buck_24v_3v3"]).title]
+        assert len(runs) == 1
+        assert window.model.path == str(SAMPLES["buck_24v_3v3"].resolve())
+        assert window.windowTitle().startswith("buck_24v_3v3.toml")
+    finally:
+        window.model.undo_stack.setClean()
+        window._autosave_timer.stop()
+        window.close()
+
+
+def test_start_window_comes_before_the_heavy_imports(tmp_path):
+    """The first window is painted before pyqtgraph and loopkit are imported (they take about a second)."""
+    code = (
+        "import os, sys\n"
+        "os.environ['QT_QPA_PLATFORM'] = 'offscreen'\n"
+        "from PySide6.QtWidgets import QApplication\n"
+        "app = QApplication([])\n"
+        "from app.main import _StartWindow\n"
+        "s = _StartWindow(sys.argv[1]); s.show()\n"
+        "print(s.widget.isVisible(), sorted(m for m in ('pyqtgraph', 'loopkit', 'numpy') if m in sys.modules))\n"
+    )
+    env = dict(__import__("os").environ, LOOPKIT_APP_DIR=str(tmp_path))
+    run = subprocess.run([sys.executable, "-c", code, str(SAMPLES["buck_24v_3v3"])], capture_output=True, text=True,
+                         cwd=ROOT, env=env, timeout=120, check=True)
+    assert run.stdout.strip().splitlines()[-1] == "True []"
