@@ -463,6 +463,8 @@ class BodeView(QWidget):
         self.legend.setParentItem(self.mag.getViewBox())
         self.legend.setCacheMode(QGraphicsItem.DeviceCoordinateCache)
         self._legend_items: list = []
+        self._legend_key = None
+        self._axis_extra = None
 
         # why the targets cannot be met: a strip above the plot (never over the curves)
         self._infeasible_text = QLabel()
@@ -534,7 +536,8 @@ class BodeView(QWidget):
         self._apply_pens()
         self._styles = styles
         self._fill_legend()
-        self.marker.setBounds((self._x[0], self._x[-1]))
+        with QSignalBlocker(self.marker):  # a bound that moves the marker is not the user dragging it
+            self.marker.setBounds((self._x[0], self._x[-1]))
         x_half = hz_to_view(result.design.stage.fsw / 2.0)
         for item in self._half_fsw:
             item.set_span(x_half, max(float(self._x[-1]), x_half))
@@ -545,20 +548,30 @@ class BodeView(QWidget):
         self._fit_pending = True
 
     def _fill_legend(self) -> None:
-        """One entry per load (line style), then the plant and compensator when shown."""
-        self.legend.clear()
+        """One entry per load (line style), then the plant and compensator when shown.
+
+        Rebuilt only when its entries change (pyqtgraph's legend costs about 30 ms to rebuild).
+        """
         what = "plant Gvd" if self._infeasible else "loop T"
-        for x, style in sorted(self._styles.items(), key=lambda kv: -kv[0]):
-            self.legend.addItem(pg.PlotDataItem(pen=_pen("#333", style, 1.2)), f"{what}, load {format_value(x, 'A')}")
+        entries = [(_pen("#333", style, 1.2), f"{what}, load {format_value(x, 'A')}")
+                   for x, style in sorted(self._styles.items(), key=lambda kv: -kv[0])]
         if self._show_plant and not self._infeasible:
-            self.legend.addItem(pg.PlotDataItem(pen=_pen("#333", Qt.SolidLine, 1.0, 90)), "plant Gvd (faint)")
+            entries.append((_pen("#333", Qt.SolidLine, 1.0, 90), "plant Gvd (faint)"))
         if self._infeasible and self._ghost_on:
-            self.legend.addItem(pg.PlotDataItem(pen=_GHOST_PEN), "last feasible loop")
+            entries.append((_GHOST_PEN, "last feasible loop"))
         if self._show_comp and not self._infeasible:
-            self.legend.addItem(pg.PlotDataItem(pen=self._comp_mag.opts["pen"]), "compensator Gc (T = −Tu·Gc)")
+            entries.append((self._comp_mag.opts["pen"], "compensator Gc (T = −Tu·Gc)"))
+        key = tuple((pen.style(), pen.color().rgba(), pen.widthF(), text) for pen, text in entries)
+        if key != self._legend_key:
+            self._legend_key = key
+            self.legend.clear()
+            for pen, text in entries:
+                self.legend.addItem(pg.PlotDataItem(pen=pen), text)
         extra = self._show_plant or self._show_comp or self._infeasible
-        self.mag.getAxis("left").setLabel("Gain (dB)" if extra else "Loop gain |T| (dB)", **_LABEL_STYLE)
-        self.phase.getAxis("left").setLabel("Phase (°)" if extra else "Phase of T (°)", **_LABEL_STYLE)
+        if extra != self._axis_extra:
+            self._axis_extra = extra
+            self.mag.getAxis("left").setLabel("Gain (dB)" if extra else "Loop gain |T| (dB)", **_LABEL_STYLE)
+            self.phase.getAxis("left").setLabel("Phase (°)" if extra else "Phase of T (°)", **_LABEL_STYLE)
 
     def _apply_pens(self) -> None:
         """Pens per corner: highlighted and worst corners heavier and on top, the rest dimmed while highlighting."""

@@ -182,6 +182,8 @@ class DesignModel(QObject):
         self._job_signals.done.connect(self._on_job_done)
         self._last_compute_s = 0.0
         self._kept: dict = {}  # Targets -> LoopResult of the current session, oldest first
+        #: (field, error) of every failure other than a DesignError (a loopkit bug: bad input not refused).
+        self.unexpected_errors: list[tuple[str, str]] = []
         self._kept_next: dict | None = None
         self._queued_preview: Design | None = None
         self._preview_timer = QTimer(self)
@@ -260,6 +262,15 @@ class DesignModel(QObject):
         self._last_compute_s = time.perf_counter() - t0
         return session, targets, result
 
+    def _unexpected(self, field: str, exc: BaseException) -> str:
+        """The words for a failure loopkit should have refused as bad input: the edit is not applied, the
+        field is named, the error is logged (stderr and :attr:`unexpected_errors`) to be reported."""
+        traceback.print_exception(exc, file=sys.stderr)
+        self.unexpected_errors.append((field, repr(exc)))
+        where = f"{field}: " if field else ""
+        return (f"{where}loopkit cannot compute the loop with this value ({type(exc).__name__}: {exc}); "
+                f"the last valid design stays. Please report it with the design file.")
+
     def _apply(self, design: Design) -> None:
         """Make ``design`` current (called by undo steps and by :meth:`reset`)."""
         if design is self._design:
@@ -270,8 +281,7 @@ class DesignModel(QObject):
             self.compute_failed.emit(str(exc))
             return
         except Exception as exc:  # noqa: BLE001 - never a traceback dialog; keep the last good state
-            traceback.print_exc(file=sys.stderr)
-            self.compute_failed.emit(f"internal error while computing the loop: {exc!r}")
+            self.compute_failed.emit(self._unexpected("", exc))
             return
         finally:
             self._prepared = None
@@ -312,9 +322,8 @@ class DesignModel(QObject):
         except DesignError as exc:
             self.field_invalid.emit(field, str(exc))
             return False
-        except Exception as exc:  # noqa: BLE001
-            traceback.print_exc(file=sys.stderr)
-            self.field_invalid.emit(field, f"internal error while computing the loop: {exc!r}")
+        except Exception as exc:  # noqa: BLE001 - refused at the field like bad input, logged as a bug
+            self.field_invalid.emit(field, self._unexpected(field, exc))
             return False
         self._prepared = (design, session, targets, result)
         self.undo_stack.push(DesignStep(self, self._design, design, text, merge_key))
@@ -348,8 +357,7 @@ class DesignModel(QObject):
         self._pending = None
         self.busy_changed.emit(False, "")
         if isinstance(outcome, BaseException):
-            message = str(outcome) if isinstance(outcome, DesignError) else (
-                f"internal error while computing the loop: {outcome!r}")
+            message = str(outcome) if isinstance(outcome, DesignError) else self._unexpected(field, outcome)
             self.field_invalid.emit(field, message)
             return
         self._prepared = (design, *outcome)
