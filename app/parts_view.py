@@ -37,8 +37,8 @@ from .corners_view import GM_BEYOND_TIP, gm_text
 __all__ = ["MIN_DRAWING_SCALE", "SERIES_CHOICES", "PartsView", "parts_text"]
 
 SERIES_CHOICES = ("E6", "E12", "E24", "E48", "E96", "E192", "none")
-#: The network drawing is never drawn smaller than this share of its own size (labels stay >= 8.8 px).
-MIN_DRAWING_SCALE = 0.8
+#: The network drawing is never drawn smaller than this share of its own size (labels stay >= 7.7 px).
+MIN_DRAWING_SCALE = 0.7
 _DRAW_DELAY_MS = 250
 
 

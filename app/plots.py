@@ -712,10 +712,13 @@ class BodeView(QWidget):
                 self._gm_word.setText(f"GM {word}")
                 self._gm_word.setToolTip(GM_BEYOND_TIP if state == "beyond-model" else
                                          "The phase does not reach −180° with |T| < 1 below fsw/2")
-            # at the fsw/2 edge, just below 0 dB: where the margin would be read
-            (_, _), (y0, y1) = self.mag.getViewBox().viewRange()
-            self._gm_word.setPos(self._x_half, -0.03 * (y1 - y0))
+            self._place_gm_word()
             self._gm_word.setVisible(True)
+
+    def _place_gm_word(self) -> None:
+        """At the fsw/2 edge, high in the plot where the loop gain is low (clear of the curves)."""
+        (_, _), (y0, y1) = self.mag.getViewBox().viewRange()
+        self._gm_word.setPos(self._x_half, y1 - 0.2 * (y1 - y0))
 
     def _place_label(self, item, x: float, y: float) -> None:
         """Put a marker label beside its bar: to the right, or to the left near the right edge."""
@@ -756,6 +759,7 @@ class BodeView(QWidget):
         self.mag.setXRange(x[0], x[-1], padding=0.0)
         self.mag.setYRange(lo_db, hi_db, padding=0.0)
         self.phase.setYRange(lo_ph, hi_ph, padding=0.0)
+        self._place_gm_word()
 
     # ------------------------------------------------------------------ marker -> model
     def _on_marker_position_changed(self, line) -> None:
