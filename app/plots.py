@@ -343,6 +343,7 @@ class BodeView(QWidget):
         self.canvas.setObjectName("bode_canvas")
         # one clip rectangle per repaint: many small update rectangles make every drawPath slow
         self.canvas.setViewportUpdateMode(QGraphicsView.FullViewportUpdate)
+        self.canvas.setOptimizationFlag(QGraphicsView.DontAdjustForAntialiasing, True)  # cosmetic pens, no AA
         layout.addWidget(self.canvas)
         self.canvas.ci.setSpacing(2)
         self.mag = self.canvas.addPlot(row=0, col=0, axisItems={"bottom": FrequencyAxis("bottom")})
@@ -434,8 +435,8 @@ class BodeView(QWidget):
         font = QFont()
         font.setPointSizeF(9.0)
         font.setBold(True)
-        self._pm_text = pg.TextItem(color="#0a7d32", anchor=(0.0, 0.5), fill=(255, 255, 255, 200))
-        self._gm_text = pg.TextItem(color="#b02a00", anchor=(0.0, 0.5), fill=(255, 255, 255, 200))
+        self._pm_text = pg.TextItem(color="#0a7d32", anchor=(0.0, 0.5), fill=(255, 255, 255))
+        self._gm_text = pg.TextItem(color="#b02a00", anchor=(0.0, 0.5), fill=(255, 255, 255))
         for t in (self._pm_text, self._gm_text):
             t.setFont(font)
         for plot, items in ((self.phase, (self._pm_ref, self._pm_bar, self._fc_dot_phase, self._f180_dot,
@@ -450,7 +451,7 @@ class BodeView(QWidget):
         self.marker = pg.InfiniteLine(angle=90, movable=True, pen=target_pen,
                                       hoverPen=_pen("#00649c", Qt.SolidLine, 2.6),
                                       label="target fc", labelOpts={"position": 0.94, "color": "#00649c",
-                                                                    "fill": (255, 255, 255, 210), "movable": False})
+                                                                    "fill": (255, 255, 255), "movable": False})
         self.marker.setZValue(30)
         self.mag.addItem(self.marker, ignoreBounds=True)
         self._marker_twin = pg.InfiniteLine(angle=90, movable=False, pen=target_pen)
@@ -475,7 +476,7 @@ class BodeView(QWidget):
         layout.insertWidget(0, self._infeasible_text)
         self._infeasible_text.setVisible(False)
 
-        self._gm_word = pg.TextItem(color="#555", anchor=(1.0, 0.0), fill=(255, 255, 255, 210))
+        self._gm_word = pg.TextItem(color="#555", anchor=(1.0, 0.0), fill=(255, 255, 255))
         self._gm_word.setFont(font)
         self._gm_word.setZValue(20)
         self.mag.addItem(self._gm_word, ignoreBounds=True)
