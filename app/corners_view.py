@@ -24,20 +24,43 @@ from PySide6.QtWidgets import (
 )
 
 from loopkit import format_value
+from loopkit.loop import GM_WARN_DB
+from loopkit.margins import GM_WORDS, gm_state
 
-__all__ = ["COLUMNS", "CornersView", "fc_text", "gm_text", "pm_text"]
+__all__ = ["COLUMNS", "GM_BEYOND_TIP", "CornersView", "below_target", "fc_text", "gm_cell", "gm_text", "pm_text"]
 
 COLUMNS = ("Vin (V)", "Load (A)", "Mode", "fc (Hz)", "PM (°)", "GM (dB)")
 _WORST_BG = QColor("#fff1c9")
 _BAD_FG = QColor("#b02a00")
+_LOW_FG = QColor("#b36b00")
 
 
-def cell_texts(vin, load, fc_hz, pm_deg, gm_db) -> tuple[str, str, str, str, str]:
+def below_target(value: float, target: float) -> bool:
+    """True when ``value`` as shown (0.1 of its unit) is below ``target``: what the header and table colour."""
+    return math.isfinite(value) and round(value, 1) < target
+
+
+#: Tooltip beside every gain margin shown as ``GM_WORDS["beyond-model"]``.
+GM_BEYOND_TIP = "beyond fsw/2: not predicted by the averaged model"
+
+
+def gm_cell(gm_db: float, state: str) -> str:
+    """A gain margin for the table (dB in the heading): the number, or loopkit's word for its state.
+
+    ``state`` is :func:`loopkit.margins.gm_state` of the corner: ``"number"``,
+    ``"none"`` or ``"beyond-model"``; the words are :data:`loopkit.margins.GM_WORDS`,
+    the same the CLI and the JSON use.
+    """
+    if state != "number" or not math.isfinite(gm_db):
+        return GM_WORDS.get(state, GM_WORDS["none"])
+    return f"{gm_db:.1f}"
+
+
+def cell_texts(vin, load, fc_hz, pm_deg, gm_db, state="number") -> tuple[str, str, str, str, str]:
     """The table's numbers: units are in the column headings."""
-    gm = "∞" if math.isinf(gm_db) and gm_db > 0 else (f"{gm_db:.1f}" if math.isfinite(gm_db) else "—")
     return (format_value(vin, digits=4), format_value(load, digits=3),
             format_value(fc_hz, digits=3) if math.isfinite(fc_hz) else "none",
-            f"{pm_deg:.1f}" if math.isfinite(pm_deg) else "—", gm)
+            f"{pm_deg:.1f}" if math.isfinite(pm_deg) else "—", gm_cell(gm_db, state))
 
 
 def fc_text(fc_hz: float) -> str:
@@ -48,10 +71,10 @@ def pm_text(pm_deg: float) -> str:
     return f"{pm_deg:.1f}°" if math.isfinite(pm_deg) else "—"
 
 
-def gm_text(gm_db: float) -> str:
-    if math.isinf(gm_db) and gm_db > 0:
-        return "∞"
-    return f"{gm_db:.1f} dB" if math.isfinite(gm_db) else "—"
+def gm_text(gm_db: float, state: str = "number") -> str:
+    """A gain margin with its unit, or loopkit's word for its state (see :func:`gm_cell`)."""
+    cell = gm_cell(gm_db, state)
+    return f"{cell} dB" if state == "number" and math.isfinite(gm_db) else cell
 
 
 class CornersView(QWidget):
@@ -142,6 +165,7 @@ class CornersView(QWidget):
         n = stage.n_corners
         fresh = self._ensure_rows(n)
         m = result.margins
+        states = gm_state(m) if m is not None else None
         worst = result.worst_corner
         modes = stage.mode
         if fresh:
@@ -155,9 +179,11 @@ class CornersView(QWidget):
                 if m is None:
                     vin, load = cell_texts(stage.vin[k], stage.load[k], math.nan, math.nan, math.nan)[:2]
                     cells = [vin, load, mode, "—", "—", "—"]
+                    for c in (4, 5):
+                        self.table.item(k, c).setForeground(QBrush())
                 else:
                     vin, load, fc, pm, gm = cell_texts(stage.vin[k], stage.load[k], float(m.fc_hz[k]),
-                                                       float(m.pm_deg[k]), float(m.gm_db[k]))
+                                                       float(m.pm_deg[k]), float(m.gm_db[k]), str(states[k]))
                     cells = [vin, load, mode, fc, pm, gm]
                 is_worst = k == worst
                 restyle = k in (worst, self._worst_row) and worst != self._worst_row
@@ -165,18 +191,31 @@ class CornersView(QWidget):
                     item = self.table.item(k, c)
                     if is_worst and c == 0:
                         text = f"▶ {text}"
-                    item.setText(text)
+                    if item.text() != text:  # an unchanged cell is not repainted
+                        item.setText(text)
                     if restyle:
                         item.setFont(self._bold if is_worst else self._plain)
                         item.setBackground(QBrush(_WORST_BG) if is_worst else QBrush())
+                gm_item = self.table.item(k, 5)
+                beyond = m is not None and states[k] == "beyond-model"
+                gm_item.setToolTip(GM_BEYOND_TIP if beyond else "")
                 if m is not None:
-                    bad = (not bool(m.stable[k])) or not math.isfinite(float(m.pm_deg[k]))
-                    self.table.item(k, 4).setForeground(QBrush(_BAD_FG) if bad else QBrush())
+                    pm_k, gm_k = float(m.pm_deg[k]), float(m.gm_db[k])
+                    bad = (not bool(m.stable[k])) or not math.isfinite(pm_k)
+                    low = below_target(pm_k, self._model.targets.pm_deg)
+                    self.table.item(k, 4).setForeground(
+                        QBrush(_BAD_FG) if bad else QBrush(_LOW_FG) if low else QBrush())
+                    gm_low = states[k] == "number" and below_target(gm_k, GM_WARN_DB)
+                    gm_item.setForeground(QBrush(_BAD_FG) if gm_low and gm_k <= 0 else
+                                          QBrush(_LOW_FG) if gm_low else QBrush())
         if m is None:
             self.caption.setText("No parts for these targets: see the warnings below.")
         else:
+            note = (f" GM {GM_WORDS['beyond-model']}: the phase reaches −180° only above fsw/2, where the averaged "
+                    f"model does not predict it." if (states == "beyond-model").any() else "")
             self.caption.setText(f"{n} corners; ▶ marks the worst (lowest phase margin). Margins with the "
-                                 f"snapped parts.")
+                                 f"snapped parts; amber: below the PM target ({self._model.targets.pm_deg:g}°) or GM "
+                                 f"below {GM_WARN_DB:g} dB.{note}")
         self._worst_row = worst
         self._fill_findings(result.findings)
 

@@ -43,11 +43,13 @@ def plain_text(value: float) -> str:
 def mark(widget, message: str | None) -> None:
     """Red border and tooltip with ``message``; ``None`` clears the mark."""
     if message:
-        widget.setStyleSheet(_INVALID_STYLE)
+        if widget.styleSheet() != _INVALID_STYLE:
+            widget.setStyleSheet(_INVALID_STYLE)
         widget.setToolTip(message)
         widget.setProperty("invalid", True)
     else:
-        widget.setStyleSheet("")
+        if widget.styleSheet():  # setting a style sheet re-polishes the widget: only on a change
+            widget.setStyleSheet("")
         widget.setToolTip(widget.property("help") or "")
         widget.setProperty("invalid", False)
 
@@ -104,6 +106,8 @@ class ValueEdit(QLineEdit, _Keyed):
             self.clear_value()
             self.value_shown = value
             return
+        if value == self.value_shown and self.text() == self._shown and not self.invalid:
+            return  # already shown (the form is refreshed whole on every design change)
         self.value_shown = value
         self._shown = plain_text(value) if self.plain else exact_text(value, self.unit)
         self.setText(self._shown)

@@ -21,6 +21,7 @@ from PySide6.QtWidgets import (
     QHeaderView,
     QLabel,
     QPushButton,
+    QScrollArea,
     QSizePolicy,
     QTableWidget,
     QTableWidgetItem,
@@ -29,10 +30,15 @@ from PySide6.QtWidgets import (
 )
 
 from loopkit import format_value
+from loopkit.margins import GM_WORDS, gm_state
 
-__all__ = ["SERIES_CHOICES", "PartsView", "parts_text"]
+from .corners_view import GM_BEYOND_TIP, gm_text
+
+__all__ = ["MIN_DRAWING_SCALE", "SERIES_CHOICES", "PartsView", "parts_text"]
 
 SERIES_CHOICES = ("E6", "E12", "E24", "E48", "E96", "E192", "none")
+#: The network drawing is never drawn smaller than this share of its own size (labels stay >= 7.7 px).
+MIN_DRAWING_SCALE = 0.7
 _DRAW_DELAY_MS = 250
 
 
@@ -80,6 +86,46 @@ class _DrawJob(QRunnable):
             self._signals.done.emit(request, svg, "")
         except Exception as exc:  # noqa: BLE001 - shown in the panel, never a crash
             self._signals.done.emit(request, "", f"drawing failed: {exc}")
+
+
+class _DrawingArea(QScrollArea):
+    """The network drawing at a size whose labels can be read: fitted to the panel's width, but never
+    below :data:`MIN_DRAWING_SCALE` of the drawing's own size (then it scrolls sideways)."""
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.setObjectName("network_drawing_area")
+        self.setWidgetResizable(False)
+        self.setAlignment(Qt.AlignCenter)
+        self.setMinimumHeight(170)
+        self.setStyleSheet("QScrollArea { background: white; }")
+        self.svg = QSvgWidget()
+        self.svg.setObjectName("network_drawing")
+        self.svg.setStyleSheet("background: white;")
+        self.svg.renderer().setAspectRatioMode(Qt.KeepAspectRatio)
+        self.setWidget(self.svg)
+
+    def load(self, svg: bytes) -> None:
+        self.svg.load(QByteArray(svg))
+        self.svg.renderer().setAspectRatioMode(Qt.KeepAspectRatio)
+        self._fit()
+
+    def scale(self) -> float:
+        """Drawn size over the drawing's own size (its labels are 11 px at 1)."""
+        size = self.svg.renderer().defaultSize()
+        return self.svg.width() / size.width() if size.width() > 0 else 1.0
+
+    def _fit(self) -> None:
+        size = self.svg.renderer().defaultSize()
+        if size.width() <= 0 or size.height() <= 0:
+            return
+        avail = self.viewport().width() - 2
+        scale = min(max(avail / size.width(), MIN_DRAWING_SCALE), 1.25)
+        self.svg.setFixedSize(round(size.width() * scale), round(size.height() * scale))
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        self._fit()
 
 
 class PartsView(QWidget):
@@ -147,13 +193,9 @@ class PartsView(QWidget):
         self.margin_shift.setWordWrap(True)
         layout.addWidget(self.margin_shift)
 
-        self.drawing = QSvgWidget()
-        self.drawing.setObjectName("network_drawing")
-        self.drawing.setMinimumHeight(170)
-        self.drawing.setSizePolicy(QSizePolicy.Expanding, QSizePolicy.Expanding)
-        self.drawing.renderer().setAspectRatioMode(Qt.KeepAspectRatio)
-        self.drawing.setStyleSheet("background: white;")
-        layout.addWidget(self.drawing, 1)
+        self.drawing_area = _DrawingArea()
+        self.drawing = self.drawing_area.svg
+        layout.addWidget(self.drawing_area, 1)
         note_row = QHBoxLayout()
         self.drawing_note = QLabel("")
         self.drawing_note.setStyleSheet("color: #666;")
@@ -234,9 +276,12 @@ class PartsView(QWidget):
             if given:
                 self.margin_shift.setText("Parts as given in the design (no snapping).")
             else:
+                sx, sm = str(gm_state(mx)[w]), str(gm_state(m)[w])
                 self.margin_shift.setText(
-                    f"Worst corner with computed parts: PM {mx.pm_deg[w]:.1f}°, GM {_gm(mx.gm_db[w])}; "
-                    f"with snapped parts: PM {m.pm_deg[w]:.1f}°, GM {_gm(m.gm_db[w])}.")
+                    f"Worst corner with computed parts: PM {mx.pm_deg[w]:.1f}°, GM {gm_text(mx.gm_db[w], sx)}; "
+                    f"with snapped parts: PM {m.pm_deg[w]:.1f}°, GM {gm_text(m.gm_db[w], sm)}.")
+                beyond = "beyond-model" in (sx, sm)
+                self.margin_shift.setToolTip(f"GM {GM_WORDS['beyond-model']}: {GM_BEYOND_TIP}" if beyond else "")
         else:
             self.roots.setText("No parts: the targets cannot be met (see the warnings).")
             self.margin_shift.setText("")
@@ -271,8 +316,7 @@ class PartsView(QWidget):
             self.drawing_note.setText(error)
             return
         self._svg = svg.encode("utf-8")
-        self.drawing.load(QByteArray(self._svg))
-        self.drawing.renderer().setAspectRatioMode(Qt.KeepAspectRatio)
+        self.drawing_area.load(self._svg)
         self.enlarge_button.setEnabled(True)
         self.drawing_note.setText("Network with the snapped values")
 
@@ -310,8 +354,4 @@ class PartsView(QWidget):
         text = parts_text(self._model.result)
         QGuiApplication.clipboard().setText(text)
         return text
-
-
-def _gm(gm_db: float) -> str:
-    return "∞" if math.isinf(gm_db) and gm_db > 0 else f"{gm_db:.1f} dB"
 

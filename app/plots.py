@@ -9,17 +9,21 @@ redraws without rescaling.
 
 from __future__ import annotations
 
+import html
 import math
 
 import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import QRectF, QSignalBlocker, Qt, Signal
 from PySide6.QtGui import QColor, QFont, QPen
-from PySide6.QtWidgets import QGraphicsView, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QGraphicsItem, QGraphicsView, QLabel, QVBoxLayout, QWidget
 
 from loopkit import format_value
+from loopkit.margins import GM_WORDS, gm_state
 
+from .corners_view import GM_BEYOND_TIP
 from .freq import hz_to_view, view_to_hz
+from .readout import infeasible_reason
 
 __all__ = ["BodeView", "FrequencyAxis", "load_styles", "magnitude_db", "vin_colour_map"]
 
@@ -158,6 +162,7 @@ class CurveBundle(pg.GraphicsObject):
         self._rect = QRectF()
         self._x = np.zeros(0)
         self._y = np.zeros((0, 0))
+        self._poly_x = None
 
     @property
     def n(self) -> int:
@@ -172,7 +177,20 @@ class CurveBundle(pg.GraphicsObject):
     def set_data(self, x: np.ndarray, y: np.ndarray) -> None:
         """``x`` (nf,) view coordinates shared by all curves, ``y`` (curves, nf)."""
         self._x, self._y = x, y
-        self._paths = [pg.arrayToQPath(x, row, connect=self._connect) for row in y]
+        if self._connect == "all":
+            # one polyline per curve, filled in place: cheaper to build and to draw than a QPainterPath
+            polys = self._paths if len(self._paths) == y.shape[0] and isinstance(self._poly_x, np.ndarray) \
+                and self._poly_x is x else None
+            if polys is None:
+                polys = [pg.functions.create_qpolygonf(x.size) for _ in range(y.shape[0])]
+                self._poly_x = x
+            for poly, row in zip(polys, y):
+                buf = pg.functions.ndarray_from_qpolygonf(poly)
+                buf[:, 0] = x
+                buf[:, 1] = row
+            self._paths = polys
+        else:
+            self._paths = [pg.arrayToQPath(x, row, connect=self._connect) for row in y]
         finite = y[np.isfinite(y)] if self._connect == "finite" else y
         if finite.size and x.size:
             y0, y1 = float(np.min(finite)), float(np.max(finite))
@@ -199,10 +217,14 @@ class CurveBundle(pg.GraphicsObject):
 
     def paint(self, p, *args) -> None:
         p.setRenderHint(p.RenderHint.Antialiasing, False)
+        poly = self._connect == "all"
         for k in self._order:
             if k < len(self._paths) and k < len(self._pens):
                 p.setPen(self._pens[k])
-                p.drawPath(self._paths[k])
+                if poly:
+                    p.drawPolyline(self._paths[k])
+                else:
+                    p.drawPath(self._paths[k])
 
 
 class Dot(pg.GraphicsObject):
@@ -231,6 +253,49 @@ class Dot(pg.GraphicsObject):
         p.drawEllipse(QRectF(-r, -r, 2 * r, 2 * r))
 
 
+class Shade(pg.GraphicsObject):
+    """A grey band from ``x0`` to ``x1`` (view coordinates) over the visible height, edged by a dotted line.
+
+    Drawn as one opaque rectangle in device pixels under the grid: a translucent
+    fill through the view's scaling (as a LinearRegionItem draws) costs a few
+    milliseconds a repaint.
+    """
+
+    def __init__(self, view_box):
+        super().__init__()
+        self._vb = view_box
+        self._x0 = self._x1 = 0.0
+        self._brush = QColor("#f0f0f0")  # opaque, under the grid: cheap to fill
+        self._edge = _pen("#888", Qt.DotLine, 1.0)
+        view_box.sigYRangeChanged.connect(self._on_range_changed)
+
+    def set_span(self, x0: float, x1: float) -> None:
+        self.prepareGeometryChange()
+        self._x0, self._x1 = float(x0), float(x1)
+        self.update()
+
+    def _on_range_changed(self, *_) -> None:
+        self.prepareGeometryChange()
+        self.update()
+
+    def boundingRect(self) -> QRectF:
+        (_, _), (y0, y1) = self._vb.viewRange()
+        return QRectF(self._x0, y0, max(self._x1 - self._x0, 0.0), y1 - y0)
+
+    def paint(self, p, *args) -> None:
+        r = self.boundingRect()
+        if r.width() <= 0:
+            return
+        p.setRenderHint(p.RenderHint.Antialiasing, False)
+        device = p.transform().mapRect(r).toAlignedRect()
+        p.save()
+        p.resetTransform()  # an axis-aligned fill in device pixels: the raster engine's fast path
+        p.fillRect(device, self._brush)
+        p.setPen(self._edge)
+        p.drawLine(device.topLeft(), device.bottomLeft())
+        p.restore()
+
+
 def _pen(colour, style=Qt.SolidLine, width=1.0, alpha=255) -> QPen:
     c = QColor(colour)
     c.setAlpha(alpha)
@@ -239,6 +304,9 @@ def _pen(colour, style=Qt.SolidLine, width=1.0, alpha=255) -> QPen:
     pen.setCosmetic(True)
     pen.setStyle(style)
     return pen
+
+
+_GHOST_PEN = _pen("#8c8c8c", Qt.DashLine, 1.0)
 
 
 class BodeView(QWidget):
@@ -275,6 +343,7 @@ class BodeView(QWidget):
         self.canvas.setObjectName("bode_canvas")
         # one clip rectangle per repaint: many small update rectangles make every drawPath slow
         self.canvas.setViewportUpdateMode(QGraphicsView.FullViewportUpdate)
+        self.canvas.setOptimizationFlag(QGraphicsView.DontAdjustForAntialiasing, True)  # cosmetic pens, no AA
         layout.addWidget(self.canvas)
         self.canvas.ci.setSpacing(2)
         self.mag = self.canvas.addPlot(row=0, col=0, axisItems={"bottom": FrequencyAxis("bottom")})
@@ -292,6 +361,9 @@ class BodeView(QWidget):
         self.phase.getAxis("bottom").setLabel("Frequency (Hz)", **label_style)
         self.mag.getAxis("bottom").setStyle(showValues=False)
         self._grids = [_Grid(p, p.getAxis("bottom"), p.getAxis("left")) for p in (self.mag, self.phase)]
+        for plot in (self.mag, self.phase):  # axes change only with the view: repainted from a cached pixmap
+            for name in ("left", "bottom"):
+                plot.getAxis(name).setCacheMode(QGraphicsItem.DeviceCoordinateCache)
         self.canvas.ci.layout.setRowStretchFactor(0, 5)
         self.canvas.ci.layout.setRowStretchFactor(1, 4)
 
@@ -301,6 +373,8 @@ class BodeView(QWidget):
         bar_axis.setLabel("Input voltage (V)", **label_style)
         bar_axis.setWidth(58)
         self.canvas.addItem(self.colour_bar, row=0, col=1, rowspan=2)
+        for item in [self.colour_bar, *self.colour_bar.childItems()]:
+            item.setCacheMode(QGraphicsItem.DeviceCoordinateCache)
 
         # reference lines
         grey = _pen("#777", Qt.SolidLine, 1.0)
@@ -327,6 +401,26 @@ class BodeView(QWidget):
             item.setVisible(False)
             plot.addItem(item)
 
+        # the last feasible loop, kept (grey, dashed) while the targets cannot be met
+        self.ghost_mag = CurveBundle()
+        self.ghost_phase = CurveBundle()
+        for plot, item in ((self.mag, self.ghost_mag), (self.phase, self.ghost_phase)):
+            item.setZValue(1.5)
+            item.setVisible(False)
+            plot.addItem(item)
+        self._last_loop = None  # (mag_db, phase_deg) of the last feasible result of this design
+        self._ghost_on = False
+        self._infeasible = False
+
+        # above fsw/2 the averaged model does not hold: shaded, with its edge marked
+        self._half_fsw = [Shade(plot.getViewBox()) for plot in (self.mag, self.phase)]
+        for plot, item in zip((self.mag, self.phase), self._half_fsw):
+            item.setZValue(-20)  # under the grid (-10)
+            item.setToolTip("Above fsw/2 the averaged model does not predict the loop")
+            plot.addItem(item, ignoreBounds=True)
+        self._half_fsw_text = pg.TextItem("fsw/2", color="#666", anchor=(1.05, 0.0))
+        self.phase.addItem(self._half_fsw_text, ignoreBounds=True)
+
         # worst corner: drawn heavier, last, by the bundles; and the margin markers
         self._worst = -1
         mark_pen = _pen("#0a7d32", Qt.SolidLine, 2.2)
@@ -341,8 +435,8 @@ class BodeView(QWidget):
         font = QFont()
         font.setPointSizeF(9.0)
         font.setBold(True)
-        self._pm_text = pg.TextItem(color="#0a7d32", anchor=(0.0, 0.5), fill=(255, 255, 255, 200))
-        self._gm_text = pg.TextItem(color="#b02a00", anchor=(0.0, 0.5), fill=(255, 255, 255, 200))
+        self._pm_text = pg.TextItem(color="#0a7d32", anchor=(0.0, 0.5), fill=(255, 255, 255))
+        self._gm_text = pg.TextItem(color="#b02a00", anchor=(0.0, 0.5), fill=(255, 255, 255))
         for t in (self._pm_text, self._gm_text):
             t.setFont(font)
         for plot, items in ((self.phase, (self._pm_ref, self._pm_bar, self._fc_dot_phase, self._f180_dot,
@@ -357,7 +451,7 @@ class BodeView(QWidget):
         self.marker = pg.InfiniteLine(angle=90, movable=True, pen=target_pen,
                                       hoverPen=_pen("#00649c", Qt.SolidLine, 2.6),
                                       label="target fc", labelOpts={"position": 0.94, "color": "#00649c",
-                                                                    "fill": (255, 255, 255, 210), "movable": False})
+                                                                    "fill": (255, 255, 255), "movable": False})
         self.marker.setZValue(30)
         self.mag.addItem(self.marker, ignoreBounds=True)
         self._marker_twin = pg.InfiniteLine(angle=90, movable=False, pen=target_pen)
@@ -368,12 +462,27 @@ class BodeView(QWidget):
         self.legend = pg.LegendItem(offset=(8, -8), labelTextSize="8pt", brush=(255, 255, 255, 215),
                                     pen="#bbb", verSpacing=-6)
         self.legend.setParentItem(self.mag.getViewBox())
+        self.legend.setCacheMode(QGraphicsItem.DeviceCoordinateCache)
         self._legend_items: list = []
+        self._legend_key = None
+        self._axis_extra = None
 
-        self._infeasible_text = pg.TextItem(color="#b02a00", anchor=(0.5, 0.5))
-        self._infeasible_text.setFont(font)
-        self.mag.addItem(self._infeasible_text, ignoreBounds=True)
+        # why the targets cannot be met: a strip above the plot (never over the curves)
+        self._infeasible_text = QLabel()
+        self._infeasible_text.setObjectName("infeasible_reason")
+        self._infeasible_text.setWordWrap(True)
+        self._infeasible_text.setStyleSheet("background: #fdecea; color: #8a1c0c; border: 1px solid #e6a39a;"
+                                            " border-radius: 3px; padding: 3px;")
+        layout.insertWidget(0, self._infeasible_text)
         self._infeasible_text.setVisible(False)
+
+        self._gm_word = pg.TextItem(color="#555", anchor=(1.0, 0.0), fill=(255, 255, 255))
+        self._gm_word.setFont(font)
+        self._gm_word.setZValue(20)
+        self.mag.addItem(self._gm_word, ignoreBounds=True)
+        self._gm_word.setVisible(False)
+        self._gm_word_state = None
+        self._x_half = math.inf
 
         model.design_changed.connect(self._on_design_changed)
         model.results_changed.connect(self._on_results_changed)
@@ -386,16 +495,16 @@ class BodeView(QWidget):
     # ------------------------------------------------------------------ options
     def set_show_plant(self, on: bool) -> None:
         self._show_plant = bool(on)
-        self.plant_mag.setVisible(self._show_plant)
-        self.plant_phase.setVisible(self._show_plant)
+        self.plant_mag.setVisible(self._show_plant or self._infeasible)
+        self.plant_phase.setVisible(self._show_plant or self._infeasible)
         self._fill_legend()
         self._fit_pending = True
         self._on_results_changed(self._model.result)
 
     def set_show_compensator(self, on: bool) -> None:
         self._show_comp = bool(on)
-        self._comp_mag.setVisible(self._show_comp)
-        self._comp_phase.setVisible(self._show_comp)
+        self._comp_mag.setVisible(self._show_comp and not self._infeasible)
+        self._comp_phase.setVisible(self._show_comp and not self._infeasible)
         self._fill_legend()
         self._fit_pending = True
         self._on_results_changed(self._model.result)
@@ -424,27 +533,46 @@ class BodeView(QWidget):
         self._plant_phase = stage.gvd.phase_deg(result.f_hz)
         self.plant_mag.set_data(self._x, magnitude_db(result.plant_resp))
         self.plant_phase.set_data(self._x, self._plant_phase)
-        faint = [_pen(self._corner_colours[k], self._corner_styles[k], 1.0, 90) for k in range(n)]
-        self.plant_mag.set_pens(faint)
-        self.plant_phase.set_pens(faint)
+        self._plant_pens()
         self._apply_pens()
         self._styles = styles
         self._fill_legend()
-        self.marker.setBounds((self._x[0], self._x[-1]))
+        with QSignalBlocker(self.marker):  # a bound that moves the marker is not the user dragging it
+            self.marker.setBounds((self._x[0], self._x[-1]))
+        x_half = hz_to_view(result.design.stage.fsw / 2.0)
+        for item in self._half_fsw:
+            item.set_span(x_half, max(float(self._x[-1]), x_half))
+        self._x_half = x_half
+        self._half_fsw_text.setPos(x_half, 0.0)
+        self._last_loop = None  # a new plant: the last feasible loop was another design's
+        self._show_ghost(False)
         self._fit_pending = True
 
     def _fill_legend(self) -> None:
-        """One entry per load (line style), then the plant and compensator when shown."""
-        self.legend.clear()
-        for x, style in sorted(self._styles.items(), key=lambda kv: -kv[0]):
-            self.legend.addItem(pg.PlotDataItem(pen=_pen("#333", style, 1.2)), f"loop T, load {format_value(x, 'A')}")
-        if self._show_plant:
-            self.legend.addItem(pg.PlotDataItem(pen=_pen("#333", Qt.SolidLine, 1.0, 90)), "plant Gvd (faint)")
-        if self._show_comp:
-            self.legend.addItem(pg.PlotDataItem(pen=self._comp_mag.opts["pen"]), "compensator −Gc")
-        extra = self._show_plant or self._show_comp
-        self.mag.getAxis("left").setLabel("Gain (dB)" if extra else "Loop gain |T| (dB)", **_LABEL_STYLE)
-        self.phase.getAxis("left").setLabel("Phase (°)" if extra else "Phase of T (°)", **_LABEL_STYLE)
+        """One entry per load (line style), then the plant and compensator when shown.
+
+        Rebuilt only when its entries change (pyqtgraph's legend costs about 30 ms to rebuild).
+        """
+        what = "plant Gvd" if self._infeasible else "loop T"
+        entries = [(_pen("#333", style, 1.2), f"{what}, load {format_value(x, 'A')}")
+                   for x, style in sorted(self._styles.items(), key=lambda kv: -kv[0])]
+        if self._show_plant and not self._infeasible:
+            entries.append((_pen("#333", Qt.SolidLine, 1.0, 90), "plant Gvd (faint)"))
+        if self._infeasible and self._ghost_on:
+            entries.append((_GHOST_PEN, "last feasible loop"))
+        if self._show_comp and not self._infeasible:
+            entries.append((self._comp_mag.opts["pen"], "compensator Gc (T = −Tu·Gc)"))
+        key = tuple((pen.style(), pen.color().rgba(), pen.widthF(), text) for pen, text in entries)
+        if key != self._legend_key:
+            self._legend_key = key
+            self.legend.clear()
+            for pen, text in entries:
+                self.legend.addItem(pg.PlotDataItem(pen=pen), text)
+        extra = self._show_plant or self._show_comp or self._infeasible
+        if extra != self._axis_extra:
+            self._axis_extra = extra
+            self.mag.getAxis("left").setLabel("Gain (dB)" if extra else "Loop gain |T| (dB)", **_LABEL_STYLE)
+            self.phase.getAxis("left").setLabel("Phase (°)" if extra else "Phase of T (°)", **_LABEL_STYLE)
 
     def _apply_pens(self) -> None:
         """Pens per corner: highlighted and worst corners heavier and on top, the rest dimmed while highlighting."""
@@ -471,34 +599,71 @@ class BodeView(QWidget):
             self._marker_twin.setValue(x)
             self.marker.label.setFormat(f"target fc {format_value(targets.fc_hz, 'Hz')}")
 
+    def _plant_pens(self) -> None:
+        """The plant faint beside the loop; in full colour when it is all there is (targets not met)."""
+        alpha = 255 if self._infeasible else 90
+        pens = [_pen(self._corner_colours[k], self._corner_styles[k], 1.0, alpha) for k in range(self._n)]
+        self.plant_mag.set_pens(pens)
+        self.plant_phase.set_pens(pens)
+
+    def _show_ghost(self, on: bool) -> None:
+        """Show (or hide) the last feasible loop of this design, grey and dashed."""
+        if on:
+            mag, phase = self._last_loop
+            pens = [_GHOST_PEN] * mag.shape[0]
+            self.ghost_mag.set_data(self._x, mag)
+            self.ghost_phase.set_data(self._x, phase)
+            self.ghost_mag.set_pens(pens)
+            self.ghost_phase.set_pens(pens)
+        self._ghost_on = on
+        self.ghost_mag.setVisible(on)
+        self.ghost_phase.setVisible(on)
+
+    def _set_infeasible(self, infeasible: bool) -> None:
+        """Switch between the loop and the infeasible view (plant, last feasible loop, the reason)."""
+        if infeasible == self._infeasible:
+            return
+        self._infeasible = infeasible
+        self._plant_pens()
+        plant = self._show_plant or infeasible
+        self.plant_mag.setVisible(plant)
+        self.plant_phase.setVisible(plant)
+        self._show_ghost(infeasible and self._last_loop is not None)
+        self._infeasible_text.setVisible(infeasible)
+        self.loop_mag.setVisible(not infeasible)
+        self.loop_phase.setVisible(not infeasible)
+        self._comp_mag.setVisible(not infeasible and self._show_comp)
+        self._comp_phase.setVisible(not infeasible and self._show_comp)
+        if infeasible:
+            for item in (self._pm_bar, self._pm_ref, self._gm_bar, self._fc_dot_mag, self._fc_dot_phase,
+                         self._f180_dot, self._f180_dot_mag, self._pm_text, self._gm_text, self._gm_word):
+                item.setVisible(False)
+        self._fill_legend()
+
     def _on_results_changed(self, result) -> None:
         if result is None:
             return
         x = self._x
         feasible = result.feasible
-        self._infeasible_text.setVisible(not feasible)
-        self.loop_mag.setVisible(feasible)
-        self.loop_phase.setVisible(feasible)
-        for item in (self._pm_bar, self._pm_ref, self._gm_bar, self._fc_dot_mag,
-                     self._fc_dot_phase, self._f180_dot, self._f180_dot_mag, self._pm_text, self._gm_text):
-            item.setVisible(feasible)
-        self._comp_mag.setVisible(feasible and self._show_comp)
-        self._comp_phase.setVisible(feasible and self._show_comp)
         if not feasible:
-            msg = next((f.message for f in result.findings if f.code == "infeasible"), "no parts for these targets")
-            self._infeasible_text.setText(_wrap(msg, 60))
-            self._infeasible_text.setPos((x[0] + x[-1]) / 2, 0.0)
+            self._infeasible_text.setText(
+                f"<b>No parts for these targets.</b> {html.escape(infeasible_reason(result))}<br>"
+                f"<span style='color:#555'>Shown: the plant Gvd of every corner"
+                f"{' and the last feasible loop (grey, dashed)' if self._last_loop is not None else ''}.</span>")
+            self._set_infeasible(True)
             if self._fit_pending:
                 self._fit(None, None)
             return
+        self._set_infeasible(False)
         mag = magnitude_db(result.loop_resp)
         phase = result.loop_phase_deg
         self.loop_mag.set_data(x, mag)
         self.loop_phase.set_data(x, phase)
+        self._last_loop = (mag, phase)
         if self._show_comp:
-            # the network as the loop sees it: T = -Tu Gc (loopkit.loop's sign convention)
+            # Gc itself, as ``loopkit bode --compensator`` prints it (the loop is T = -Tu Gc)
             self._comp_mag.setData(x, magnitude_db(result.comp_resp[0]), connect="finite")
-            self._comp_phase.setData(x, (-result.compensator).phase_deg(result.f_hz)[0], connect="finite")
+            self._comp_phase.setData(x, result.compensator.phase_deg(result.f_hz)[0], connect="finite")
         w = result.worst_corner
         self._draw_worst(result, mag[w], phase[w])
         if self._fit_pending:
@@ -527,8 +692,10 @@ class BodeView(QWidget):
         else:
             for item in (self._pm_bar, self._pm_ref, self._fc_dot_mag, self._fc_dot_phase, self._pm_text):
                 item.setVisible(False)
+        state = str(gm_state(m)[w])
         x180 = hz_to_view(f180)
-        if math.isfinite(x180) and math.isfinite(gm):
+        # a marker only for a gain margin loopkit reports as a number (never at a phase crossover beyond fsw/2)
+        if state == "number" and math.isfinite(x180) and math.isfinite(gm) and x180 <= self._x_half + 1e-9:
             self._gm_bar.setData([x180, x180], [-gm, 0.0])
             self._f180_dot_mag.set_pos(x180, -gm)
             self._f180_dot.set_pos(x180, float(np.interp(x180, x, phase_w)))
@@ -536,9 +703,23 @@ class BodeView(QWidget):
             self._place_label(self._gm_text, x180, -gm / 2)
             for item in (self._gm_bar, self._f180_dot_mag, self._f180_dot, self._gm_text):
                 item.setVisible(True)
+            self._gm_word.setVisible(False)
         else:
             for item in (self._gm_bar, self._f180_dot_mag, self._f180_dot, self._gm_text):
                 item.setVisible(False)
+            word = GM_WORDS.get(state, GM_WORDS["none"])
+            if self._gm_word_state != state:
+                self._gm_word_state = state
+                self._gm_word.setText(f"GM {word}")
+                self._gm_word.setToolTip(GM_BEYOND_TIP if state == "beyond-model" else
+                                         "The phase does not reach −180° with |T| < 1 below fsw/2")
+            self._place_gm_word()
+            self._gm_word.setVisible(True)
+
+    def _place_gm_word(self) -> None:
+        """At the fsw/2 edge, high in the plot where the loop gain is low (clear of the curves)."""
+        (_, _), (y0, y1) = self.mag.getViewBox().viewRange()
+        self._gm_word.setPos(self._x_half, y1 - 0.2 * (y1 - y0))
 
     def _place_label(self, item, x: float, y: float) -> None:
         """Put a marker label beside its bar: to the right, or to the left near the right edge."""
@@ -579,6 +760,7 @@ class BodeView(QWidget):
         self.mag.setXRange(x[0], x[-1], padding=0.0)
         self.mag.setYRange(lo_db, hi_db, padding=0.0)
         self.phase.setYRange(lo_ph, hi_ph, padding=0.0)
+        self._place_gm_word()
 
     # ------------------------------------------------------------------ marker -> model
     def _on_marker_position_changed(self, line) -> None:
@@ -600,15 +782,3 @@ class BodeView(QWidget):
             exporter = ex.ImageExporter(self.canvas.scene())  # at screen scale: pyqtgraph does not scale the legend
         exporter.export(str(path))
 
-
-def _wrap(text: str, width: int) -> str:
-    words, lines, line = text.split(), [], ""
-    for w in words:
-        if len(line) + len(w) + 1 > width and line:
-            lines.append(line)
-            line = w
-        else:
-            line = f"{line} {w}".strip()
-    if line:
-        lines.append(line)
-    return "\n".join(lines)

@@ -8,7 +8,9 @@ are the same numbers the corner table shows at the design's own corners.
 
 from __future__ import annotations
 
+import sys
 import threading
+import traceback
 from dataclasses import replace
 
 import numpy as np
@@ -80,8 +82,10 @@ class SweepWorker(QObject):
         except DesignError as exc:
             self.failed.emit(str(exc))
             return
-        except Exception as exc:  # noqa: BLE001 - reported in the dialog
-            self.failed.emit(f"internal error: {exc!r}")
+        except Exception as exc:  # noqa: BLE001 - reported in the dialog (and logged): a loopkit bug
+            traceback.print_exception(exc, file=sys.stderr)
+            self.failed.emit(f"loopkit could not compute this sweep ({type(exc).__name__}: {exc}); please report it"
+                             f" with the design file.")
             return
         self.finished.emit({k: np.concatenate(v) for k, v in out.items()})
 

@@ -11,7 +11,7 @@ import math
 
 import numpy as np
 from PySide6.QtCore import QSignalBlocker, Qt, Signal
-from PySide6.QtWidgets import QComboBox, QGridLayout, QLabel, QSlider, QWidget
+from PySide6.QtWidgets import QComboBox, QGridLayout, QHBoxLayout, QLabel, QSlider, QWidget
 
 from loopkit import DesignError, format_value, parse_value
 from loopkit.design import NETWORKS
@@ -19,11 +19,14 @@ from loopkit.design import NETWORKS
 from .fields import ValueEdit, mark
 from .forms import NETWORK_NAMES
 
-__all__ = ["TargetsBar", "nice_hz"]
+__all__ = ["PM_SLIDER_MIN_PX", "TargetsBar", "nice_hz"]
 
 _FC_STEPS = 1000
-_PM_SCALE = 2  # slider units per degree (0.5 deg steps)
+_PM_SCALE = 1  # slider units per degree: one arrow key or a few pixels of drag is 1 deg
+_PM_PAGE_DEG = 5  # Page Up/Down, or a click beside the handle
 _PM_RANGE = (20.0, 85.0)
+#: The phase-margin slider is at least this wide: about 5 px per degree over its range.
+PM_SLIDER_MIN_PX = 5 * int(_PM_RANGE[1] - _PM_RANGE[0])
 _SPLIT_RANGE = (5, 95)  # percent
 
 
@@ -57,10 +60,9 @@ class TargetsBar(QWidget):
 
         self.network = QComboBox()
         self.network.setObjectName("compensator.network")
-        self.network.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
-        self.network.setMinimumContentsLength(16)
         for n in NETWORKS:
             self.network.addItem(NETWORK_NAMES[n], n)
+        self.network.setSizeAdjustPolicy(QComboBox.AdjustToContents)  # every network's name in full
         self.network.activated.connect(self._on_network_activated)
 
         self.fc_slider = QSlider(Qt.Horizontal)
@@ -74,43 +76,56 @@ class TargetsBar(QWidget):
         self.pm_slider = QSlider(Qt.Horizontal)
         self.pm_slider.setObjectName("pm_slider")
         self.pm_slider.setRange(int(_PM_RANGE[0] * _PM_SCALE), int(_PM_RANGE[1] * _PM_SCALE))
-        self.pm_slider.setToolTip("Phase-margin target at the design corner")
+        self.pm_slider.setSingleStep(_PM_SCALE)
+        self.pm_slider.setPageStep(_PM_PAGE_DEG * _PM_SCALE)
+        self.pm_slider.setTickPosition(QSlider.TicksBelow)
+        self.pm_slider.setTickInterval(_PM_PAGE_DEG * _PM_SCALE)
+        self.pm_slider.setToolTip(f"Phase-margin target at the design corner, {_PM_RANGE[0]:g}-{_PM_RANGE[1]:g}°: "
+                                  f"1° per arrow key, {_PM_PAGE_DEG}° per Page Up/Down (ticks every "
+                                  f"{_PM_PAGE_DEG}°); type any other value in the box")
         self.pm_edit = ValueEdit("compensator.pm", "", plain=True)
         self.pm_edit.setFixedWidth(78)
         self.pm_edit.set_help("Phase-margin target, degrees")
 
-        self.split_label = QLabel("Type III boost from zeros")
+        self.split_label = QLabel("Boost split")
         self.split_slider = QSlider(Qt.Horizontal)
         self.split_slider.setObjectName("split_slider")
         self.split_slider.setRange(*_SPLIT_RANGE)
         self.split_slider.setToolTip("Type III: share of the phase boost placed by the zero pair (rest: pole pair)")
         self.split_value = QLabel()
-        self.split_value.setFixedWidth(40)
+        self.split_value.setFixedWidth(34)
 
         self.vin_slider = QSlider(Qt.Horizontal)
         self.vin_slider.setObjectName("vin_slider")
         self.vin_slider.setToolTip("Highlight the corners at one input voltage (leftmost: none)")
         self.vin_value = QLabel()
-        self.vin_value.setFixedWidth(90)
-        for s in (self.fc_slider, self.pm_slider, self.split_slider, self.vin_slider):
+        self.vin_value.setFixedWidth(78)
+        for s in (self.fc_slider, self.vin_slider):
             s.setMinimumWidth(120)
+        self.split_slider.setMinimumWidth(60)
+        self.pm_slider.setMinimumWidth(PM_SLIDER_MIN_PX)
+        self.split_label.setToolTip(self.split_slider.toolTip())
 
-        grid.addWidget(QLabel("Crossover target"), 0, 0)
-        grid.addWidget(self.fc_slider, 0, 1)
-        grid.addWidget(self.fc_edit, 0, 2)
-        grid.addWidget(QLabel("Network"), 0, 3)
-        grid.addWidget(self.network, 0, 4, 1, 2)
-        grid.addWidget(QLabel("Phase margin (°)"), 1, 0)
-        grid.addWidget(self.pm_slider, 1, 1)
-        grid.addWidget(self.pm_edit, 1, 2)
-        grid.addWidget(self.split_label, 1, 3)
-        grid.addWidget(self.split_slider, 1, 4)
-        grid.addWidget(self.split_value, 1, 5)
-        grid.addWidget(QLabel("Highlight Vin"), 2, 0)
-        grid.addWidget(self.vin_slider, 2, 1)
-        grid.addWidget(self.vin_value, 2, 2, 1, 2)
-        grid.setColumnStretch(1, 3)
-        grid.setColumnStretch(4, 2)
+        # row 0: the network and (Type III) the boost split; then one full-width row per slider
+        top = QHBoxLayout()
+        top.setSpacing(6)
+        top.addWidget(self.network)
+        top.addSpacing(12)
+        top.addWidget(self.split_label)
+        top.addWidget(self.split_slider, 1)
+        top.addWidget(self.split_value)
+        grid.addWidget(QLabel("Network"), 0, 0)
+        grid.addLayout(top, 0, 1, 1, 2)
+        grid.addWidget(QLabel("Crossover target"), 1, 0)
+        grid.addWidget(self.fc_slider, 1, 1)
+        grid.addWidget(self.fc_edit, 1, 2)
+        grid.addWidget(QLabel("Phase margin (°)"), 2, 0)
+        grid.addWidget(self.pm_slider, 2, 1)
+        grid.addWidget(self.pm_edit, 2, 2)
+        grid.addWidget(QLabel("Highlight Vin"), 3, 0)
+        grid.addWidget(self.vin_slider, 3, 1)
+        grid.addWidget(self.vin_value, 3, 2)
+        grid.setColumnStretch(1, 1)
 
         for slider in (self.fc_slider, self.pm_slider, self.split_slider):
             slider.sliderPressed.connect(model.begin_preview)

@@ -36,7 +36,7 @@ from loopkit.loop import LoopSession, Targets
 
 from .undo import DesignStep
 
-__all__ = ["TARGET_FIELDS", "DesignModel", "starter_design"]
+__all__ = ["HEAVY_CORNERS", "RESULTS_KEPT", "TARGET_FIELDS", "DesignModel", "starter_design"]
 
 #: Compensator fields that are loop targets: changing them re-runs the session only.
 TARGET_FIELDS = ("network", "fc", "pm", "boost_split", "design_corner", "method", "resistor_series",
@@ -46,6 +46,8 @@ _FRAME_S = 1.0 / 60.0
 
 #: Designs with more corners than this are computed in a worker thread when edited.
 HEAVY_CORNERS = 60
+#: Results of the current session kept for targets visited again (a drag back and forth, undo/redo).
+RESULTS_KEPT = 24
 
 _PATH_TOKEN = re.compile(r"([A-Za-z_][A-Za-z0-9_]*)(?:\[(\d+)\])?")
 
@@ -162,7 +164,7 @@ class DesignModel(QObject):
     compute_failed = Signal(str)
     busy_changed = Signal(bool, str)
 
-    def __init__(self, design: Design | None = None, parent=None):
+    def __init__(self, design: Design | None = None, parent=None, path: str = ""):
         super().__init__(parent)
         self.undo_stack = QUndoStack(self)
         self.undo_stack.cleanChanged.connect(self._on_clean_changed)
@@ -179,11 +181,15 @@ class DesignModel(QObject):
         self._job_signals = _JobSignals(self)
         self._job_signals.done.connect(self._on_job_done)
         self._last_compute_s = 0.0
+        self._kept: dict = {}  # Targets -> LoopResult of the current session, oldest first
+        #: (field, error) of every failure other than a DesignError (a loopkit bug: bad input not refused).
+        self.unexpected_errors: list[tuple[str, str]] = []
+        self._kept_next: dict | None = None
         self._queued_preview: Design | None = None
         self._preview_timer = QTimer(self)
         self._preview_timer.setSingleShot(True)
         self._preview_timer.timeout.connect(self._flush_preview)
-        self.reset(design or starter_design())
+        self.reset(design or starter_design(), str(Path(path).resolve()) if path else "")
 
     # ------------------------------------------------------------------ state
     @property
@@ -227,7 +233,14 @@ class DesignModel(QObject):
         return targets, session.run(None if design.compensator.parts else targets)
 
     def _compute(self, design: Design):
-        """(session, targets, result) for ``design``; raises DesignError for input it cannot use."""
+        """(session, targets, result) for ``design``; raises DesignError for input it cannot use.
+
+        Results of the current session are kept for the last :data:`RESULTS_KEPT`
+        target sets (synthesised parts only): a drag that comes back over
+        targets it passed, or an undo, redraws without recomputing.  The result
+        is the library's own for those targets (a run is a pure function of the
+        session and the targets).
+        """
         if self._prepared is not None and self._prepared[0] is design:
             return self._prepared[1:]
         t0 = time.perf_counter()
@@ -235,9 +248,28 @@ class DesignModel(QObject):
             session = self._session
         else:
             session = LoopSession(design)
-        targets, result = self._run(session, design)
+        key = None if design.compensator.parts else Targets.from_design(design)
+        kept = self._kept if session is self._session else {}
+        if key is not None and key in kept:
+            targets, result = key, kept.pop(key)
+        else:
+            targets, result = self._run(session, design)
+        if key is not None:
+            kept[key] = result
+            while len(kept) > RESULTS_KEPT:
+                kept.pop(next(iter(kept)))
+        self._kept_next = kept
         self._last_compute_s = time.perf_counter() - t0
         return session, targets, result
+
+    def _unexpected(self, field: str, exc: BaseException) -> str:
+        """The words for a failure loopkit should have refused as bad input: the edit is not applied, the
+        field is named, the error is logged (stderr and :attr:`unexpected_errors`) to be reported."""
+        traceback.print_exception(exc, file=sys.stderr)
+        self.unexpected_errors.append((field, repr(exc)))
+        where = f"{field}: " if field else ""
+        return (f"{where}loopkit cannot compute the loop with this value ({type(exc).__name__}: {exc}); "
+                f"the last valid design stays. Please report it with the design file.")
 
     def _apply(self, design: Design) -> None:
         """Make ``design`` current (called by undo steps and by :meth:`reset`)."""
@@ -249,12 +281,13 @@ class DesignModel(QObject):
             self.compute_failed.emit(str(exc))
             return
         except Exception as exc:  # noqa: BLE001 - never a traceback dialog; keep the last good state
-            traceback.print_exc(file=sys.stderr)
-            self.compute_failed.emit(f"internal error while computing the loop: {exc!r}")
+            self.compute_failed.emit(self._unexpected("", exc))
             return
         finally:
             self._prepared = None
         structural = session is not self._session
+        self._kept = self._kept_next if self._kept_next is not None else ({} if structural else self._kept)
+        self._kept_next = None
         old_targets = self._targets
         self._design, self._session, self._targets, self._result = design, session, targets, result
         if structural:
@@ -289,9 +322,8 @@ class DesignModel(QObject):
         except DesignError as exc:
             self.field_invalid.emit(field, str(exc))
             return False
-        except Exception as exc:  # noqa: BLE001
-            traceback.print_exc(file=sys.stderr)
-            self.field_invalid.emit(field, f"internal error while computing the loop: {exc!r}")
+        except Exception as exc:  # noqa: BLE001 - refused at the field like bad input, logged as a bug
+            self.field_invalid.emit(field, self._unexpected(field, exc))
             return False
         self._prepared = (design, session, targets, result)
         self.undo_stack.push(DesignStep(self, self._design, design, text, merge_key))
@@ -325,8 +357,7 @@ class DesignModel(QObject):
         self._pending = None
         self.busy_changed.emit(False, "")
         if isinstance(outcome, BaseException):
-            message = str(outcome) if isinstance(outcome, DesignError) else (
-                f"internal error while computing the loop: {outcome!r}")
+            message = str(outcome) if isinstance(outcome, DesignError) else self._unexpected(field, outcome)
             self.field_invalid.emit(field, message)
             return
         self._prepared = (design, *outcome)

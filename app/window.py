@@ -64,6 +64,7 @@ class MainWindow(QMainWindow):
         self.recent = RecentFiles(self._data_dir)
         self.recovery = Recovery(self._data_dir)
         self._autosaved_text = None
+        self._status_error: str | None = None
         self.resize(1400, 900)
 
         central = QWidget()
@@ -89,7 +90,7 @@ class MainWindow(QMainWindow):
         cl.addWidget(self.targets_bar)
         self.side_tabs = QTabWidget()
         self.side_tabs.setObjectName("side_tabs")
-        self.side_tabs.setMinimumWidth(330)
+        self.side_tabs.setMinimumWidth(340)
         self.side_tabs.addTab(self.corners, "Corners and warnings")
         self.side_tabs.addTab(self.parts, "Parts")
         self.splitter = QSplitter(Qt.Horizontal)
@@ -97,7 +98,8 @@ class MainWindow(QMainWindow):
         self.splitter.addWidget(centre)
         self.splitter.addWidget(self.side_tabs)
         self.splitter.setStretchFactor(1, 1)
-        self.splitter.setSizes([362, 658, 380])
+        # the side panel wide enough for the network drawing's labels to be read (about 0.75 of its size)
+        self.splitter.setSizes([362, 560, 478])
         outer.addWidget(self.splitter, 1)
         self.setCentralWidget(central)
 
@@ -108,6 +110,8 @@ class MainWindow(QMainWindow):
         self.parts.export_requested.connect(self._on_export_requested)
         self.form.message.connect(self._on_form_message)
         self.model.field_invalid.connect(self._on_field_invalid)
+        self.model.field_valid.connect(self._on_value_applied)
+        self.model.results_changed.connect(self._on_value_applied)
         self.model.compute_failed.connect(self._on_compute_failed)
         self.model.dirty_changed.connect(self._on_dirty_changed)
         self.model.path_changed.connect(self._on_path_changed)
@@ -243,12 +247,23 @@ class MainWindow(QMainWindow):
     def _on_path_changed(self, path: str) -> None:
         self._update_title()
 
+    def _show_error(self, message: str) -> None:
+        """A rejection in the status bar, until a valid value is applied (or 20 s pass)."""
+        self.statusBar().showMessage(message, 20000)
+        self._status_error = message
+
+    def _on_value_applied(self, *_) -> None:
+        """A value was accepted: an error still shown in the status bar no longer holds."""
+        if self._status_error is not None and self.statusBar().currentMessage() == self._status_error:
+            self.statusBar().clearMessage()
+        self._status_error = None
+
     def _on_field_invalid(self, field: str, message: str) -> None:
-        self.statusBar().showMessage(f"Not applied — {message}", 20000)
+        self._show_error(f"Not applied — {message}")
 
     def _on_form_message(self, message: str) -> None:
         if message:
-            self.statusBar().showMessage(f"Not applied — {message}", 20000)
+            self._show_error(f"Not applied — {message}")
 
     def _on_busy_changed(self, busy: bool, text: str) -> None:
         for w in (self.busy_label, self.busy_bar, self.busy_cancel):
@@ -258,7 +273,7 @@ class MainWindow(QMainWindow):
             self.statusBar().showMessage("Computation cancelled: the previous design stays.", 5000)
 
     def _on_compute_failed(self, message: str) -> None:
-        self.statusBar().showMessage(message, 20000)
+        self._show_error(message)
 
     # ------------------------------------------------------------------ marker
     def _on_marker_moved(self, f_hz: float) -> None:

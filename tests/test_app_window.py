@@ -28,6 +28,7 @@ from app.viewmodel import DesignModel
 from app.window import MainWindow
 from loopkit import export, format_value, load_design
 from loopkit.loop import Targets, design_loop
+from loopkit.margins import GM_WORDS, gm_state
 
 ROOT = __import__("conftest").ROOT
 SAMPLES = __import__("conftest").SAMPLES
@@ -86,14 +87,16 @@ def table_margins(window) -> list[tuple[str, str, str]]:
 
 
 def expected_rows(result) -> list[tuple[str, str, str]]:
-    """The table's texts written out here: fc in engineering notation (Hz), PM (deg) and GM (dB) to 0.1."""
+    """The table's texts written out here: fc in engineering notation (Hz), PM (deg) and GM (dB) to 0.1;
+    a gain margin that is not a number in the words the CLI and the JSON use (``GM_WORDS`` by ``gm_state``)."""
     m = result.margins
+    states = gm_state(m)
     rows = []
     for k in range(result.stage.n_corners):
         fc, pm, gm = float(m.fc_hz[k]), float(m.pm_deg[k]), float(m.gm_db[k])
         rows.append((format_value(fc, digits=3) if np.isfinite(fc) else "none",
                      f"{pm:.1f}" if np.isfinite(pm) else "—",
-                     "∞" if gm == np.inf else f"{gm:.1f}"))
+                     f"{gm:.1f}" if states[k] == "number" else GM_WORDS[str(states[k])]))
     return rows
 
 
@@ -115,7 +118,8 @@ def assert_shows(window, want) -> None:
     assert table_margins(window) == expected_rows(want)
     w = want.worst_corner
     text = window.readout.worst.text()
-    assert pm_text(float(want.margins.pm_deg[w])) in text and gm_text(float(want.margins.gm_db[w])) in text
+    state = str(gm_state(want.margins)[w])
+    assert pm_text(float(want.margins.pm_deg[w])) in text and gm_text(float(want.margins.gm_db[w]), state) in text
     assert window.corners.table.item(w, 0).text().startswith("▶")
     window.side_tabs.setCurrentWidget(window.parts)  # the hidden tab catches up when shown
     shown_parts = {window.parts.table.item(r, 0).text(): window.parts.table.item(r, 2).text()
@@ -149,6 +153,10 @@ def test_sample_shows_cli_margins(window, sample_path, cli_json):
             got = float(getattr(result.margins, name)[k])
             want = corner[name]
             assert (want is None and not np.isfinite(got)) or got == want, (k, name, got, want)
+    # the GM column says what `loopkit design --json` says: its number, or the word for its gm_state
+    shown = [row[2] for row in table_margins(window)]
+    assert shown == [f"{c['gm_db']:.1f}" if c["gm_state"] == "number" else GM_WORDS[c["gm_state"]]
+                     for c in doc["corners"]]
     assert_shows(window, design_loop(load_design(sample_path)))
     assert window.windowTitle().startswith(sample_path.name)
 
@@ -179,12 +187,29 @@ def test_phase_margin_slider_by_keyboard(window, qtbot):
     pm0 = model.targets.pm_deg
     for _ in range(4):
         qtbot.keyClick(slider, Qt.Key_Right)
-    assert model.targets.pm_deg == pm0 + 4 / 2
+    assert model.targets.pm_deg == pm0 + 4  # one degree per arrow key
+    qtbot.keyClick(slider, Qt.Key_PageDown)
+    assert model.targets.pm_deg == pm0 + 4 - 5  # five per page
     assert model.undo_stack.count() == 1  # the key steps merge
     design = load_design(SAMPLES[0])
-    assert_shows(window, design_loop(design, replace(Targets.from_design(design), pm_deg=pm0 + 2)))
+    assert_shows(window, design_loop(design, replace(Targets.from_design(design), pm_deg=pm0 - 1)))
     model.undo_stack.undo()
-    assert model.targets.pm_deg == pm0 and slider.value() == round(pm0 * 2)
+    assert model.targets.pm_deg == pm0 and slider.value() == round(pm0)
+
+
+def test_phase_margin_slider_spacing(window):
+    """A hand sets the PM target to the degree: at the default size every degree is >= 4 px of travel."""
+    from PySide6.QtWidgets import QStyle, QStyleOptionSlider
+
+    slider = window.targets_bar.pm_slider
+    settle(0.05)
+    opt = QStyleOptionSlider()
+    slider.initStyleOption(opt)
+    handle = slider.style().subControlRect(QStyle.CC_Slider, opt, QStyle.SC_SliderHandle, slider)
+    travel_px = slider.width() - handle.width()
+    degrees = slider.maximum() - slider.minimum()
+    assert slider.singleStep() == 1 and slider.pageStep() == 5
+    assert travel_px / degrees >= 4.0, (travel_px, degrees)
 
 
 def test_marker_drag_matches_library(window, sample_path):
@@ -277,6 +302,7 @@ def test_invalid_field_shows_message_and_keeps_design(window, qtbot, key, text, 
     assert field.property("invalid") is False
     assert not window.form.error_strip.isVisible()
     assert model.design is not before
+    assert window.statusBar().currentMessage() == ""  # the rejection no longer holds: it leaves the status bar
 
 
 def test_invalid_topology_change_reverts(window):
@@ -507,7 +533,8 @@ def test_plant_and_compensator_toggles(window):
     assert window.bode.plant_mag.isVisible()
     np.testing.assert_array_equal(window.bode.plant_mag.curve(0), 20 * np.log10(np.abs(r.plant_resp[0])))
     np.testing.assert_array_equal(window.bode.plant_phase.curve(0), r.stage.gvd.phase_deg(r.f_hz)[0])
-    np.testing.assert_array_equal(window.bode._comp_phase.yData, (-r.compensator).phase_deg(r.f_hz)[0])
+    # the compensator Gc with the sign `loopkit bode --compensator` prints (Rational.bode of result.compensator)
+    np.testing.assert_array_equal(window.bode._comp_phase.yData, r.compensator.bode(r.f_hz)[1][0])
     window.plant_action.setChecked(False)
     assert not window.bode.plant_mag.isVisible()
 

@@ -4,6 +4,7 @@
 
 States: every sample design as it opens; a crossover-marker drag in progress;
 an invalid field with its message; the parts panel with the network drawing;
+a gain margin beyond fsw/2; targets that cannot be met (infeasible);
 the plant and compensator shown with the loop; a highlighted input voltage;
 the dense input-voltage sweep.  The app's data folder is a temporary one, so
 nothing of the user's (recent files, recovery copies) is touched or shown.
@@ -99,6 +100,19 @@ def main(argv=None) -> int:
     ready()
     shot("parts-panel")
     window.side_tabs.setCurrentWidget(window.corners)
+
+    # every corner's -180 deg crossing above fsw/2: the gain margin in loopkit's words, no marker
+    shot("gm-beyond-half-fsw")
+
+    # targets that cannot be met: the plant, the last feasible loop and the library's reason
+    boost = next(p for p in samples if p.stem.startswith("boost"))
+    window.open_path(boost, ask=False)
+    ready()
+    window.model.set_targets("Infeasible targets", pm=85.0, fc=window.model.targets.fc_hz * 3)
+    shot("infeasible-target")
+    window.model.undo_stack.undo()
+    window.open_path(buck, ask=False)
+    ready()
 
     # plant and compensator with the loop, one input voltage highlighted
     window.plant_action.setChecked(True)
