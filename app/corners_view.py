@@ -24,12 +24,13 @@ from PySide6.QtWidgets import (
 )
 
 from loopkit import format_value
-from loopkit.loop import GM_WARN_DB
 from loopkit.margins import GM_WORDS, gm_state
 
 __all__ = ["COLUMNS", "GM_BEYOND_TIP", "CornersView", "below_target", "fc_text", "gm_cell", "gm_text", "pm_text"]
 
-COLUMNS = ("Vin (V)", "Load (A)", "Mode", "fc (Hz)", "PM (°)", "GM (dB)")
+COLUMNS = ("Vin (V)", "Load (A)", "Mode", "fc (Hz)", "PM (°)", "GM (dB)", "Qp")
+#: The Qp column (peak current mode's sampling double pole) shows only under current mode.
+_QP_COLUMN = COLUMNS.index("Qp")
 _WORST_BG = QColor("#fff1c9")
 _BAD_FG = QColor("#b02a00")
 _LOW_FG = QColor("#b36b00")
@@ -168,6 +169,9 @@ class CornersView(QWidget):
         states = gm_state(m) if m is not None else None
         worst = result.worst_corner
         modes = stage.mode
+        figures = result.open_loop.figures if result.open_loop is not None else {}
+        qp = figures.get("qp")
+        self.table.setColumnHidden(_QP_COLUMN, qp is None)
         if fresh:
             self._worst_row = -2  # restyle the worst row of the new table
         with QSignalBlocker(self.table):
@@ -178,13 +182,15 @@ class CornersView(QWidget):
                     mode = sub if mode == "CCM" else f"{mode} {sub}"
                 if m is None:
                     vin, load = cell_texts(stage.vin[k], stage.load[k], math.nan, math.nan, math.nan)[:2]
-                    cells = [vin, load, mode, "—", "—", "—"]
+                    cells = [vin, load, mode, "—", "—", "—", ""]
                     for c in (4, 5):
                         self.table.item(k, c).setForeground(QBrush())
                 else:
                     vin, load, fc, pm, gm = cell_texts(stage.vin[k], stage.load[k], float(m.fc_hz[k]),
                                                        float(m.pm_deg[k]), float(m.gm_db[k]), str(states[k]))
-                    cells = [vin, load, mode, fc, pm, gm]
+                    cells = [vin, load, mode, fc, pm, gm, ""]
+                if qp is not None:
+                    cells[_QP_COLUMN] = "—" if stage.dcm[k] or not math.isfinite(qp[k]) else f"{qp[k]:.2f}"
                 is_worst = k == worst
                 restyle = k in (worst, self._worst_row) and worst != self._worst_row
                 for c, text in enumerate(cells):
@@ -205,7 +211,7 @@ class CornersView(QWidget):
                     low = below_target(pm_k, self._model.targets.pm_deg)
                     self.table.item(k, 4).setForeground(
                         QBrush(_BAD_FG) if bad else QBrush(_LOW_FG) if low else QBrush())
-                    gm_low = states[k] == "number" and below_target(gm_k, GM_WARN_DB)
+                    gm_low = states[k] == "number" and below_target(gm_k, self._model.targets.gm_db)
                     gm_item.setForeground(QBrush(_BAD_FG) if gm_low and gm_k <= 0 else
                                           QBrush(_LOW_FG) if gm_low else QBrush())
         if m is None:
@@ -215,7 +221,9 @@ class CornersView(QWidget):
                     f"model does not predict it." if (states == "beyond-model").any() else "")
             self.caption.setText(f"{n} corners; ▶ marks the worst (lowest phase margin). Margins with the "
                                  f"snapped parts; amber: below the PM target ({self._model.targets.pm_deg:g}°) or GM "
-                                 f"below {GM_WARN_DB:g} dB.{note}")
+                                 f"below its target ({self._model.targets.gm_db:g} dB).{note}"
+                                 + (" Qp: Q of current mode's sampling double pole at fsw/2 (about 1 is usual)."
+                                    if qp is not None else ""))
         self._worst_row = worst
         self._fill_findings(result.findings)
 

@@ -1,4 +1,4 @@
-"""The design form: power stage, operating range, sensing, modulator, compensator.
+"""The design form: power stage, operating range, sensing, modulator, control scheme, compensator.
 
 Every field edits one design-file key through :meth:`DesignModel.edit`; the
 model answers with ``field_valid`` / ``field_invalid`` and the field shows
@@ -23,8 +23,10 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from loopkit.design import TOPOLOGIES
+from loopkit.design import SCHEMES, TOPOLOGIES
+from loopkit.networks import NETWORKS, network_module, network_title
 from loopkit.powerstage import corner_label
+from loopkit.schemes import scheme_module
 
 from .fields import ChoiceBox, CountBox, FlagBox, ListEdit, ValueEdit
 
@@ -37,13 +39,11 @@ TOPOLOGY_NAMES = {
     "four-switch-buck-boost": "Four-switch buck-boost",
     "flyback": "Flyback",
 }
-NETWORK_NAMES = {
-    "type1": "Type I (integrator)",
-    "type2": "Type II, op-amp",
-    "type3": "Type III, op-amp",
-    "gm-type2": "Type II, gm amplifier",
-    "opto-type2": "Type II, optocoupler + shunt reference",
-}
+#: Each network's title, from its own module.
+NETWORK_NAMES = {name: network_title(name) for name in NETWORKS}
+#: The sense gain filled in when the user switches to current mode and the design has none: a
+#: starting value to edit (0.1 ohm: a 10 mohm shunt with a gain-of-10 amplifier), not a recommendation.
+DEFAULT_SENSE_GAIN_OHM = 0.1
 _NOTATION = "Engineering notation: 4.7u, 400k, 2m2, 0.5 (a unit may follow: 400kHz, 22uF)"
 
 
@@ -200,6 +200,18 @@ class DesignForm(QScrollArea):
         self._value(f, "modulator.max_duty", "Maximum duty", "", plain=True)
         self._add(f, "", FlagBox("modulator.feedforward", "Vin feed-forward"))
 
+        f = self._group("Control scheme")
+        self._add(f, "Scheme", ChoiceBox("control.scheme", [(scheme_module(name).TITLE.capitalize(), name)
+                                                             for name in SCHEMES]),
+                  "Voltage mode (PWM ramp) or peak current mode (the switch turns off at a current threshold)")
+        self._value(f, "control.sense_gain", "Current-sense gain", "Ω",
+                    "Sense resistance times amplifier gain (flyback: primary current)")
+        self._value(f, "control.slope", "Slope compensation", "V/s",
+                    "External ramp at the comparator; empty: chosen for Qp = 1 at the worst corner",
+                    zero_text="none")
+        self._value(f, "control.current_limit", "Peak current limit", "A", "Empty: not checked",
+                    zero_text="not checked")
+
         f = self._group("Compensator")
         self._add(f, "Design at", ChoiceBox("compensator.design_corner", [("Worst corner", None)]),
                   "The corner the synthesis places poles and zeros for")
@@ -337,6 +349,23 @@ class DesignForm(QScrollArea):
         self._set_row_visible("stage.buck_max_duty", topo == "four-switch-buck-boost")
         self._set_row_visible("stage.boost_min_duty", topo == "four-switch-buck-boost")
         self._set_row_visible("stage.diode_drop", st.rectifier == "diode")
+        ctl = design.control
+        current_mode = ctl.scheme == "peak-current"
+        w = self._widgets["control.scheme"]
+        with QSignalBlocker(w):
+            w.set_choice(ctl.scheme)
+        for key, value in (("control.sense_gain", ctl.sense_gain), ("control.current_limit", ctl.current_limit),
+                           ("control.slope", ctl.slope)):
+            w = self._widgets[key]
+            with QSignalBlocker(w):
+                if value is None:
+                    w.clear_value()
+                else:
+                    w.set_value(value)
+        for key in ("control.sense_gain", "control.slope", "control.current_limit"):
+            self._set_row_visible(key, current_mode)
+        for key in ("modulator.ramp", "modulator.feedforward"):
+            self._set_row_visible(key, not current_mode)
         self._set_row_visible("sensing.diff_bandwidth", se.kind == "differential")
         self._set_row_visible("sensing.divider_current", se.kind == "divider")
         self._targets_key = None
@@ -355,13 +384,13 @@ class DesignForm(QScrollArea):
         self._update_parts_note()
 
     def _network_rows(self, network: str) -> None:
-        opamp = network in ("type1", "type2", "type3")
+        amplifier = network_module(network).AMPLIFIER  # which amplifier fields the network uses
         for key in ("gain_db", "gbw"):
-            self._set_row_visible(f"compensator.opamp.{key}", opamp)
+            self._set_row_visible(f"compensator.opamp.{key}", amplifier == "op-amp")
         for key in ("gm", "r_out"):
-            self._set_row_visible(f"compensator.opamp.{key}", network == "gm-type2")
+            self._set_row_visible(f"compensator.opamp.{key}", amplifier == "transconductance")
         for key in ("ctr", "r_pull", "r_led", "c_opto"):
-            self._set_row_visible(f"compensator.opto.{key}", network == "opto-type2")
+            self._set_row_visible(f"compensator.opto.{key}", amplifier == "optocoupler")
 
     def _update_parts_note(self) -> None:
         if self._model.parts_given:
@@ -423,8 +452,16 @@ class DesignForm(QScrollArea):
             return
         if key == "operating.vin_nominal" and value == "":
             value = None
-        if key.startswith("compensator.opto.") and value == "":
+        if (key.startswith("compensator.opto.") or key in ("control.slope", "control.current_limit")) and value == "":
             value = None
+        if key == "control.scheme":
+            changes = {key: value}
+            if value == "peak-current" and not self._model.design.control.sense_gain:
+                changes["control.sense_gain"] = DEFAULT_SENSE_GAIN_OHM
+            for name in ("slope", "slope_amplitude", "slope_ratio"):  # a new scheme starts from the automatic slope
+                changes[f"control.{name}"] = None
+            self._model.edit(changes, "Change control scheme", key)
+            return
         if key in ("operating.vin_min", "operating.vin_max", "operating.vin_points"):
             return  # applied by the Fill button
         self._model.edit({key: value}, f"Change {label.lower()}", key)

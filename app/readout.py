@@ -9,18 +9,16 @@ from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QLabel, QWidget
 
 from loopkit import format_value
-from loopkit.loop import GM_WARN_DB
 from loopkit.margins import gm_state
 from loopkit.powerstage import corner_label
 
 from .corners_view import GM_BEYOND_TIP, below_target, fc_text, gm_text, pm_text
 from .forms import NETWORK_NAMES
 
-__all__ = ["GM_TARGET_DB", "MarginsReadout", "infeasible_reason"]
+__all__ = ["MarginsReadout", "infeasible_reason"]
 
 _OK, _LOW, _BAD, _GREY = "#0a7d32", "#b36b00", "#b02a00", "#555"
 #: The gain-margin level the read-out and the table hold every corner to: loopkit's own warning level.
-GM_TARGET_DB = GM_WARN_DB
 _REASON_CHARS = 110
 
 
@@ -38,7 +36,7 @@ class MarginsReadout(QWidget):
 
     PM is green at or above the user's PM target, amber below it and red when
     a corner is unstable or PM <= 0; GM is green at or above
-    :data:`GM_TARGET_DB`, amber below, red at or below 0 dB and grey (with a
+    the gain-margin target (``compensator.gm_db``), amber below, red at or below 0 dB and grey (with a
     tooltip) where the averaged model cannot tell it (beyond fsw/2).
     """
 
@@ -73,7 +71,7 @@ class MarginsReadout(QWidget):
         source = "given parts" if self._model.parts_given else (
             f"{t.resistor_series}/{t.capacitor_series} parts")
         targets = (f"<span style='color:#555'>Targets: {NETWORK_NAMES.get(result.network, result.network)}, "
-                   f"fc {format_value(t.fc_hz, 'Hz')}, PM ≥ {t.pm_deg:g}°, GM ≥ {GM_TARGET_DB:g} dB · "
+                   f"fc {format_value(t.fc_hz, 'Hz')}, PM ≥ {t.pm_deg:g}°, GM ≥ {t.gm_db:g} dB · "
                    f"{source}</span>")
         if not result.feasible:
             reason = infeasible_reason(result)
@@ -94,13 +92,13 @@ class MarginsReadout(QWidget):
         elif state == "none":
             gm_colour = _OK
         else:
-            gm_colour = _BAD if gm <= 0 else _LOW if below_target(gm, GM_TARGET_DB) else _OK
+            gm_colour = _BAD if gm <= 0 else _LOW if below_target(gm, t.gm_db) else _OK
         if stable_all:
             verdict = "all corners stable"
         else:
             verdict = f"<b style='color:{_BAD}'>UNSTABLE at {int((~m.stable).sum())} corner(s)</b>"
         pm_low = sum(below_target(float(v), t.pm_deg) for v in m.pm_deg)
-        gm_low = sum(s == "number" and below_target(float(v), GM_TARGET_DB) for s, v in zip(states, m.gm_db))
+        gm_low = sum(s == "number" and below_target(float(v), t.gm_db) for s, v in zip(states, m.gm_db))
         misses = [f"{n} corner{'s' if n > 1 else ''} below the {what} target"
                   for n, what in ((pm_low, "PM"), (gm_low, "GM")) if n]
         if misses:

@@ -14,7 +14,7 @@ from PySide6.QtCore import QSignalBlocker, Qt, Signal
 from PySide6.QtWidgets import QComboBox, QGridLayout, QHBoxLayout, QLabel, QSlider, QWidget
 
 from loopkit import DesignError, format_value, parse_value
-from loopkit.design import NETWORKS
+from loopkit.networks import NETWORKS
 
 from .fields import ValueEdit, mark
 from .forms import NETWORK_NAMES

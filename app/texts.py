@@ -1,13 +1,12 @@
 """Words the app shows: the cautions and the about text."""
 
 from loopkit import __version__
-from loopkit.loop import CAUTION
+from loopkit.cautions import CAUTION
 
 __all__ = ["ABOUT_HTML", "CAUTIONS_HTML", "CAUTION_SHORT"]
 
-CAUTION_SHORT = ("A design aid, not a proof: verify every loop on the bench. Converters store energy; batteries "
-                 "deliver large fault currents; mains-connected and high-voltage designs need licensed review "
-                 "and must follow local codes.")
+#: The caution the window shows: loopkit's one caution text.
+CAUTION_SHORT = CAUTION
 
 CAUTIONS_HTML = f"""
 <h3>Before you build from these numbers</h3>

@@ -186,6 +186,7 @@ class DesignModel(QObject):
         self.unexpected_errors: list[tuple[str, str]] = []
         self._kept_next: dict | None = None
         self._queued_preview: Design | None = None
+        self._result_is_preview = False
         self._preview_timer = QTimer(self)
         self._preview_timer.setSingleShot(True)
         self._preview_timer.timeout.connect(self._flush_preview)
@@ -228,9 +229,9 @@ class DesignModel(QObject):
 
     # ------------------------------------------------------------------ computing
     @staticmethod
-    def _run(session: LoopSession, design: Design):
+    def _run(session: LoopSession, design: Design, preview: bool = False):
         targets = Targets.from_design(design)
-        return targets, session.run(None if design.compensator.parts else targets)
+        return targets, session.run(None if design.compensator.parts else targets, preview=preview)
 
     def _compute(self, design: Design):
         """(session, targets, result) for ``design``; raises DesignError for input it cannot use.
@@ -250,11 +251,14 @@ class DesignModel(QObject):
             session = LoopSession(design)
         key = None if design.compensator.parts else Targets.from_design(design)
         kept = self._kept if session is self._session else {}
+        preview = self.previewing  # a drag may reuse the last searched placement; kept results stay pure
         if key is not None and key in kept:
             targets, result = key, kept.pop(key)
+            preview = False
         else:
-            targets, result = self._run(session, design)
-        if key is not None:
+            targets, result = self._run(session, design, preview)
+        self._result_is_preview = preview
+        if key is not None and not preview:
             kept[key] = result
             while len(kept) > RESULTS_KEPT:
                 kept.pop(next(iter(kept)))
@@ -444,10 +448,19 @@ class DesignModel(QObject):
             self._apply(design)
 
     def end_preview(self, text: str) -> None:
-        """Finish the gesture: one undo step from where it started to where it ended."""
+        """Finish the gesture: one undo step from where it started to where it ended.
+
+        A result computed during the drag may have reused the last searched placement; the
+        gesture ends with the library's own answer for the final targets (the CLI's).
+        """
         self._preview_timer.stop()
         self._flush_preview()
         start, self._drag_start = self._drag_start, None
+        if self._result_is_preview and self._session is not None:
+            targets, result = self._run(self._session, self._design)
+            self._result, self._result_is_preview = result, False
+            self._kept[targets] = result
+            self.results_changed.emit(result)
         if start is None or start is self._design or start == self._design:
             return
         # the step's first redo finds ``current`` already applied and does nothing

@@ -53,9 +53,6 @@ __all__ = [
 
 #: Fixed-point steps correcting gain (and boost) for a finite amplifier at the design corner.
 SOLVE_STEPS = 40
-#: Kept for the app's colours until they follow the targets (common practice, no source).
-PM_WARN_DEG = 45.0
-GM_WARN_DB = 6.0
 
 
 def frequency_grid(stage: StageResult, fsw: float, points: int = 1000) -> np.ndarray:
@@ -103,7 +100,8 @@ class LoopSession:
         self.scheme = scheme_module(design.control.scheme).uncompensated(design, self.stage)
         self.uncompensated = self.scheme.tu
         self.open_loop = OpenLoop(self.uncompensated, self.uncompensated.response(self.f_hz),
-                                  self.uncompensated.phase_deg(self.f_hz), self.scheme.gvg, self.scheme.zout)
+                                  self.uncompensated.phase_deg(self.f_hz), self.scheme.gvg, self.scheme.zout,
+                                  dict(self.scheme.figures))
         self.plant_resp = self.stage.gvd.response(self.f_hz)
         self.r1 = _default_r1(design, self.ctx)
         self._searched: dict = {}  # targets (fc left out) -> last searched placement, relative to fc

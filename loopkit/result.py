@@ -54,13 +54,15 @@ class Targets:
 @dataclass(frozen=True, eq=False)
 class OpenLoop:
     """The uncompensated loop Tu per corner and on the analysis grid (response, continuous phase), and the
-    line-to-output and output impedance of the plant with the scheme's inner loops closed."""
+    line-to-output and output impedance of the plant with the scheme's inner loops closed; ``figures`` are the
+    control scheme's own per-corner figures (e.g. ``qp``, ``mc`` of peak current mode)."""
 
     tu: Rational
     resp: np.ndarray
     phase_deg: np.ndarray
     gvg: Rational
     zout: Rational
+    figures: dict = field(default_factory=dict)
 
     def with_network(self, gc: Rational, f_hz: np.ndarray, corner: int | None = None):
         """(T, Gc on the grid, T on the grid, continuous phase of T) with the network ``gc``, every corner or one.
