@@ -39,7 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import DesignError
-from .rational import TWO_PI, _poly_from_factors, _polished_factors
+from .rational import TWO_PI, _polished_factors, _poly_from_factors
 
 __all__ = ["Discrete", "check_sample_time"]
 

@@ -27,7 +27,7 @@ from scipy.signal import tf2ss
 def plant_matrices(num_desc, den_desc):
     """(A, B, C, D) of num/den (descending powers of s, rad/s), balanced by a diagonal similarity."""
     a, b, c, d = tf2ss(np.asarray(num_desc, float), np.asarray(den_desc, float))
-    _, (scale, perm) = matrix_balance(a, permute=False, separate=True)
+    _, (scale, _perm) = matrix_balance(a, permute=False, separate=True)
     a = a * (1.0 / scale)[:, None] * scale[None, :]
     b = b / scale[:, None]
     c = c * scale[None, :]
