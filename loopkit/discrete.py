@@ -41,7 +41,7 @@ import numpy as np
 from .errors import DesignError
 from .rational import TWO_PI, _polished_factors, _poly_from_factors
 
-__all__ = ["Discrete", "check_sample_time"]
+__all__ = ["Discrete", "check_sample_time", "nyquist_grid"]
 
 _PAD = np.array([1.0 + 0j, 0.0 + 0j])
 
@@ -55,6 +55,17 @@ def check_sample_time(ts_s) -> float:
     if not np.isfinite(ts) or ts <= 0:
         raise DesignError("ts_s", ts_s, "the sample period must be a number of seconds > 0")
     return ts
+
+
+def nyquist_grid(ts_s, f_lo_hz: float, points: int = 1000) -> np.ndarray:
+    """Log-spaced frequencies from ``f_lo_hz`` to exactly the Nyquist frequency ``0.5 / ts_s``, Hz."""
+    ts = check_sample_time(ts_s)
+    f_lo = float(f_lo_hz)
+    if not (np.isfinite(f_lo) and 0 < f_lo < 0.5 / ts):
+        raise DesignError("f_lo_hz", f_lo_hz, f"a frequency between 0 and fs/2 = {0.5 / ts:g} Hz")
+    f = np.geomspace(f_lo, 0.5 / ts, int(points))
+    f[-1] = 0.5 / ts
+    return f
 
 
 def _as_factor_array(factors, n: int) -> np.ndarray:
@@ -316,12 +327,12 @@ class Discrete:
         return np.radians(self.phase_deg(np.asarray(f_hz, float)[:, None])[:, 0]), slope.imag
 
     def dc_gain(self) -> np.ndarray:
-        """H(z = 1) per corner (inf or 0 where there are roots at z = 1)."""
-        one = np.ones(1)
+        """H(z = 1) per corner (inf or 0 where there are roots at z = 1, signed like the gain)."""
+        at_one = np.array([-1.0, 1.0])
+        n1 = np.sum(np.all(self.num == at_one, axis=-1), axis=1)
+        d1 = np.sum(np.all(self.den == at_one, axis=-1), axis=1)
         with np.errstate(divide="ignore", invalid="ignore"):
-            n1 = np.sum(np.isclose(self.num[..., 0], -1.0, rtol=0, atol=1e-14) & (self.num[..., 1] == 1), axis=1)
-            d1 = np.sum(np.isclose(self.den[..., 0], -1.0, rtol=0, atol=1e-14) & (self.den[..., 1] == 1), axis=1)
-            h = self.response(0.0 * one)[:, 0].real
+            h = self.response(np.zeros(1))[:, 0].real
         return np.where(n1 > d1, 0.0, np.where(n1 < d1, np.inf * np.sign(self.gain), h))
 
     # ------------------------------------------------------------------ roots and polynomials

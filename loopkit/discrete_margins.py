@@ -90,7 +90,8 @@ def _check_grid(f_hz: np.ndarray, nyquist_hz: float) -> None:
         raise DesignError("f_hz", float(f_hz[-1]), f"the grid must end at or below fs/2 = {nyquist_hz:g} Hz")
 
 
-def discrete_loop_margins(loop: Discrete, f_hz) -> Margins:
+def discrete_loop_margins(loop: Discrete, f_hz, resp: np.ndarray | None = None,
+                          phase_deg: np.ndarray | None = None) -> Margins:
     """Margins of the sampled loop gain ``loop`` (T(z), one row per corner) up to fs/2.
 
     Parameters
@@ -100,7 +101,9 @@ def discrete_loop_margins(loop: Discrete, f_hz) -> Margins:
         :func:`loopkit.margins.loop_margins`.
     f_hz : ndarray (nf,)
         Increasing frequency grid, ending at (or below) the Nyquist frequency
-        ``0.5 / loop.ts_s``; it only brackets the crossings.
+        ``0.5 / loop.ts_s`` (:func:`loopkit.discrete.nyquist_grid`); it only brackets the crossings.
+    resp, phase_deg : ndarray (corners, nf), optional
+        T on the grid and its continuous phase, if already computed.
 
     Returns
     -------
@@ -121,8 +124,8 @@ def discrete_loop_margins(loop: Discrete, f_hz) -> Margins:
     f_hz = np.asarray(f_hz, float)
     _check_grid(f_hz, loop.nyquist_hz)
     n = loop.n_corners
-    resp = loop.response(f_hz)
-    phase_deg = loop.phase_deg(f_hz)
+    resp = loop.response(f_hz) if resp is None else resp
+    phase_deg = loop.phase_deg(f_hz) if phase_deg is None else phase_deg
     with np.errstate(divide="ignore"):
         log_mag = np.log(np.abs(resp))
     at_nyquist = abs(f_hz[-1] - loop.nyquist_hz) <= 1e-12 * loop.nyquist_hz

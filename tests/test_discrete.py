@@ -14,6 +14,7 @@ Outside references:
   memory); REFERENCES.md "Digital control".
 """
 
+import functools
 import warnings
 
 import numpy as np
@@ -22,7 +23,7 @@ import scipy.signal as ss
 
 import loopkit
 from loopkit.digital_control import digital_pi, digital_pid, digital_type3, matched, tustin
-from loopkit.discrete import Discrete
+from loopkit.discrete import Discrete, nyquist_grid
 from loopkit.discrete_margins import discrete_loop_margins
 from loopkit.errors import DesignError
 from loopkit.loop import LoopSession
@@ -36,8 +37,15 @@ control = pytest.importorskip("control")
 SAMPLES = ["buck_24v_3v3", "fourswitch_automotive_9v", "boost_pcm_12v_24v", "inverting_minus15v"]
 
 
+@functools.cache
 def _stage(name):
     return analyse_stage(loopkit.load_design(f"sample_designs/{name}.toml"))
+
+
+@functools.cache
+def _result(name):
+    """The sample design's analog loop (its compensator and uncompensated loop), computed once."""
+    return LoopSession(loopkit.load_design(f"sample_designs/{name}.toml")).run()
 
 
 def _desc(r: Rational, k: int):
@@ -138,6 +146,7 @@ def test_delay_is_poles_at_the_origin():
     (lambda: digital_pid(1.0, [0.5, 0.4, 0.3], 0.1, 1e-6), "zeros"),
     (lambda: digital_pi(1.0, np.nan, 1e-6), "zero"),
     (lambda: discrete_loop_margins(Discrete.constant(1.0, 1e-6), np.geomspace(10, 1e6, 50)), "f_hz"),
+    (lambda: nyquist_grid(1e-6, 6e5), "f_lo_hz"),
 ])
 def test_bad_input_is_a_design_error(call, field):
     with pytest.raises(DesignError) as err:
@@ -204,7 +213,7 @@ def _pi(gain, zero):
 
 
 def _digital_loop(name, modulator, computation, controller):
-    res = LoopSession(loopkit.load_design(f"sample_designs/{name}.toml")).run()
+    res = _result(name)
     st, ts = res.stage, 1.0 / res.stage.fsw_hz
     tau = modulator_delay_s(modulator, st.duty, ts) + computation * ts
     return res.open_loop.tu, controller(res, ts), ts, tau
@@ -270,7 +279,7 @@ NETWORKS = ["buck_24v_3v3", "flyback_48v_12v", "inverting_minus15v", "boost_liio
 
 @pytest.mark.parametrize("name", NETWORKS)
 def test_tustin_equals_python_control_and_scipy(name):
-    res = LoopSession(loopkit.load_design(f"sample_designs/{name}.toml")).run()
+    res = _result(name)
     gc, ts = res.compensator, 1.0 / res.stage.fsw_hz
     fc = float(np.nanmax(res.margins.fc_hz))
     f = np.geomspace(10.0, 0.5 / ts * 0.999, 300)
@@ -390,3 +399,14 @@ def test_phase_crossover_exactly_at_nyquist():
         np.testing.assert_allclose(m.pm_deg[0], 90.0 - np.degrees(np.pi * fc * ts), atol=1e-7)
     unstable = discrete_loop_margins(sampled_plant(Rational.from_factors(2.5e5, [], [(0.0, 1.0)]), ts), f)
     assert not unstable.stable[0] and unstable.n_crossovers[0] == 0 and unstable.beyond_grid[0]
+
+
+def test_margins_do_not_depend_on_the_grid():
+    tu, ctrl, ts, tau = _digital_loop(*SIM_CASES[0][:4])
+    loop = sampled_plant(tu, ts, tau) * ctrl
+    fine = discrete_loop_margins(loop, nyquist_grid(ts, 10.0, 2000))
+    coarse = discrete_loop_margins(loop, nyquist_grid(ts, 10.0, 80))
+    assert nyquist_grid(ts, 10.0, 80)[-1] == 0.5 / ts
+    for field in ("fc_hz", "pm_deg", "gm_db", "f180_hz", "delay_margin_s"):
+        np.testing.assert_allclose(getattr(coarse, field), getattr(fine, field), rtol=1e-9, atol=1e-9)
+    np.testing.assert_array_equal(coarse.n_crossovers, fine.n_crossovers)
