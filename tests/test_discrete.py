@@ -193,6 +193,15 @@ def test_zoh_equals_scipy_cont2discrete(name):
         np.testing.assert_allclose(mine.response(f)[k], ref, rtol=1e-7)
 
 
+def test_plant_delay_adds_to_the_loop_delay():
+    st = _stage("buck_24v_3v3")
+    ts = 1.0 / st.fsw_hz
+    f = np.geomspace(10.0, 0.5 / ts, 100)
+    delayed = Rational(st.gvd.gain, st.gvd.num, st.gvd.den, np.full(st.gvd.n_corners, 0.4 * ts))
+    np.testing.assert_allclose(sampled_plant(delayed, ts, 0.3 * ts).response(f),
+                               sampled_plant(st.gvd, ts, 0.7 * ts).response(f), rtol=1e-12)
+
+
 def test_vectorised_over_corners_equals_one_by_one():
     st = _stage("fourswitch_automotive_9v")
     ts = 1.0 / st.fsw_hz
@@ -253,6 +262,25 @@ def test_fractional_delay_loop_equals_brute_force_simulation(name, modulator, co
     assert np.max(np.abs(20 * np.log10(np.abs(ratio)))) < 0.1
     assert np.max(np.abs(np.degrees(np.angle(ratio)))) < 1.0
     np.testing.assert_allclose(ratio, 1.0, atol=1e-6)
+
+
+@pytest.mark.parametrize("samples", [1, 2])
+def test_whole_sample_delay_with_feedthrough_equals_brute_force_simulation(samples):
+    """A biproper plant (zero below its pole, so D is 10 % of the DC gain) with a delay of exactly
+    N samples: the output sample at k Ts takes the input that changes at that very instant, the D
+    term of z^-N [C (zI - Phi)^-1 Gamma + D].  An input change just after the instant instead
+    (delay N Ts (1 + 1e-9)) is a different loop, and the comparison sees it."""
+    ts = 1.0 / 200e3
+    plant = Rational.from_roots_hz(0.5, [-20e3], [-2e3])
+    ctrl = digital_pi(0.3, 0.9, ts)
+    loop = sampled_plant(plant, ts, samples * ts) * ctrl
+    assert loop.closed_loop_stable()[0]
+    b, a = ctrl.difference_equation(0)
+    f, t_at, t_before = loop_gain(*_desc(plant, 0), ts, samples * ts, b, a, window=1024, bins=BINS + (512,))
+    assert np.max(np.abs(t_at / t_before - 1)) < 1e-8
+    np.testing.assert_allclose(t_at / loop.response(f)[0], 1.0, atol=1e-6)
+    f, t_after, _ = loop_gain(*_desc(plant, 0), ts, samples * ts * (1 + 1e-9), b, a, window=1024, bins=BINS + (512,))
+    assert np.max(np.abs(t_after / loop.response(f)[0] - 1)) > 0.1
 
 
 def test_delay_shortcut_holds_only_far_below_nyquist():
