@@ -47,7 +47,9 @@ _PAD = np.array([1.0 + 0j, 0.0 + 0j])
 
 
 def check_sample_time(ts_s) -> float:
-    """``ts_s`` as a float, or :class:`DesignError` unless it is finite and > 0."""
+    """``ts_s`` as a float, or :class:`DesignError` unless it is finite and > 0 (it has no default)."""
+    if ts_s is None:
+        raise DesignError("ts_s", "missing", "the sample period must be given, in seconds > 0")
     try:
         ts = float(ts_s)
     except (TypeError, ValueError):
@@ -124,7 +126,7 @@ class Discrete:
 
     # ------------------------------------------------------------------ constructors
     @classmethod
-    def from_factors(cls, gain, num=(), den=(), ts_s=1.0) -> Discrete:
+    def from_factors(cls, gain, num=(), den=(), ts_s=None) -> Discrete:
         """Build from a gain and factor lists ``[(a0, a1), ...]`` meaning ``a0 + a1 z`` (any scaling).
 
         ``gain`` may be a scalar or an array over corners; factor arrays may be
@@ -143,7 +145,7 @@ class Discrete:
         return cls(g * ratio.real, nf, df, ts)
 
     @classmethod
-    def from_roots(cls, gain, zeros=(), poles=(), ts_s=1.0) -> Discrete:
+    def from_roots(cls, gain, zeros=(), poles=(), ts_s=None) -> Discrete:
         """``gain * prod(z - zeros) / prod(z - poles)`` (zpk form; z-plane roots, ``inf`` = padding).
 
         ``zeros`` and ``poles`` are (k,) for every corner or (n, k).
@@ -162,7 +164,7 @@ class Discrete:
         return cls.from_factors(gain, fac(zeros), fac(poles), ts_s)
 
     @classmethod
-    def from_polys(cls, num, den, ts_s=1.0) -> Discrete:
+    def from_polys(cls, num, den, ts_s=None) -> Discrete:
         """Build from ascending real polynomial coefficients in z, shape (n, k) or (k,)."""
         ts = check_sample_time(ts_s)
         num = np.atleast_2d(np.asarray(num, dtype=float))
@@ -175,7 +177,7 @@ class Discrete:
         return cls(gn / gd * (sn / sd).real, fn, fd, ts)
 
     @classmethod
-    def from_difference_equation(cls, b, a, ts_s=1.0) -> Discrete:
+    def from_difference_equation(cls, b, a, ts_s=None) -> Discrete:
         """The filter ``sum_i a_i y[k-i] = sum_i b_i x[k-i]`` (scipy ``lfilter`` convention).
 
         ``b`` and ``a`` are coefficients of powers of ``z^-1`` (``a[0] != 0``),

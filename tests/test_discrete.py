@@ -135,6 +135,7 @@ def test_delay_is_poles_at_the_origin():
 @pytest.mark.parametrize("call,field", [
     (lambda: Discrete.constant(1.0, 0.0), "ts_s"),
     (lambda: Discrete.constant(1.0, "fast"), "ts_s"),
+    (lambda: Discrete.from_roots(1.0, [0.5], [0.9]), "ts_s"),
     (lambda: Discrete.delay(1.5, 1e-6), "samples"),
     (lambda: Discrete.from_difference_equation([1.0], [0.0, 1.0], 1e-6), "a"),
     (lambda: modulator_delay_s("sawtooth", 0.5, 1e-6), "modulator"),
