@@ -1,0 +1,217 @@
+"""Fit the stage parameters that datasheets get wrong to a measured plant or loop response.
+
+The effective output capacitance (DC-bias derating), its ESR, the inductance (saturation,
+tolerance) and the modulator gain (ramp amplitude, or the current-sense gain in peak current
+mode) are estimated by bounded least squares on the complex logarithm of the response, through
+the same model as every other result: each trial rebuilds the design with the trial values and
+calls :func:`loopkit.powerstage.analyse_stage` and the control scheme for the one measured
+corner, so every topology, CCM and DCM, voltage and current mode is fitted alike.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from .design import Design
+from .errors import DesignError
+from .measured import Measurement
+from .powerstage import analyse_stage
+from .schemes import scheme_module
+
+__all__ = ["FIT_PARAMETERS", "FitParameter", "FitResult", "fit_stage", "one_corner_design"]
+
+#: Parameters that can be fitted: name -> (what it is, unit).
+FIT_PARAMETERS = {
+    "c": ("effective output capacitance (all banks scaled together)", "F"),
+    "esr": ("output capacitor ESR (all banks scaled together)", "Ω"),
+    "l": ("inductance", "H"),
+    "gain": ("modulator gain (1/ramp, or 1/current-sense gain in peak current mode)", ""),
+}
+#: Each parameter stays within this factor of the design's value (the search's bounds).
+FIT_RANGE = 10.0
+
+
+@dataclass(frozen=True)
+class FitParameter:
+    """One fitted parameter: the design's value, the fitted one and its standard uncertainty (1 sigma)."""
+
+    name: str
+    description: str
+    unit: str
+    design_value: float
+    value: float
+    sigma: float
+    at_bound: bool
+
+
+@dataclass(frozen=True, eq=False)
+class FitResult:
+    """What the fit found and the design with it (accept it by using ``design``).
+
+    ``rms_db`` and ``rms_deg`` are the residuals' root mean squares in gain and phase.
+    """
+
+    design: Design
+    parameters: tuple
+    corner: int
+    kind: str
+    rms_db: float
+    rms_deg: float
+    n_points: int
+    success: bool
+    message: str
+
+
+def one_corner_design(design: Design, corner: int) -> Design:
+    """The design reduced to one corner, with every quantity that depends on the other corners
+    (the feed-forward's nominal input, an automatic or relative slope) fixed at its full-design value.
+    """
+    n = design.operating.n_corners
+    if not (isinstance(corner, (int, np.integer)) and 0 <= corner < n):
+        raise DesignError("corner", corner, f"must be a corner index from 0 to {n - 1}")
+    vin, load = design.operating.corners()
+    op = design.operating
+    nominal = op.vin_nominal or float(np.median(op.vin))
+    ctrl = design.control
+    if ctrl.scheme == "peak-current":
+        from .schemes.peak_current import slope_of
+
+        se = slope_of(design, analyse_stage(design))
+        ctrl = replace(ctrl, slope=float(se), slope_amplitude=None, slope_ratio=None)
+    return replace(design, operating=replace(op, vin=(float(vin[corner]),), load=(float(load[corner]),),
+                                             vin_nominal=nominal),
+                   compensator=replace(design.compensator, design_corner=None), control=ctrl)
+
+
+def _with_scales(design: Design, names: tuple, scales: np.ndarray) -> Design:
+    s = dict(zip(names, scales))
+    st = design.stage
+    banks = tuple(replace(b, capacitance=b.capacitance * s.get("c", 1.0), esr=b.esr * s.get("esr", 1.0))
+                  for b in st.output_caps)
+    out = replace(design, stage=replace(st, output_caps=banks, inductance=st.inductance * s.get("l", 1.0)))
+    g = s.get("gain", 1.0)
+    if g != 1.0:
+        if design.control.scheme == "peak-current":
+            out = replace(out, control=replace(out.control, sense_gain=out.control.sense_gain / g))
+        else:
+            out = replace(out, modulator=replace(out.modulator, ramp=out.modulator.ramp / g))
+    return out
+
+
+def _model(design: Design, kind: str, f_hz: np.ndarray, gc: np.ndarray | None) -> np.ndarray:
+    """The predicted response of a one-corner design: control-to-output or the loop gain."""
+    from .networks.sensing import sensing_transfer
+
+    stage = analyse_stage(design)
+    tu = scheme_module(design.control.scheme).uncompensated(design, stage).tu.response(f_hz)[0]
+    if kind == "plant":
+        return tu / sensing_transfer(design).response(f_hz)[0]
+    return -tu * gc
+
+
+def fit_stage(design: Design, m: Measurement, corner: int, params=("c", "esr", "l", "gain"),
+              result=None) -> FitResult:
+    """Estimate stage parameters from a measured plant (control-to-output) or loop response.
+
+    Parameters
+    ----------
+    design : Design
+        The design as built; its values are the starting point.
+    m : Measurement
+        ``kind`` ``"plant"`` (control voltage to output) or ``"loop"`` (loop gain T).
+    corner : int
+        The operating corner the measurement was taken at.
+    params : sequence of str
+        Names from :data:`FIT_PARAMETERS`.  ESR is left out when every bank's ESR is 0.
+    result : LoopResult, optional
+        For a loop measurement: the network as built (``result.compensator``); without it the
+        design is run through :func:`loopkit.loop.design_loop`.
+
+    Returns
+    -------
+    FitResult
+
+    Notes
+    -----
+    Each parameter p is the design's value times exp(x); x is bounded to +-ln(10) and solved by
+    ``scipy.optimize.least_squares`` (trust-region reflective) on the residuals
+    ``[Re, Im] of ln(H_model / H_measured)``: the gain error in nepers and the phase error in
+    radians.  The standard uncertainties come from the Jacobian at the solution,
+    ``cov = s^2 (J^T J)^-1`` with ``s^2 = sum r^2 / (2 n - k)`` (the Gauss-Newton covariance;
+    Press et al., Numerical Recipes, 3rd ed., sec. 15.5), propagated to the parameter as
+    ``sigma_p = p sigma_x``.  It assumes the model is right and the errors are independent;
+    a model error shows as a large residual (``rms_db``, ``rms_deg``).
+    """
+    from scipy.optimize import least_squares
+
+    if m.kind not in ("plant", "loop"):
+        raise DesignError("kind", m.kind, "a fit needs a plant or loop measurement")
+    names = tuple(params)
+    for p in names:
+        if p not in FIT_PARAMETERS:
+            raise DesignError("fit parameter", p, f"must be one of {', '.join(FIT_PARAMETERS)}")
+    if "esr" in names and all(b.esr == 0 for b in design.stage.output_caps):
+        names = tuple(p for p in names if p != "esr")
+    if not names:
+        raise DesignError("fit parameter", ", ".join(params), "nothing to fit")
+    if 2 * m.f_hz.size <= len(names):
+        raise DesignError("measurement", m.f_hz.size, f"too few points to fit {len(names)} parameters")
+    base = one_corner_design(design, corner)
+    gc = None
+    if m.kind == "loop":
+        if result is None:
+            from .loop import design_loop
+
+            result = design_loop(design)
+        if result.compensator is None:
+            raise DesignError("compensator.parts", "none", "a loop fit needs the network's parts")
+        gc = result.compensator.response(m.f_hz)[0]
+    log_meas = np.log(m.response)
+
+    def residual(x):
+        try:
+            pred = _model(_with_scales(base, names, np.exp(x)), m.kind, m.f_hz, gc)
+        except DesignError:
+            return np.full(2 * m.f_hz.size, 1e3)  # a trial the stage cannot run: far from the data
+        r = np.log(pred) - log_meas
+        r = r.real + 1j * (np.mod(r.imag + np.pi, 2 * np.pi) - np.pi)
+        return np.concatenate([r.real, r.imag])
+
+    bound = np.log(FIT_RANGE)
+    sol = least_squares(residual, np.zeros(len(names)), bounds=(-bound, bound), method="trf",
+                        x_scale=1.0, diff_step=1e-6, xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=400)
+    r = sol.fun
+    dof = max(r.size - len(names), 1)
+    s2 = float(r @ r) / dof
+    try:
+        cov = np.linalg.inv(sol.jac.T @ sol.jac) * s2
+        sig_x = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    except np.linalg.LinAlgError:
+        sig_x = np.full(len(names), np.inf)
+    fitted = _with_scales(design, names, np.exp(sol.x))
+    at_bound = np.abs(sol.x) > bound * (1 - 1e-6)
+    out = []
+    for i, p in enumerate(names):
+        before, after = _value(design, p), _value(fitted, p)
+        out.append(FitParameter(p, FIT_PARAMETERS[p][0], FIT_PARAMETERS[p][1], float(before), float(after),
+                                abs(float(after)) * float(sig_x[i]), bool(at_bound[i])))
+    n = m.f_hz.size
+    return FitResult(fitted, tuple(out), int(corner), m.kind,
+                     float(np.sqrt(np.mean(r[:n] ** 2))) * 20.0 / np.log(10.0),
+                     float(np.degrees(np.sqrt(np.mean(r[n:] ** 2)))), n, bool(sol.success), str(sol.message))
+
+
+def _value(design: Design, name: str) -> float:
+    st = design.stage
+    if name == "c":
+        return st.c_total
+    if name == "esr":  # the banks in parallel, at dc-free high frequency: 1 / sum(1/ESR_k)
+        g = sum(1.0 / b.esr_total for b in st.output_caps if b.esr > 0)
+        return 1.0 / g if g > 0 else 0.0
+    if name == "l":
+        return st.inductance
+    if design.control.scheme == "peak-current":
+        return 1.0 / design.control.sense_gain
+    return 1.0 / design.modulator.ramp
