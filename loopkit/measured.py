@@ -271,7 +271,8 @@ def read_measurement(path, kind: str = "loop", columns: dict | None = None) -> M
     size = os.path.getsize(file)
     if size > MAX_FILE_BYTES:
         raise DesignFileError(file, "size", f"{size} bytes", f"at most {MAX_FILE_BYTES} bytes ({MAX_FILE_BYTES // 2**20} MiB)")
-    raw = open(file, "rb").read()
+    with open(file, "rb") as fh:
+        raw = fh.read()
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError:
