@@ -213,6 +213,25 @@ def test_overlay_of_the_design_stage_is_within_the_reference_agreement():
     assert np.max(np.abs(cmp.diff_db)) > 1.0  # the resonance moved
 
 
+def test_overlay_of_a_compensator_and_a_loop_measurement():
+    """The network measured (here: nodal analysis of the parts to build) matches the prediction within
+    the network tests' tolerance (0.05 dB, 0.5 deg, tests/test_networks_opamp.py); so does the loop
+    of the design's own stage; the kind and corner are checked."""
+    d = load_design(BOOST)
+    r = design_loop(d)
+    f = np.geomspace(10.0, 500e3, 100)
+    gc = -bench_loop(d, r.parts, 5, f) / bench_plant(d, 5, f)
+    cmp = compare(Measurement(f, gc, "compensator"), r, 5)
+    assert np.max(np.abs(cmp.diff_db)) < 0.05 and np.max(np.abs(cmp.diff_deg)) < 0.5
+    same = {"c": 1.0, "esr": 1.0, "l": 1.0, "ramp": 1.0}
+    cmp = compare(Measurement(f, bench_loop(d, r.parts, 5, f, same), "loop"), r, 5)
+    assert np.max(np.abs(cmp.diff_db)) < 0.05 and np.max(np.abs(cmp.diff_deg)) < 0.5
+    with pytest.raises(DesignError, match="corner = 9: must be a corner index from 0 to 8"):
+        compare(Measurement(f, gc, "compensator"), r, 9)
+    with pytest.raises(DesignError, match="kind = bode"):
+        Measurement(f, gc, "bode")
+
+
 # ---------------------------------------------------------------------------- fit
 FIT_CASES = [  # (design, corner, kind); noise-free tolerance 1e-4 relative (the models agree to ~1e-3 dB)
     (BUCK, 5, "plant"),
@@ -269,6 +288,39 @@ def test_fit_without_noise_gives_a_wrong_answer_for_a_wrong_model():
     f = np.geomspace(50.0, 200e3, 100)
     fit = fit_stage(d, Measurement(f, bench_plant(d, 5, f), "plant"), 5, params=("c",))
     assert fit.rms_db > 0.1
+
+
+@pytest.mark.ngspice
+def test_fit_recovers_an_ngspice_averaged_buck(tmp_path):
+    """The bench as an ngspice AC analysis of the averaged synchronous buck (a behavioural switch
+    node d vg - i (d Ron + d' Rr), Erickson & Maksimovic, Fundamentals of Power Electronics, 2nd ed.,
+    ch. 3 and 7, the averaged switch with conduction losses), with the known C, ESR and L of
+    TRUTH, written as a tab file (Hz, linear gain, radians) and read back: the fit finds them."""
+    from loopkit.networks.spice import ac_deck, run_ac
+    from loopkit.networks.spice import spice_number as sn
+
+    d = load_design(BUCK)
+    st, vin, load = d.stage, 24.0, 3.0
+    vout, ron, rr, dcr = d.operating.vout, st.r_switch, st.r_rectifier, st.dcr
+    duty = (vout + load * (rr + dcr)) / (vin - load * (ron - rr))  # the buck's dc balance with losses (ch. 3)
+    true = _true_stage(st)
+    bank = true.output_caps[0]
+    deck = ac_deck("averaged buck", [
+        f"Vg vg 0 DC {sn(vin)}",
+        f"Bsw sw 0 V = V(in)*V(vg) - i(Vsense)*(V(in)*{sn(ron)} + (1-V(in))*{sn(rr)})",
+        "Vsense sw a DC 0", f"L1 a b {sn(true.inductance)}", f"Rdcr b out {sn(dcr)}",
+        f"C1 out c {sn(bank.c_total)}", f"Resr c 0 {sn(bank.esr_total)}", f"Rload out 0 {sn(vout / load)}",
+    ], v_in_dc=duty, f_start_hz=50.0, f_stop_hz=200e3, points_per_decade=40)
+    ac = run_ac(deck)
+    corner = 5  # 24 V, 3 A
+    assert d.operating.corners()[0][corner] == vin and d.operating.corners()[1][corner] == load
+    m = Measurement(ac.f_hz, ac.response / (d.modulator.ramp * TRUTH["ramp"]), "plant")
+    path = tmp_path / "ngspice.tsv"
+    path.write_text(format_measurement(m, "tab-hz-linear-rad"))
+    fit = fit_stage(d, read_measurement(path, "plant"), corner)
+    truth = _truth_values(d)
+    for p in fit.parameters:
+        assert_allclose(p.value, truth[p.name], rtol=1e-4, err_msg=p.name)
 
 
 # ---------------------------------------------------------------------------- command line
