@@ -17,6 +17,7 @@ the difference between a measurement and the predicted response of one corner.
 
 from __future__ import annotations
 
+import csv
 import os
 import re
 from dataclasses import dataclass
@@ -221,7 +222,26 @@ def _guess(file: str, line_no: int, header: list[str], columns: dict | None) -> 
 
 
 def _split(line: str, sep: str | None) -> list[str]:
-    return [t.strip().strip('"') for t in (line.split(sep) if sep else line.split())]
+    """Fields of one line (quoted fields may hold the separator); trailing empty fields dropped."""
+    fields = next(csv.reader([line], delimiter=sep, skipinitialspace=True)) if sep else line.split()
+    fields = [t.strip().strip('"') for t in fields]
+    while fields and not fields[-1]:
+        fields.pop()
+    return fields
+
+
+def _sep_of(line: str) -> str | None:
+    return "\t" if "\t" in line else ";" if ";" in line else "," if "," in line else None
+
+
+def _header_index(lines: list) -> int:
+    """Index of the header among the first lines: the first with a frequency column and two more
+    (lines before it are an instrument's preamble); 0 if there is none."""
+    for i, (_, ln) in enumerate(lines[:50]):
+        fields = _split(ln, _sep_of(ln))
+        if len(fields) >= 3 and any((_role(t) or ("",))[0] == "f" for t in fields):
+            return i
+    return 0
 
 
 def _number(token: str, decimal: str, file: str, line_no: int, column: str) -> float:
@@ -261,9 +281,10 @@ def read_measurement(path, kind: str = "loop", columns: dict | None = None) -> M
 
     Notes
     -----
-    Lines starting with ``#`` or ``!`` and blank lines are skipped.  The separator is the
-    header's tab, semicolon or comma (else white space); with a tab or semicolon separator a
-    decimal comma is read.  A sweep written from high to low frequency is reversed.
+    Lines starting with ``#`` or ``!`` and blank lines are skipped, and so are the lines before
+    the header (an instrument's preamble): the header is the first line with a frequency column.
+    The separator is the header's tab, semicolon or comma (else white space); with a tab or
+    semicolon separator a decimal comma is read.  A sweep written from high to low frequency is reversed.
     """
     file = os.fspath(path)
     if kind not in KINDS:
@@ -281,8 +302,9 @@ def read_measurement(path, kind: str = "loop", columns: dict | None = None) -> M
     lines = [(i, ln) for i, ln in lines if ln.strip() and not ln.lstrip().startswith(("#", "!"))]
     if not lines:
         raise DesignFileError(file, "line 1", "(empty)", "no data: expected a header line and one row per frequency")
+    lines = lines[_header_index(lines):]
     first_no, first = lines[0]
-    sep = "\t" if "\t" in first else ";" if ";" in first else "," if "," in first else None
+    sep = _sep_of(first)
     header = _split(first, sep)
     has_header = not all(re.fullmatch(r"[-+0-9.,eE]+", t or "x") for t in header)
     if not has_header and not columns:

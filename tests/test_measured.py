@@ -116,6 +116,16 @@ def test_header_guesses(header, sep, decimal, scale, form, tmp_path):
     assert_allclose(m.response, h, rtol=1e-10)
 
 
+def test_preamble_quotes_and_trailing_separators(tmp_path):
+    """An instrument's preamble before the header is skipped; quoted names may hold the separator."""
+    path = tmp_path / "m.csv"
+    rows = "".join(f'"{100 * 2**i}","{-i}","{-10 * i}",\n' for i in range(6))
+    path.write_text('Sweep: log, 6 points\nDate,2026-12-03\n"Frequency, Hz (Hz)","Gain (dB)","Phase (deg)",\n' + rows)
+    m = read_measurement(path)
+    assert_allclose(m.f_hz, 100 * 2.0 ** np.arange(6))
+    assert_allclose(m.phase_deg, -10 * np.arange(6.0))
+
+
 def test_ambiguous_header_needs_a_mapping(tmp_path):
     path = tmp_path / "m.csv"
     path.write_text("f,ch1 (dB),Gain,Phase\n" + "".join(f"{100 * 2**i},0,{-i},{-10 * i}\n" for i in range(6)))
