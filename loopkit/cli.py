@@ -690,7 +690,8 @@ def _cmd_measured(args) -> int:
     if args.fit or args.save_fit:
         from .measured_fit import fit_stage
 
-        fit = fit_stage(design, m, corner, result=result)
+        params = tuple(filter(None, (x.strip() for x in args.fit_params.split(","))))
+        fit = fit_stage(design, m, corner, params=params, result=result)
         gain_unit = "1/" + ("ohm" if design.control.scheme == "peak-current" else "V")
         frows = [[p.name, ("ohm" if _ASCII and p.unit == "Ω" else p.unit) or gain_unit, _fmt(p.design_value), _fmt(p.value),
                   _fmt(p.sigma) if np.isfinite(p.sigma) else EMPTY,
@@ -703,6 +704,7 @@ def _cmd_measured(args) -> int:
                   f"  residual rms {fit.rms_db:.3f} dB, {fit.rms_deg:.2f} deg over {fit.n_points} points"]
         if not fit.success:
             lines.append(wrap_note(f"the fit did not converge: {fit.message}", first="  note: "))
+        lines.extend(wrap_note(note, first="  note: ") for note in fit.notes)
         if args.save_fit:
             from .designfile import save_design
 
@@ -776,6 +778,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--corner", help="corner index the measurement was taken at (default: the design corner)")
     p.add_argument("--columns", help="column mapping where the header is ambiguous, e.g. f_khz=0,gain_db=2,phase_deg=3")
     p.add_argument("--fit", action="store_true", help="fit output capacitance, ESR, inductance and modulator gain")
+    p.add_argument("--fit-params", default="c,esr,l,gain", metavar="LIST",
+                   help="parameters to fit, from c, esr, l, gain (default all)")
     p.add_argument("--save-fit", metavar="OUT.toml", help="with --fit: write the design with the fitted values")
     p.add_argument("--csv", metavar="OUT", help="write measured, predicted and difference at every frequency")
     p.set_defaults(run=_cmd_measured)

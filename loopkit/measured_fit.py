@@ -50,7 +50,9 @@ class FitParameter:
 class FitResult:
     """What the fit found and the design with it (accept it by using ``design``).
 
-    ``rms_db`` and ``rms_deg`` are the residuals' root mean squares in gain and phase.
+    ``rms_db`` and ``rms_deg`` are the residuals' root mean squares in gain and phase; ``notes``
+    say in plain words what the fit could not determine (parameters the data cannot tell apart get
+    an infinite ``sigma``) or where it hit the search's limits.
     """
 
     design: Design
@@ -62,6 +64,7 @@ class FitResult:
     n_points: int
     success: bool
     message: str
+    notes: tuple = ()
 
 
 def one_corner_design(design: Design, corner: int) -> Design:
@@ -185,13 +188,16 @@ def fit_stage(design: Design, m: Measurement, corner: int, params=("c", "esr", "
     r = sol.fun
     dof = max(r.size - len(names), 1)
     s2 = float(r @ r) / dof
-    try:
-        cov = np.linalg.inv(sol.jac.T @ sol.jac) * s2
-        sig_x = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-    except np.linalg.LinAlgError:
-        sig_x = np.full(len(names), np.inf)
+    sig_x, tied = _uncertainty(sol.jac, s2)
+    notes = []
+    if np.any(tied):
+        notes.append(f"the data cannot tell {', '.join(n for n, t in zip(names, tied) if t)} apart (they change the"
+                     " response together at this corner): their values are one of many that fit; fit fewer parameters")
     fitted = _with_scales(design, names, np.exp(sol.x))
     at_bound = np.abs(sol.x) > bound * (1 - 1e-6)
+    if np.any(at_bound):
+        notes.append(f"{', '.join(n for n, b in zip(names, at_bound) if b)} reached the search's limit (x{FIT_RANGE:g}"
+                     " or /{FIT_RANGE:g} of the design's value): the model may not describe this measurement")
     out = []
     for i, p in enumerate(names):
         before, after = _value(design, p), _value(fitted, p)
@@ -200,7 +206,28 @@ def fit_stage(design: Design, m: Measurement, corner: int, params=("c", "esr", "
     n = m.f_hz.size
     return FitResult(fitted, tuple(out), int(corner), m.kind,
                      float(np.sqrt(np.mean(r[:n] ** 2))) * 20.0 / np.log(10.0),
-                     float(np.degrees(np.sqrt(np.mean(r[n:] ** 2)))), n, bool(sol.success), str(sol.message))
+                     float(np.degrees(np.sqrt(np.mean(r[n:] ** 2)))), n, bool(sol.success), str(sol.message),
+                     tuple(notes))
+
+
+#: A direction of the parameters whose singular value is below this fraction of the largest is not
+#: determined by the data (the finite-difference Jacobian is good to about 1e-8 relative).
+TIED_RATIO = 1e-5
+
+
+def _uncertainty(jac: np.ndarray, s2: float) -> tuple[np.ndarray, np.ndarray]:
+    """Standard uncertainties of the fitted log-scales, and which parameters the data leaves undetermined.
+
+    ``cov = s^2 (J^T J)^-1`` through the singular values of J; a parameter with a share (> 0.01) in
+    a direction of singular value below :data:`TIED_RATIO` of the largest gets an infinite
+    uncertainty.
+    """
+    _, sv, vt = np.linalg.svd(jac, full_matrices=False)
+    strong = sv > TIED_RATIO * sv[0] if sv.size and sv[0] > 0 else np.zeros(sv.size, bool)
+    cov = (vt[strong].T / sv[strong] ** 2) @ vt[strong] * s2
+    sig = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    tied = np.any(np.abs(vt[~strong]) > 0.01, axis=0) if np.any(~strong) else np.zeros(jac.shape[1], bool)
+    return np.where(tied, np.inf, sig), tied
 
 
 def _value(design: Design, name: str) -> float:
