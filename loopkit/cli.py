@@ -646,7 +646,8 @@ def _cmd_gui(args) -> int:
 def _cmd_measured(args) -> int:
     """A bench measurement against the design: measured margins, the difference, optionally the fit."""
     from .loop import design_loop
-    from .measured import compare, measured_margins, parse_columns, read_measurement
+    from .measured import parse_columns, read_measurement
+    from .measured_fit import compare, measured_margins
 
     design = load_design(args.file)
     columns = parse_columns(args.columns) if args.columns else None

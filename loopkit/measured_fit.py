@@ -1,5 +1,13 @@
-"""Fit the stage parameters that datasheets get wrong to a measured plant or loop response.
+"""What a measurement tells: its margins, its difference to the prediction, the stage parameters.
 
+:func:`measured_margins` reads crossover, phase and gain margin off a sampled loop gain by
+interpolating ln|T| and the unwrapped phase linearly in ln f between the measured points, with
+the same definitions as :func:`loopkit.margins.loop_margins`; a crossing that the data does not
+bracket is reported as outside the measured range, never extrapolated.  :func:`compare` gives
+the difference between a measurement and the predicted response of one corner.
+
+:func:`fit_stage` fits the stage parameters that datasheets get wrong to a measured plant or
+loop response.
 The effective output capacitance (DC-bias derating), its ESR, the inductance (saturation,
 tolerance) and the modulator gain (ramp amplitude, or the current-sense gain in peak current
 mode) are estimated by bounded least squares on the complex logarithm of the response, through
@@ -16,11 +24,161 @@ import numpy as np
 
 from .design import Design
 from .errors import DesignError
-from .measured import Measurement
+from .measured import KINDS, Measurement
 from .powerstage import analyse_stage
 from .schemes import scheme_module
+from .units import format_value
 
-__all__ = ["FIT_PARAMETERS", "FitParameter", "FitResult", "fit_stage", "one_corner_design"]
+__all__ = [
+    "FIT_PARAMETERS",
+    "Comparison",
+    "FitParameter",
+    "FitResult",
+    "MeasuredMargins",
+    "compare",
+    "fit_stage",
+    "measured_margins",
+    "one_corner_design",
+    "predicted_response",
+]
+
+@dataclass(frozen=True)
+class MeasuredMargins:
+    """Margins read off a measured loop gain; NaN where the crossing is not in the measured range.
+
+    Attributes
+    ----------
+    fc_hz, pm_deg : float
+        Lowest gain crossover and the smallest phase margin over the crossovers.
+    gm_db, f180_hz : float
+        Gain margin at the phase crossover with |T| < 1 that gives the smallest margin.
+    crossovers_hz : tuple of float
+    f_min_hz, f_max_hz : float
+        The measured range.
+    notes : tuple of str
+        What could not be read inside the measured range, in plain words.
+    """
+
+    fc_hz: float
+    pm_deg: float
+    gm_db: float
+    f180_hz: float
+    crossovers_hz: tuple
+    f_min_hz: float
+    f_max_hz: float
+    notes: tuple = ()
+
+
+def _crossings(lnf: np.ndarray, y: np.ndarray, level: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(index, ln f) where ``y - level`` changes sign between points index and index + 1 (linear in ln f)."""
+    g = y - level
+    k = np.nonzero(np.sign(g[:-1]) * np.sign(g[1:]) < 0)[0]
+    t = g[k] / (g[k] - g[k + 1])
+    return k, lnf[k] + t * (lnf[k + 1] - lnf[k])
+
+
+def measured_margins(m: Measurement) -> MeasuredMargins:
+    """Crossover, phase margin and gain margin of a measured loop gain (1 + T convention).
+
+    Notes
+    -----
+    Same definitions as :func:`loopkit.margins.loop_margins` (Erickson & Maksimovic,
+    Fundamentals of Power Electronics, 2nd ed., sec. 9.4): PM = 180 deg + phase(T) at |T| = 1,
+    wrapped to (-180, 180]; GM = -20 log10 |T| where the phase is -180 deg + k 360 deg.  Between
+    measured points ln|T| and the unwrapped phase are taken as linear in ln f.
+    """
+    if m.kind != "loop":
+        raise DesignError("kind", m.kind, "margins are read off a loop-gain measurement (kind loop)")
+    lnf = np.log(m.f_hz)
+    ln_mag = np.log(np.abs(m.response))
+    phase = m.phase_deg
+    lo, hi = m.f_range_hz
+    rng = f"the measured range ({format_value(lo, 'Hz')} to {format_value(hi, 'Hz')})"
+    notes = []
+
+    def at(x, y):
+        return np.interp(x, lnf, y)
+
+    _, xc = _crossings(lnf, ln_mag, np.zeros_like(ln_mag))
+    if xc.size:
+        pm_all = np.mod(at(xc, phase) + 360.0, 360.0) - 180.0
+        pm_all = np.where(pm_all == -180.0, 180.0, pm_all)
+        fc, pm = float(np.exp(xc[0])), float(pm_all.min())
+        if ln_mag[0] < 0:
+            notes.append(f"|T| is below 0 dB at the lowest measured frequency: a lower crossover may lie below {rng}")
+        if ln_mag[-1] > 0:
+            notes.append(f"|T| is above 0 dB at the highest measured frequency: a crossover lies above {rng}")
+    else:
+        fc = pm = float("nan")
+        side = "above" if ln_mag[-1] > 0 else "below"
+        notes.append(f"gain crossover: outside {rng} (|T| stays {side} 0 dB)")
+    # phase crossovers at -180 + 360 k
+    u = np.floor((phase + 180.0) / 360.0)
+    k = np.nonzero(u[:-1] != u[1:])[0]
+    level = 360.0 * np.maximum(u[k], u[k + 1]) - 180.0
+    gm, f180 = float("nan"), float("nan")
+    if k.size:
+        t = (phase[k] - level) / (phase[k] - phase[k + 1])
+        x180 = lnf[k] + t * (lnf[k + 1] - lnf[k])
+        mag180 = at(x180, ln_mag)
+        below = mag180 < 0
+        if np.any(below):
+            j = np.argmax(np.where(below, mag180, -np.inf))
+            gm, f180 = float(-20.0 * mag180[j] / np.log(10.0)), float(np.exp(x180[j]))
+    if not np.isfinite(gm):
+        notes.append(f"gain margin: outside {rng} (no phase crossover with |T| below 0 dB in it)")
+    return MeasuredMargins(fc, pm, gm, f180, tuple(float(np.exp(x)) for x in xc), lo, hi, tuple(notes))
+
+
+def predicted_response(result, kind: str, corner: int, f_hz: np.ndarray) -> np.ndarray:
+    """loopkit's prediction of what the bench measures, at one corner of a ``LoopResult``.
+
+    ``"loop"``: the loop gain T with the parts to build; ``"plant"``: control-to-output, from
+    the error amplifier's output (the modulator's control voltage) to the converter's output,
+    ``Tu / H`` (voltage mode: ``Fm Gvd``); ``"compensator"``: the network with the parts to build.
+    """
+    from .networks.sensing import sensing_transfer
+
+    f_hz = np.asarray(f_hz, float)
+    n = result.stage.n_corners
+    if not (isinstance(corner, (int, np.integer)) and 0 <= corner < n):
+        raise DesignError("corner", corner, f"must be a corner index from 0 to {n - 1}")
+    if kind == "plant":
+        tu = result.open_loop.tu.take([corner])
+        return (tu.response(f_hz) / sensing_transfer(result.design).response(f_hz))[0]
+    if result.loop is None:
+        raise DesignError("compensator.parts", "none", f"a {kind} prediction needs parts: the targets cannot be met")
+    if kind == "loop":
+        return result.loop.take([corner]).response(f_hz)[0]
+    if kind == "compensator":
+        return result.compensator.response(f_hz)[0]
+    raise DesignError("kind", kind, f"must be one of {', '.join(KINDS)}")
+
+
+@dataclass(frozen=True, eq=False)
+class Comparison:
+    """A measurement against the prediction of one corner, on the measured frequencies.
+
+    ``diff_db`` = 20 log10 |measured / predicted|; ``diff_deg`` its angle, wrapped to (-180, 180].
+    """
+
+    f_hz: np.ndarray
+    measured: np.ndarray
+    predicted: np.ndarray
+    diff_db: np.ndarray
+    diff_deg: np.ndarray
+    kind: str
+    corner: int
+
+
+def compare(m: Measurement, result, corner: int) -> Comparison:
+    """Difference between measurement ``m`` and the prediction of ``corner`` of ``result`` (a ``LoopResult``)."""
+    pred = predicted_response(result, m.kind, corner, m.f_hz)
+    ratio = m.response / pred
+    deg = np.degrees(np.angle(ratio))
+    return Comparison(m.f_hz, m.response, pred, 20.0 * np.log10(np.abs(ratio)),
+                      np.where(deg == -180.0, 180.0, deg), m.kind, int(corner))
+
 
 #: Parameters that can be fitted: name -> (what it is, unit).
 FIT_PARAMETERS = {

@@ -26,17 +26,8 @@ from loopkit.cli import main
 from loopkit.errors import DesignError, DesignFileError
 from loopkit.loop import design_loop
 from loopkit.margins import loop_margins
-from loopkit.measured import (
-    LAYOUTS,
-    MAX_FILE_BYTES,
-    Measurement,
-    compare,
-    format_measurement,
-    measured_margins,
-    parse_columns,
-    read_measurement,
-)
-from loopkit.measured_fit import fit_stage
+from loopkit.measured import LAYOUTS, MAX_FILE_BYTES, Measurement, format_measurement, parse_columns, read_measurement
+from loopkit.measured_fit import compare, fit_stage, measured_margins
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA = Path(__file__).resolve().parent / "data"
