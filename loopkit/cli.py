@@ -652,6 +652,8 @@ def _cmd_measured(args) -> int:
     design = load_design(args.file)
     columns = parse_columns(args.columns) if args.columns else None
     m = read_measurement(args.measurement, args.kind, columns)
+    if args.invert:
+        m = replace(m, response=-m.response)
     outputs = [(o, p, None) for o, p in (("--csv", args.csv), ("--save-fit", args.save_fit)) if p]
     _check_outputs(args.file, outputs)
     result = design_loop(design)
@@ -679,6 +681,10 @@ def _cmd_measured(args) -> int:
         lines.append(f"  predicted: fc {_fmt(pm.fc_hz[corner], 'Hz')}, PM {_plain(pm.pm_deg[corner], '.1f')} deg,"
                      f" GM {gmp}")
         lines.extend(wrap_note(note, first="  note: ") for note in mm.notes)
+    if m.kind == "loop" and abs(cmp.diff_deg[0]) > 135.0:
+        lines.append(wrap_note("at the lowest frequency the measured phase is opposite to the predicted one: if the"
+                               " analyser shows the loop as -T (its phase at crossover is the phase margin), give"
+                               " --invert", first="  note: "))
     picks = np.unique([int(np.argmin(np.abs(np.log(m.f_hz / f)))) for f in np.geomspace(lo, hi, 9)])
     meas_ph = np.degrees(np.unwrap(np.angle(cmp.measured)))
     pred_ph = np.degrees(np.unwrap(np.angle(cmp.predicted)))
@@ -700,7 +706,7 @@ def _cmd_measured(args) -> int:
                   "at bound" if p.at_bound else ""] for p in fit.parameters]
         lines += ["", f"Fitted stage parameters (bounded least squares, corner #{corner}):",
                   format_table([Column("param", align="<"), Column("unit", align="<"), Column("design"),
-                                Column("fitted"), Column("±1 sigma"), Column("change"), Column("", align="<")],
+                                Column("fitted"), Column("+-1 sigma" if _ASCII else "±1 sigma"), Column("change"), Column("", align="<")],
                                frows, indent="  "),
                   f"  residual rms {fit.rms_db:.3f} dB, {fit.rms_deg:.2f} deg over {fit.n_points} points"]
         if not fit.success:
@@ -778,6 +784,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="what was measured: loop gain T (default), plant (control voltage to output), compensator")
     p.add_argument("--corner", help="corner index the measurement was taken at (default: the design corner)")
     p.add_argument("--columns", help="column mapping where the header is ambiguous, e.g. f_khz=0,gain_db=2,phase_deg=3")
+    p.add_argument("--invert", action="store_true",
+                   help="negate the measurement (an analyser that shows the loop as -T)")
     p.add_argument("--fit", action="store_true", help="fit output capacitance, ESR, inductance and modulator gain")
     p.add_argument("--fit-params", default="c,esr,l,gain", metavar="LIST",
                    help="parameters to fit, from c, esr, l, gain (default all)")

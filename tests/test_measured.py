@@ -399,6 +399,21 @@ def test_cli_bad_file_exits_2_with_line_and_token(capsys, tmp_path):
     assert err.count("\n") == 0 and "line 4 = 1.2.3" in err and str(path) in err
 
 
+def test_cli_invert_turns_a_minus_t_measurement_round(capsys, tmp_path):
+    """An analyser that shows -T: the note says so, and --invert gives the margins of T."""
+    d = load_design(BOOST)
+    r = design_loop(d)
+    f = np.geomspace(50.0, d.stage.fsw / 2, 150)
+    t = bench_loop(d, r.parts, 5, f)
+    path = _write(tmp_path, Measurement(f, -t, "loop"))
+    assert main(["measured", str(BOOST), str(path), "--corner", "5"]) == 0
+    assert "give --invert" in capsys.readouterr().out.replace("\n", " ")
+    assert main(["measured", str(BOOST), str(path), "--corner", "5", "--invert"]) == 0
+    out = capsys.readouterr().out
+    mm = measured_margins(Measurement(f, t, "loop"))
+    assert f"PM {mm.pm_deg:.1f} deg" in out and "--invert" not in out
+
+
 # ---------------------------------------------------------------------------- example files
 EXAMPLES = {  # file -> (design, corner, kind, layout)
     "buck_plant_24v_3a.csv": (BUCK, 5, "plant", "comma-hz-db-deg"),
