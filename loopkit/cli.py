@@ -675,6 +675,10 @@ def _cmd_measured(args) -> int:
         mm = measured_margins(m)
         gm = f"{_plain(mm.gm_db, '.1f')} dB at {_fmt(mm.f180_hz, 'Hz')}" if np.isfinite(mm.gm_db) else EMPTY
         lines.append(f"  measured:  fc {_fmt(mm.fc_hz, 'Hz')}, PM {_plain(mm.pm_deg, '.1f')} deg, GM {gm}")
+        if len(mm.crossovers_hz) > 1:
+            lines.append(wrap_note(f"the measured gain crosses 0 dB {len(mm.crossovers_hz)} times ("
+                                   + ", ".join(_fmt(x, "Hz") for x in mm.crossovers_hz) + "); PM is the smallest",
+                                   first="  note: "))
         pm = result.margins
         gmp = (f"{_plain(pm.gm_db[corner], '.1f')} dB at {_fmt(pm.f180_hz[corner], 'Hz')}"
                if np.isfinite(pm.gm_db[corner]) else _gm(pm, corner))

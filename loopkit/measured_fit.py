@@ -42,6 +42,7 @@ __all__ = [
     "predicted_response",
 ]
 
+
 @dataclass(frozen=True)
 class MeasuredMargins:
     """Margins read off a measured loop gain; NaN where the crossing is not in the measured range.
