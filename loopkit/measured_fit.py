@@ -304,7 +304,8 @@ def fit_stage(design: Design, m: Measurement, corner: int, params=("c", "esr", "
     ``cov = s^2 (J^T J)^-1`` with ``s^2 = sum r^2 / (2 n - k)`` (the Gauss-Newton covariance;
     Press et al., Numerical Recipes, 3rd ed., sec. 15.5), propagated to the parameter as
     ``sigma_p = p sigma_x``.  It assumes the model is right and the errors are independent;
-    a model error shows as a large residual (``rms_db``, ``rms_deg``).
+    a model error shows as a large residual (``rms_db``, ``rms_deg``).  Points above half the
+    switching frequency are left out (the averaged model ends there) and a note says so.
     """
     from scipy.optimize import least_squares
 
@@ -318,8 +319,13 @@ def fit_stage(design: Design, m: Measurement, corner: int, params=("c", "esr", "
         names = tuple(p for p in names if p != "esr")
     if not names:
         raise DesignError("fit parameter", ", ".join(params), "nothing to fit")
-    if 2 * m.f_hz.size <= len(names):
-        raise DesignError("measurement", m.f_hz.size, f"too few points to fit {len(names)} parameters")
+    limit = design.stage.fsw / 2.0
+    used = m.f_hz <= limit * (1 + 1e-9)  # the averaged model ends at half the switching frequency
+    left_out = int(np.count_nonzero(~used))
+    f_hz, meas = m.f_hz[used], m.response[used]
+    if 2 * f_hz.size <= len(names):
+        raise DesignError("measurement", f"{f_hz.size} points below fsw/2",
+                          f"too few points to fit {len(names)} parameters")
     base = one_corner_design(design, corner)
     gc = None
     if m.kind == "loop":
@@ -329,14 +335,14 @@ def fit_stage(design: Design, m: Measurement, corner: int, params=("c", "esr", "
             result = design_loop(design)
         if result.compensator is None:
             raise DesignError("compensator.parts", "none", "a loop fit needs the network's parts")
-        gc = result.compensator.response(m.f_hz)[0]
-    log_meas = np.log(m.response)
+        gc = result.compensator.response(f_hz)[0]
+    log_meas = np.log(meas)
 
     def residual(x):
         try:
-            pred = _model(_with_scales(base, names, np.exp(x)), m.kind, m.f_hz, gc)
+            pred = _model(_with_scales(base, names, np.exp(x)), m.kind, f_hz, gc)
         except DesignError:
-            return np.full(2 * m.f_hz.size, 1e3)  # a trial the stage cannot run: far from the data
+            return np.full(2 * f_hz.size, 1e3)  # a trial the stage cannot run: far from the data
         r = np.log(pred) - log_meas
         r = r.real + 1j * (np.mod(r.imag + np.pi, 2 * np.pi) - np.pi)
         return np.concatenate([r.real, r.imag])
@@ -349,6 +355,9 @@ def fit_stage(design: Design, m: Measurement, corner: int, params=("c", "esr", "
     s2 = float(r @ r) / dof
     sig_x, tied = _uncertainty(sol.jac, s2)
     notes = []
+    if left_out:
+        notes.append(f"{left_out} points above half the switching frequency ({format_value(limit, 'Hz')}) left out:"
+                     " the averaged model ends there")
     if np.any(tied):
         notes.append(f"the data cannot tell {', '.join(n for n, t in zip(names, tied) if t)} apart (they change the"
                      " response together at this corner): their values are one of many that fit; fit fewer parameters")
@@ -362,7 +371,7 @@ def fit_stage(design: Design, m: Measurement, corner: int, params=("c", "esr", "
         before, after = _value(design, p), _value(fitted, p)
         out.append(FitParameter(p, FIT_PARAMETERS[p][0], FIT_PARAMETERS[p][1], float(before), float(after),
                                 abs(float(after)) * float(sig_x[i]), bool(at_bound[i])))
-    n = m.f_hz.size
+    n = f_hz.size
     return FitResult(fitted, tuple(out), int(corner), m.kind,
                      float(np.sqrt(np.mean(r[:n] ** 2))) * 20.0 / np.log(10.0),
                      float(np.degrees(np.sqrt(np.mean(r[n:] ** 2)))), n, bool(sol.success), str(sol.message),

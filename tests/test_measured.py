@@ -283,6 +283,14 @@ def test_fit_with_noise_lies_within_its_uncertainty(sample, corner):
     assert 0.03 < fit.rms_db < 0.08 and 0.2 < fit.rms_deg < 0.4  # the residual is the noise
 
 
+def test_fit_leaves_out_points_above_half_the_switching_frequency():
+    d = load_design(BUCK)
+    f = np.geomspace(50.0, d.stage.fsw, 100)
+    fit = fit_stage(d, Measurement(f, bench_plant(d, 5, f), "plant"), 5)
+    assert fit.n_points == np.count_nonzero(f <= d.stage.fsw / 2)
+    assert fit.notes and fit.notes[0].startswith(f"{100 - fit.n_points} points above half the switching frequency")
+
+
 def test_fit_without_noise_gives_a_wrong_answer_for_a_wrong_model():
     """The fit can fail: fitting only C to data whose L is also off leaves a large residual."""
     d = load_design(BUCK)
