@@ -699,9 +699,12 @@ def _cmd_measured(args) -> int:
              _plain(cmp.diff_db[i], "+.2f"), _plain(cmp.diff_deg[i], "+.1f")] for i in picks]
     lines += ["", "Measured against predicted (difference = measured / predicted):", format_table(cols, rows, indent="  ")]
     if args.fit or args.save_fit:
-        from .measured_fit import fit_stage
+        from .measured_fit import FIT_PARAMETERS, fit_stage
 
         params = tuple(filter(None, (x.strip() for x in args.fit_params.split(","))))
+        for p in params or ("",):
+            if p not in FIT_PARAMETERS:
+                raise DesignError("--fit-params", args.fit_params, f"a list from {', '.join(FIT_PARAMETERS)}")
         fit = fit_stage(design, m, corner, params=params, result=result)
         gain_unit = "1/" + ("ohm" if design.control.scheme == "peak-current" else "V")
         frows = [[p.name, ("ohm" if _ASCII and p.unit == "Ω" else p.unit) or gain_unit, _fmt(p.design_value), _fmt(p.value),

@@ -407,6 +407,19 @@ def test_cli_bad_file_exits_2_with_line_and_token(capsys, tmp_path):
     assert err.count("\n") == 0 and "line 4 = 1.2.3" in err and str(path) in err
 
 
+@pytest.mark.parametrize("extra, expected", [
+    (["--fit", "--fit-params", "c,x"], "--fit-params = c,x: a list from c, esr, l, gain"),
+    (["--columns", "freq=0"], "--columns = freq=0: must be KEY=COLUMN"),
+    (["--columns", "f_hz=0,gain_db=1,phase_deg=7"], "columns.phase_deg = 7: must be a column from 0 to 2"),
+    (["--corner", "9"], "--corner = 9: must be a corner index from 0 to 8"),
+    (["--kind", "compensator", "--fit"], "kind = compensator: a fit needs a plant or loop measurement"),
+])
+def test_cli_bad_options_exit_2(capsys, extra, expected):
+    assert main(["measured", str(BOOST), str(DATA / "boost_loop_3v6_0a75.csv"), *extra]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.count("\n") == 0 and expected in err
+
+
 def test_cli_invert_turns_a_minus_t_measurement_round(capsys, tmp_path):
     """An analyser that shows -T: the note says so, and --invert gives the margins of T."""
     d = load_design(BOOST)
