@@ -181,8 +181,7 @@ def _guess(file: str, line_no: int, header: list[str], columns: dict | None) -> 
     if columns:
         found = {}
         for key, col in columns.items():
-            key = "f_hz" if key == "f" else key
-            if key not in COLUMN_KEYS:
+            if key not in COLUMN_KEYS + ("f",):
                 raise DesignFileError(file, "columns", key, f"must be one of {', '.join(COLUMN_KEYS)}")
             if isinstance(col, str):
                 names = [h.strip().strip('"') for h in header]
@@ -191,6 +190,9 @@ def _guess(file: str, line_no: int, header: list[str], columns: dict | None) -> 
                 col = names.index(col)
             if not (isinstance(col, int) and 0 <= col < max(len(header), 1)):
                 raise DesignFileError(file, f"columns.{key}", col, f"must be a column from 0 to {len(header) - 1}")
+            if key == "f":  # the unit from the column's name (Hz when it states none)
+                role = _role(header[col])
+                key = role[1] if role and role[0] == "f" and role[1] != "?" else "f_hz"
             found[key] = col
     else:
         roles: dict[str, list[tuple[int, str]]] = {}
@@ -237,11 +239,11 @@ def _sep_of(line: str) -> str | None:
 
 
 def _header_index(lines: list) -> int:
-    """Index of the header among the first lines: the first with a frequency column and two more
-    (lines before it are an instrument's preamble); 0 if there is none."""
+    """Index of the header among the first lines: the first with a frequency column and gain and
+    phase or real and imaginary columns (lines before it are an instrument's preamble); 0 if none."""
     for i, (_, ln) in enumerate(lines[:50]):
-        fields = _split(ln, _sep_of(ln))
-        if len(fields) >= 3 and any((_role(t) or ("",))[0] == "f" for t in fields):
+        roles = {(_role(t) or ("",))[0] for t in _split(ln, _sep_of(ln))}
+        if "f" in roles and ({"gain", "phase"} <= roles or {"re", "im"} <= roles):
             return i
     return 0
 
@@ -266,8 +268,9 @@ def read_measurement(path, kind: str = "loop", columns: dict | None = None) -> M
     kind : str
         One of :data:`KINDS`.
     columns : dict, optional
-        Column mapping, key (one of :data:`COLUMN_KEYS`) -> 0-based column number or header
-        name; without it the columns are guessed from the header.
+        Column mapping, key (one of :data:`COLUMN_KEYS`, or ``"f"``: frequency in the unit its
+        header names, Hz if none) -> 0-based column number or header name; without it the
+        columns are guessed from the header.
 
     Returns
     -------

@@ -111,7 +111,7 @@ def test_preamble_quotes_and_trailing_separators(tmp_path):
     """An instrument's preamble before the header is skipped; quoted names may hold the separator."""
     path = tmp_path / "m.csv"
     rows = "".join(f'"{100 * 2**i}","{-i}","{-10 * i}",\n' for i in range(6))
-    path.write_text('Sweep: log, 6 points\nDate,2026-12-03\n"Frequency, Hz (Hz)","Gain (dB)","Phase (deg)",\n' + rows)
+    path.write_text('Frequency sweep: log, 6 points\nDate,2026-12-03\n"Frequency, Hz (Hz)","Gain (dB)","Phase (deg)",\n' + rows)
     m = read_measurement(path)
     assert_allclose(m.f_hz, 100 * 2.0 ** np.arange(6))
     assert_allclose(m.phase_deg, -10 * np.arange(6.0))
@@ -127,6 +127,9 @@ def test_ambiguous_header_needs_a_mapping(tmp_path):
     assert_allclose(m.phase_deg, -10 * np.arange(6.0))
     m = read_measurement(path, columns={"f_hz": "f", "gain_db": "Gain", "phase_deg": 3})
     assert_allclose(m.mag_db, -np.arange(6.0))
+    path.write_text("freq[kHz];ch1 (dB);Gain;Phase\n" + "".join(f"{2**i};0;{-i};{-10 * i}\n" for i in range(6)))
+    m = read_measurement(path, columns={"f": 0, "gain_db": 2, "phase_deg": 3})  # "f": the header's unit
+    assert_allclose(m.f_hz, 1e3 * 2.0 ** np.arange(6))
     with pytest.raises(DesignError, match="--columns"):
         parse_columns("freq=0")
 
