@@ -656,6 +656,9 @@ def _cmd_measured(args) -> int:
         m = replace(m, response=-m.response)
     outputs = [(o, p, None) for o, p in (("--csv", args.csv), ("--save-fit", args.save_fit)) if p]
     _check_outputs(args.file, outputs)
+    for option, path, _ in outputs:
+        if os.path.realpath(path) == os.path.realpath(args.measurement):
+            raise DesignError(option, path, "is the measurement itself; choose another output file")
     result = design_loop(design)
     n = result.stage.n_corners
     corner = max(result.design_corner, 0)

@@ -415,6 +415,7 @@ def test_cli_bad_file_exits_2_with_line_and_token(capsys, tmp_path):
     (["--columns", "freq=0"], "--columns = freq=0: must be KEY=COLUMN"),
     (["--columns", "f_hz=0,gain_db=1,phase_deg=7"], "columns.phase_deg = 7: must be a column from 0 to 2"),
     (["--corner", "9"], "--corner = 9: must be a corner index from 0 to 8"),
+    (["--csv", str(DATA / "boost_loop_3v6_0a75.csv")], "is the measurement itself"),
     (["--kind", "compensator", "--fit"], "kind = compensator: a fit needs a plant or loop measurement"),
 ])
 def test_cli_bad_options_exit_2(capsys, extra, expected):
