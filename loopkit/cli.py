@@ -6,6 +6,7 @@ Subcommands::
     loopkit bode FILE --plant|--loop|--compensator [--csv OUT]
     loopkit design FILE [--fc 20k] [--pm 60] [--type 2|3] [--json] [--write]
     loopkit export FILE [--bom OUT.csv] [--spice OUT.cir] [--json OUT.json] [--svg OUT.svg]
+    loopkit measured FILE MEASUREMENT.csv [--kind loop|plant] [--corner N] [--columns ...] [--fit] [--csv OUT]
     loopkit gui [FILE]
 
 Every command calls the same library path as the app and the tests
@@ -642,6 +643,107 @@ def _cmd_gui(args) -> int:
     return subprocess.call([sys.executable, "-m", "app", *([args.file] if args.file else [])])
 
 
+# ---------------------------------------------------------------------- measured
+def _cmd_measured(args) -> int:
+    """A bench measurement against the design: measured margins, the difference, optionally the fit."""
+    from .loop import design_loop
+    from .measured import parse_columns, read_measurement
+    from .measured_fit import compare, measured_margins
+
+    design = load_design(args.file)
+    columns = parse_columns(args.columns) if args.columns else None
+    m = read_measurement(args.measurement, args.kind, columns)
+    if args.invert:
+        m = replace(m, response=-m.response)
+    outputs = [(o, p, None) for o, p in (("--csv", args.csv), ("--save-fit", args.save_fit)) if p]
+    _check_outputs(args.file, outputs)
+    for option, path, _ in outputs:
+        if os.path.realpath(path) == os.path.realpath(args.measurement):
+            raise DesignError(option, path, "is the measurement itself; choose another output file")
+    result = design_loop(design)
+    n = result.stage.n_corners
+    corner = max(result.design_corner, 0)
+    if args.corner is not None:
+        if not (args.corner.isdigit() and int(args.corner) < n):
+            raise DesignError("--corner", args.corner, f"must be a corner index from 0 to {n - 1}")
+        corner = int(args.corner)
+    if args.kind != "plant" and not result.feasible:
+        raise DesignError("", args.file, f"no parts to compare a {args.kind} measurement with (loopkit design"
+                          f" {args.file} says why)")
+    cmp = compare(m, result, corner)
+    lo, hi = m.f_range_hz
+    st = result.stage
+    lines = [wrap_note(f"{args.measurement}: {m.kind}, {m.f_hz.size} points, {_fmt(lo, 'Hz')} to {_fmt(hi, 'Hz')};"
+                       f" against {args.file} at corner #{corner} ({corner_name(st.vin[corner], st.load[corner])})")]
+    if m.kind == "loop":
+        mm = measured_margins(m)
+        gm = f"{_plain(mm.gm_db, '.1f')} dB at {_fmt(mm.f180_hz, 'Hz')}" if np.isfinite(mm.gm_db) else EMPTY
+        lines.append(f"  measured:  fc {_fmt(mm.fc_hz, 'Hz')}, PM {_plain(mm.pm_deg, '.1f')} deg, GM {gm}")
+        if len(mm.crossovers_hz) > 1:
+            lines.append(wrap_note(f"the measured gain crosses 0 dB {len(mm.crossovers_hz)} times ("
+                                   + ", ".join(_fmt(x, "Hz") for x in mm.crossovers_hz) + "); PM is the smallest",
+                                   first="  note: "))
+        pm = result.margins
+        gmp = (f"{_plain(pm.gm_db[corner], '.1f')} dB at {_fmt(pm.f180_hz[corner], 'Hz')}"
+               if np.isfinite(pm.gm_db[corner]) else _gm(pm, corner))
+        lines.append(f"  predicted: fc {_fmt(pm.fc_hz[corner], 'Hz')}, PM {_plain(pm.pm_deg[corner], '.1f')} deg,"
+                     f" GM {gmp}")
+        lines.extend(wrap_note(note, first="  note: ") for note in mm.notes)
+    if m.kind == "loop" and abs(cmp.diff_deg[0]) > 135.0:
+        lines.append(wrap_note("at the lowest frequency the measured phase is opposite to the predicted one: if the"
+                               " analyser shows the loop as -T (its phase at crossover is the phase margin), give"
+                               " --invert", first="  note: "))
+    picks = np.unique([int(np.argmin(np.abs(np.log(m.f_hz / f)))) for f in np.geomspace(lo, hi, 9)])
+    meas_ph = np.degrees(np.unwrap(np.angle(cmp.measured)))
+    pred_ph = np.degrees(np.unwrap(np.angle(cmp.predicted)))
+    cols = [Column("f", "Hz"), Column("measured", "dB"), Column("", "deg"), Column("predicted", "dB"),
+            Column("", "deg"), Column("difference", "dB"), Column("", "deg")]
+    rows = [[_fmt(m.f_hz[i], ""), _plain(20 * np.log10(abs(cmp.measured[i])), ".2f"), _plain(meas_ph[i], ".1f"),
+             _plain(20 * np.log10(abs(cmp.predicted[i])), ".2f"), _plain(pred_ph[i], ".1f"),
+             _plain(cmp.diff_db[i], "+.2f"), _plain(cmp.diff_deg[i], "+.1f")] for i in picks]
+    lines += ["", "Measured against predicted (difference = measured / predicted):", format_table(cols, rows, indent="  ")]
+    if args.fit or args.save_fit:
+        from .measured_fit import FIT_PARAMETERS, fit_stage
+
+        params = tuple(filter(None, (x.strip() for x in args.fit_params.split(","))))
+        for p in params or ("",):
+            if p not in FIT_PARAMETERS:
+                raise DesignError("--fit-params", args.fit_params, f"a list from {', '.join(FIT_PARAMETERS)}")
+        fit = fit_stage(design, m, corner, params=params, result=result)
+        gain_unit = "1/" + ("ohm" if design.control.scheme == "peak-current" else "V")
+        frows = [[p.name, ("ohm" if _ASCII and p.unit == "Ω" else p.unit) or gain_unit, _fmt(p.design_value), _fmt(p.value),
+                  _fmt(p.sigma) if np.isfinite(p.sigma) else EMPTY,
+                  f"{(p.value / p.design_value - 1):+.1%}" if p.design_value else EMPTY,
+                  "at bound" if p.at_bound else ""] for p in fit.parameters]
+        lines += ["", f"Fitted stage parameters (bounded least squares, corner #{corner}):",
+                  format_table([Column("param", align="<"), Column("unit", align="<"), Column("design"),
+                                Column("fitted"), Column("+-1 sigma" if _ASCII else "±1 sigma"), Column("change"), Column("", align="<")],
+                               frows, indent="  "),
+                  f"  residual rms {fit.rms_db:.3f} dB, {fit.rms_deg:.2f} deg over {fit.n_points} points"]
+        if not fit.success:
+            lines.append(wrap_note(f"the fit did not converge: {fit.message}", first="  note: "))
+        lines.extend(wrap_note(note, first="  note: ") for note in fit.notes)
+        if args.save_fit:
+            from .designfile import save_design
+
+            save_design(fit.design, args.save_fit)
+            lines.append(wrap_note(f"wrote {args.save_fit}: the design with the fitted values"))
+    if args.csv:
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        w.writerow(["f_hz", "measured_mag_db", "measured_phase_deg", "predicted_mag_db", "predicted_phase_deg",
+                    "diff_db", "diff_deg"])
+        for i in range(m.f_hz.size):
+            w.writerow([f"{m.f_hz[i]:.10g}", f"{20 * np.log10(abs(cmp.measured[i])):.6g}", f"{meas_ph[i]:.6g}",
+                        f"{20 * np.log10(abs(cmp.predicted[i])):.6g}", f"{pred_ph[i]:.6g}", f"{cmp.diff_db[i]:.6g}",
+                        f"{cmp.diff_deg[i]:.6g}"])
+        _write_text(args.csv, buf.getvalue())
+        lines.append(wrap_note(f"wrote {args.csv}: measured, predicted and difference at {m.f_hz.size} frequencies"))
+    lines.append(wrap_note(CAUTION))
+    print("\n".join(lines))
+    return 0
+
+
 # ---------------------------------------------------------------------- parser
 def build_parser() -> argparse.ArgumentParser:
     """The argparse parser of the ``loopkit`` command."""
@@ -685,6 +787,22 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--svg", metavar="OUT.svg", help="drawing of the network with the parts to build")
     _add_target_options(p)
     p.set_defaults(run=_cmd_export)
+
+    p = sub.add_parser("measured", help="a bench measurement against the design: margins, difference, fit")
+    p.add_argument("file", metavar="FILE", help="design file (TOML)")
+    p.add_argument("measurement", metavar="MEASUREMENT.csv", help="measured response (CSV from the analyser)")
+    p.add_argument("--kind", choices=("loop", "plant", "compensator"), default="loop",
+                   help="what was measured: loop gain T (default), plant (control voltage to output), compensator")
+    p.add_argument("--corner", help="corner index the measurement was taken at (default: the design corner)")
+    p.add_argument("--columns", help="column mapping where the header is ambiguous, e.g. f_khz=0,gain_db=2,phase_deg=3")
+    p.add_argument("--invert", action="store_true",
+                   help="negate the measurement (an analyser that shows the loop as -T)")
+    p.add_argument("--fit", action="store_true", help="fit output capacitance, ESR, inductance and modulator gain")
+    p.add_argument("--fit-params", default="c,esr,l,gain", metavar="LIST",
+                   help="parameters to fit, from c, esr, l, gain (default all)")
+    p.add_argument("--save-fit", metavar="OUT.toml", help="with --fit: write the design with the fitted values")
+    p.add_argument("--csv", metavar="OUT", help="write measured, predicted and difference at every frequency")
+    p.set_defaults(run=_cmd_measured)
 
     p = sub.add_parser("gui", help="open the desktop app")
     p.add_argument("file", metavar="FILE", nargs="?", help="design file to open")
