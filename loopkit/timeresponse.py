@@ -68,7 +68,6 @@ __all__ = [
     "StepResponse",
     "closed_loop_transfers",
     "deviation_rule_of_thumb",
-    "expm_stacked",
     "ramp_step",
     "realise",
     "sizing",
@@ -237,60 +236,6 @@ def realise(tf: Rational) -> StateSpace:
 
 
 # ---------------------------------------------------------------------------- simulation
-_PADE13 = (64764752532480000.0, 32382376266240000.0, 7771770303897600.0, 1187353796428800.0, 129060195264000.0,
-           10559470521600.0, 670442572800.0, 33522128640.0, 1323241920.0, 40840800.0, 960960.0, 16380.0, 182.0, 1.0)
-_THETA13 = 5.371920351148152
-
-
-def expm_stacked(a: np.ndarray) -> np.ndarray:
-    """Matrix exponential of a stack of square matrices (..., m, m).
-
-    Notes
-    -----
-    Scaling and squaring with the [13/13] Pade approximant: N. J. Higham, "The
-    scaling and squaring method for the matrix exponential revisited", SIAM J.
-    Matrix Anal. Appl. 26(4), 1179-1193, 2005 (Algorithm 2.3, the degree-13
-    branch with its coefficients and theta_13), the number of squarings per
-    matrix from ``max(||A^8||^(1/8), ||A^10||^(1/10))`` rather than ``||A||``
-    (A. H. Al-Mohy, N. J. Higham, "A new scaling and squaring algorithm for the
-    matrix exponential", SIAM J. Matrix Anal. Appl. 31(3), 970-989, 2009, sec. 4:
-    non-normal matrices are otherwise over-scaled and lose digits).
-    Written out because ``scipy.linalg.expm`` contends for BLAS threads on a
-    loaded machine (20 ms for an 8 x 8 matrix instead of 60 us); the tests compare
-    the two.
-    """
-    a = np.asarray(a, float)
-    shape = a.shape
-    a = a.reshape((-1,) + shape[-2:])
-    if a.shape[0] == 0 or shape[-1] == 0:
-        return np.broadcast_to(np.eye(shape[-1]), shape).copy()
-    a2 = a @ a
-    a4 = a2 @ a2
-    a8 = a4 @ a4
-
-    def norm1(x):
-        return np.max(np.sum(np.abs(x), axis=-2), axis=-1)
-
-    with np.errstate(divide="ignore"):
-        eta = np.maximum(norm1(a8) ** (1 / 8), norm1(a8 @ a2) ** (1 / 10))
-        squarings = np.where(eta > _THETA13, np.ceil(np.log2(eta / _THETA13)), 0.0).astype(int)
-    scale = 2.0 ** -squarings
-    a = a * scale[:, None, None]
-    a2 = a2 * scale[:, None, None] ** 2
-    a4 = a4 * scale[:, None, None] ** 4
-    a6 = a4 @ a2
-    b = _PADE13
-    eye = np.broadcast_to(np.eye(a.shape[-1]), a.shape)
-    u = a @ (a6 @ (b[13] * a6 + b[11] * a4 + b[9] * a2) + b[7] * a6 + b[5] * a4 + b[3] * a2 + b[1] * eye)
-    v = a6 @ (b[12] * a6 + b[10] * a4 + b[8] * a2) + b[6] * a6 + b[4] * a4 + b[2] * a2 + b[0] * eye
-    r = np.linalg.solve(v - u, v + u)
-    for j in range(int(squarings.max())):
-        more = squarings > j
-        r[more] = r[more] @ r[more]
-    r = r.reshape(shape)
-    return r
-
-
 def time_grid(span_s: float, rise_s: float = 0.0, fine_dt_s: float | None = None,
               max_points: int = _MAX_POINTS) -> tuple[np.ndarray, list[tuple[float, int]]]:
     """Time points from 0 to ``span_s`` with the end of the rise on the grid.
@@ -349,7 +294,9 @@ def ramp_step(ss: StateSpace, amplitude, rise_s: float, steps: list[tuple[float,
     ``z(t + dt) = expm(M dt) z(t)`` exactly (C. Van Loan, "Computing integrals
     involving the matrix exponential", IEEE Trans. Automatic Control 23(3),
     1978; the same construction as a first-order hold).  At the end of the rise
-    the slope is set to zero.  One stacked ``expm`` per segment; the powers of
+    the slope is set to zero.  One ``scipy.linalg.expm`` per corner and segment
+    (Al-Mohy and Higham's scaling and squaring, robust for the strongly
+    non-normal cascade matrices); the powers of
     it by repeated squaring, so a segment of N steps costs log2(N) batched
     matrix products.
     """
@@ -368,7 +315,7 @@ def ramp_step(ss: StateSpace, amplitude, rise_s: float, steps: list[tuple[float,
         raise DesignError("rise", format_value(rise_s, "s"), "must end the first segment of the time grid (time_grid)")
     states = [z[:, :, None]]
     for j, (dt, count) in enumerate(steps):
-        phi = expm_stacked(big * dt)
+        phi = np.stack([scipy.linalg.expm(m_k * dt) for m_k in big])
         seg = _powers_times(phi, z, count)  # (n, m + 2, count): after 1 .. count steps
         states.append(seg)
         z = seg[:, :, -1].copy()
