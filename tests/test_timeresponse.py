@@ -249,3 +249,21 @@ def test_sizing_rule_round_trip():
 def test_bad_input_is_a_design_error(kwargs):
     with pytest.raises(DesignError):
         step_response(_result("sample_designs/buck_24v_3v3.toml"), **kwargs)
+
+
+def test_cli_step_table_csv_and_exit_status(tmp_path, capsys):
+    """The command prints the library's own figures, writes the waveforms, and exits 1 only when a spec is missed."""
+    from loopkit.cli import main
+
+    path = "sample_designs/buck_24v_3v3.toml"
+    out = tmp_path / "w.csv"
+    assert main(["step", path, "--load", "0.5:3", "--rise", "1u", "--csv", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "load step 500mA to 3A" in text and "Caution" in text and "common practice, no source" in text
+    rows = out.read_text().splitlines()
+    assert rows[1].startswith("load t_s,") and rows[1].count("dv_v") == 3 and len(rows) > 100
+    assert main(["step", path, "--load", "0.5:3", "--max-dev", "1m"]) == 1
+    assert main(["step", path, "--load", "0.5:3", "--max-dev", "10%"]) == 0
+    assert main(["step", path]) == 2
+    assert main(["step", path, "--load", "3"]) == 2
+    assert main(["step", path, "--ref-step", "1%", "--corner", "99"]) == 2
