@@ -9,13 +9,13 @@ Closed-loop relations (sign convention of :mod:`loopkit.loop`: ``Tu = H Fm Gvd``
 ``T = -Tu Gc``, the network ``Gc`` inverting; ``H`` the sensing, ``H0`` its dc
 gain).  Around the operating point::
 
-    v = Gvd d + Gvg vg + Zout i_inj          i_inj = -(load current rise)
+    v = Gvd d + Gvg vg + Zout i_inj          i_inj = -sign(Vout) (load current rise)
     d = Fm vc,   vc = Gc (H v - H0 r)         (voltage mode)
 
 with ``r`` the output set-point change in volts (``H0 r`` at the comparison
 node).  Eliminating ``d``::
 
-    v / i_load = -Zout / (1 + T)             (:func:`loopkit.loop.closed_loop` "zout")
+    v / i_load = -sign(Vout) Zout / (1 + T)  (:func:`loopkit.loop.closed_loop` "zout")
     v / vg     =  Gvg / (1 + T)              (:func:`loopkit.loop.closed_loop` "gvg")
     v / r      =  T / (1 + T) * H0 / H
 
@@ -24,6 +24,10 @@ and, in voltage mode, the duty and the inductor current::
     d = Fm Gc H v             (load and line steps)
     d = -Fm Gc H0 r / (1 + T) (reference step)
     i = Gid d + Gig vg + Gii i_inj
+
+(a load on a negative output draws its current out of ground into the output
+node, so there a rise of the load's magnitude injects current: the output
+moves toward zero, its magnitude drops as on a positive rail).
 
 (Erickson & Maksimovic, Fundamentals of Power Electronics, 2nd ed., 2001,
 ch. 9: closed-loop output impedance and line-to-output as the open-loop
@@ -347,6 +351,12 @@ def _sensitivity(result: LoopResult) -> Rational:
     return Rational.from_polys(den, char)
 
 
+def _load_sign(design) -> float:
+    """Injected current per unit rise of the load current's magnitude: -1 for a positive output, +1 for a
+    negative one (the load then draws its current out of ground into the output node)."""
+    return -1.0 if design.operating.vout > 0 else 1.0
+
+
 def closed_loop_transfers(result: LoopResult, kind: str) -> dict[str, Rational | None]:
     """Closed-loop transfers of a step ``kind`` per corner: ``{"v": ..., "d": ..., "i": ...}``.
 
@@ -366,7 +376,7 @@ def closed_loop_transfers(result: LoopResult, kind: str) -> dict[str, Rational |
     h0 = float(h.dc_gain()[0])
     sens = _sensitivity(result)
     if kind == "load":
-        v = -closed_loop(result, "zout")
+        v = closed_loop(result, "zout") * _load_sign(design)
     elif kind == "line":
         v = closed_loop(result, "gvg")
     else:
@@ -380,7 +390,7 @@ def closed_loop_transfers(result: LoopResult, kind: str) -> dict[str, Rational |
         i = stage.gid * d
     else:
         d = (fm_gc * h * v).cancel()  # Gc's integrator cancels the zero at the origin of 1/(1 + T)
-        i = stage.gid * d + (-stage.gii if kind == "load" else stage.gig)
+        i = stage.gid * d + (stage.gii * _load_sign(design) if kind == "load" else stage.gig)
     out["d"], out["i"] = d, i
     return out
 

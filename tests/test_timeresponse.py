@@ -267,3 +267,19 @@ def test_cli_step_table_csv_and_exit_status(tmp_path, capsys):
     assert main(["step", path]) == 2
     assert main(["step", path, "--load", "3"]) == 2
     assert main(["step", path, "--ref-step", "1%", "--corner", "99"]) == 2
+
+
+@pytest.mark.parametrize("path", ["sample_designs/boost_liion_5v.toml", "sample_designs/inverting_minus15v.toml"])
+def test_boost_type_charge_balance_after_a_load_step(path):
+    """Capacitor charge balance (Erickson & Maksimovic, 2nd ed., sec. 2.3): the rectifier delivers d' iL to
+    the output, so in steady state d' iL = |I_out|, linearised D' dI_L - I_L dD = dI_out.  A rise of the load
+    current's magnitude must raise the inductor current and bring |Vout| down first (also on the negative rail)."""
+    result = _result(path)
+    ccm = ~result.stage.dcm
+    sr = step_response(result, "load", 0.05, span_s=0.1)  # settled: the light-load corners are slow
+    d_il = sr.i[:, -1] - sr.i0
+    d_d = sr.duty[:, -1] - sr.duty0
+    lhs = (1 - sr.duty0) * d_il - sr.i0 * d_d
+    assert_allclose(lhs[ccm], 0.05, rtol=1e-4)
+    assert np.all(d_il[ccm] > 0)
+    assert np.all(np.sign(sr.peak_v) == -np.sign(result.design.operating.vout))
