@@ -153,21 +153,21 @@ def _pairing(num: np.ndarray, den: np.ndarray) -> list[tuple[list, list]]:
             singles = sorted((j for j, (z, p) in enumerate(sections) if len(p) == 1 and not z),
                              key=lambda j: abs(_logf(sections[j][1][0]) - _logf(pair[0])))
             if len(singles) < 2:
-                raise _improper(len(num), len(den))
+                raise _improper()
             a, b = sorted(singles[:2])
             sections[a] = ([], sections[a][1] + sections[b][1])
             del sections[b]
-            j = a if a < b else a - 1
+            j = a
         sections[j][0].extend(pair)
     for f in sorted(zr, key=_logf):
         j = nearest(f, 1)
         if j is None:
-            raise _improper(len(num), len(den))
+            raise _improper()
         sections[j][0].append(f)
     return sections
 
 
-def _improper(nz, np_) -> DesignError:
+def _improper() -> DesignError:
     return DesignError("closed loop", "more zeros than poles",
                        "a time response needs a proper transfer function (no more zeros than poles)")
 
@@ -568,7 +568,8 @@ def step_response(result: LoopResult, kind: str, amplitude: float, rise_s: float
         span, fine = _default_span(result, tfs["v"], rise_s)
         _, steps = time_grid(span if span_s is None else span_s, rise_s, fine)
     t = _times(steps)
-    v = ramp_step(realise(tfs["v"]), amplitude, rise_s, steps)
+    with np.errstate(over="ignore", invalid="ignore"):  # an unstable corner grows without bound: flagged below
+        v = ramp_step(realise(tfs["v"]), amplitude, rise_s, steps)
     final = tfs["v"].dc_gain() * amplitude
     fig = step_figures(t, v, final, band, disturbance=kind != "reference")
     n = stage.n_corners
@@ -576,8 +577,9 @@ def step_response(result: LoopResult, kind: str, amplitude: float, rise_s: float
     dmin = dmax = np.full(n, np.nan)
     sat = np.zeros(n, bool)
     if tfs["d"] is not None:
-        duty = stage.duty[:, None] + ramp_step(realise(tfs["d"]), amplitude, rise_s, steps)
-        i = stage.i_l[:, None] + ramp_step(realise(tfs["i"]), amplitude, rise_s, steps)
+        with np.errstate(over="ignore", invalid="ignore"):
+            duty = stage.duty[:, None] + ramp_step(realise(tfs["d"]), amplitude, rise_s, steps)
+            i = stage.i_l[:, None] + ramp_step(realise(tfs["i"]), amplitude, rise_s, steps)
         dmin, dmax = duty.min(axis=1), duty.max(axis=1)
         sat = (dmin < 0) | (dmax > design.modulator.max_duty)
     findings = []

@@ -283,3 +283,8 @@ def test_boost_type_charge_balance_after_a_load_step(path):
     assert_allclose(lhs[ccm], 0.05, rtol=1e-4)
     assert np.all(d_il[ccm] > 0)
     assert np.all(np.sign(sr.peak_v) == -np.sign(result.design.operating.vout))
+
+
+def test_improper_transfer_is_refused():
+    with pytest.raises(DesignError):
+        realise(Rational.from_factors(1.0, [(1.0, 1e-3), (1.0, 1e-4)], [(1.0, 1e-2)]))
