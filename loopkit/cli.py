@@ -7,6 +7,7 @@ Subcommands::
     loopkit design FILE [--fc 20k] [--pm 60] [--type 2|3] [--json] [--write]
     loopkit export FILE [--bom OUT.csv] [--spice OUT.cir] [--json OUT.json] [--svg OUT.svg]
     loopkit measured FILE MEASUREMENT.csv [--kind loop|plant] [--corner N] [--columns ...] [--fit] [--csv OUT]
+    loopkit step FILE --load 0.5:3 [--rise 1u] [--vin-step 18:24] [--ref-step 1%] [--band 1%] [--csv OUT]
     loopkit gui [FILE]
 
 Every command calls the same library path as the app and the tests
@@ -627,6 +628,134 @@ def _network_drawing(result) -> str:
     return f"{head}{sep}\n{comment}{body.lstrip()}" if sep else comment + body
 
 
+# ---------------------------------------------------------------------- step (closed loop in time)
+def _step_pair(text: str, option: str, unit: str) -> tuple[float, float]:
+    parts = str(text).split(":")
+    if len(parts) != 2:
+        raise DesignError(option, text, f"must be FROM:TO, e.g. 0.5:3 ({unit})")
+    a, b = (parse_value(x, option, unit) for x in parts)
+    if a == b:
+        raise DesignError(option, text, "FROM and TO must differ")
+    return a, b
+
+
+def _volts_or_percent(text: str, option: str, vout: float) -> float:
+    t = str(text).strip()
+    if t.endswith("%"):
+        try:
+            pct = float(t[:-1])
+        except ValueError:
+            raise DesignError(option, text, "must be a voltage (e.g. 50m) or a percentage of Vout (e.g. 1%)") from None
+        return pct / 100.0 * abs(vout)
+    return parse_value(t, option, "V")
+
+
+def _cmd_step(args) -> int:
+    """Load, input-voltage and set-point steps per corner from the averaged closed loop."""
+    from .loop import LoopSession, apply_parts, design_loop
+    from .timeresponse import deviation_rule_of_thumb, sizing, step_response
+
+    design = load_design(args.file)
+    vout = abs(design.operating.vout)
+    if not (args.load or args.vin_step or args.ref_step):
+        raise DesignError("--load/--vin-step/--ref-step", "(none given)", "give at least one step")
+    rise = parse_value(args.rise, "--rise", "s") if args.rise is not None else 0.0
+    band = _volts_or_percent(args.band, "--band", vout) if args.band is not None else 0.01 * vout
+    limit = _volts_or_percent(args.max_dev, "--max-dev", vout) if args.max_dev is not None else None
+    settle_limit = parse_value(args.max_settle, "--max-settle", "s") if args.max_settle is not None else None
+    span = parse_value(args.span, "--span", "s") if args.span is not None else None
+    for option, value in (("--band", band), ("--max-dev", limit), ("--max-settle", settle_limit), ("--span", span)):
+        if value is not None and not value > 0:
+            raise DesignError(option, getattr(args, option[2:].replace("-", "_")), "must be > 0")
+    base = _loop_result(design, args, need_parts="simulate")
+    built = apply_parts(design, base)
+    runs = []  # (title, kind, amplitude, result)
+    if args.load:
+        a, b = _step_pair(args.load, "--load", "A")
+        moved = replace(built, operating=replace(built.operating, load=(a,)))
+        runs.append((f"load step {_fmt(a, 'A')} to {_fmt(b, 'A')}", "load", b - a, LoopSession(moved).run()))
+    if args.vin_step:
+        a, b = _step_pair(args.vin_step, "--vin-step", "V")
+        moved = replace(built, operating=replace(built.operating, vin=(a,)))
+        runs.append((f"input step {_fmt(a, 'V')} to {_fmt(b, 'V')}", "line", b - a, LoopSession(moved).run()))
+    if args.ref_step:
+        r = _volts_or_percent(args.ref_step, "--ref-step", vout)
+        runs.append((f"set-point step {_fmt(r, 'V')}", "reference", r, design_loop(built)))
+    status, csv_cols, lines = 0, [], [design.title or Path(args.file).stem, f"file: {args.file}"]
+    for title, kind, amp, result in runs:
+        sr = step_response(result, kind, amp, rise_s=rise, band_v=band, span_s=span)
+        corners = range(result.stage.n_corners)
+        if args.corner is not None:
+            if not 0 <= args.corner < result.stage.n_corners:
+                raise DesignError("--corner", args.corner, f"must be from 0 to {result.stage.n_corners - 1}")
+            corners = [args.corner]
+        lines += ["", wrap_note(f"{title}, rise {_fmt(rise, 's')}, settling band ±{_fmt(band, 'V')}"
+                                " (averaged small-signal model, linearised at the step's start)")]
+        cols = [Column("#"), Column("corner", "", "<"), Column("peak", "V"), Column("peak", "%"),
+                Column("at", "s"), Column("final", "V"), Column("overshoot", "%"), Column("settles", "s"),
+                Column("duty", "range")]
+        rows = []
+        for k in corners:
+            duty = EMPTY if sr.duty is None else f"{sr.duty_min[k]:.0%}-{sr.duty_max[k]:.0%}"
+            rows.append([str(k), corner_name(result.stage.vin[k], result.stage.load[k]).replace("vin=", "")
+                         .replace(" load=", " "), _fmt(sr.peak_v[k], "V"), _plain(sr.peak_pct[k], ".2f"),
+                         _fmt(sr.t_peak_s[k], "s"), _fmt(sr.final_v[k], "V"), _plain(sr.overshoot_pct[k], ".1f"),
+                         _fmt(sr.settle_s[k], "s"), duty])
+        lines.append(format_table(cols, rows))
+        if kind == "load":
+            c_f = sum(bank.capacitance * bank.count for bank in design.stage.output_caps)
+            fc = result.margins.fc_hz
+            est = deviation_rule_of_thumb(amp, fc, c_f)
+            text = (f"rule of thumb dV = dI/(2 pi fc C) (common practice, no source), C = {_fmt(c_f, 'F')}: "
+                    + ", ".join(f"#{k} {_fmt(est[k], 'V')} (fc {_fmt(fc[k], 'Hz')})" for k in corners))
+            if limit is not None:
+                need = sizing(amp, limit, fc, c_f)
+                text += (f"; to keep within {_fmt(limit, 'V')}: fc >= {_fmt(need['fc_needed_hz'][0], 'Hz')} with"
+                         f" this C, or C >= " + ", ".join(f"#{k} {_fmt(need['c_needed_f'][k], 'F')}" for k in corners)
+                         + " at today's fc")
+            lines.append(wrap_note(text))
+        if args.corner is None:
+            notes = [f for f in sr.findings]
+        else:
+            notes = [f for f in sr.findings if f.corner == args.corner]
+        lines += _findings_text(notes)
+        if result.design.control.scheme != "voltage-mode":
+            lines.append(wrap_note("duty and inductor current: voltage mode only (not modelled for this scheme)"))
+        if limit is not None and np.any(~(np.abs(sr.peak_v[list(corners)]) <= limit)):
+            status = EXIT_NOT_MET
+        if settle_limit is not None and np.any(~(sr.settle_s[list(corners)] <= settle_limit)):
+            status = EXIT_NOT_MET
+        csv_cols.append((kind, result, sr, list(corners)))
+    lines += ["", wrap_note(CAUTION)]
+    if args.csv:
+        _write_text(args.csv, _step_csv(csv_cols))
+        lines.insert(-2, wrap_note(f"wrote {args.csv}"))
+    print("\n".join(lines))
+    if status:
+        print(f"loopkit step: {args.file}: a step misses --max-dev/--max-settle (see the table)", file=sys.stderr)
+    return status
+
+
+def _step_csv(runs) -> str:
+    """One block per step: t_s, then per corner the output deviation (and inductor current, duty in voltage mode)."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow([f"# {CAUTION}"])
+    for kind, result, sr, corners in runs:
+        names = _corner_names(result.stage)
+        header, cols = [f"{kind} t_s"], [sr.t_s]
+        for k in corners:
+            header.append(f"{kind} {names[k]} dv_v")
+            cols.append(sr.v[k])
+            if sr.i is not None:
+                header += [f"{kind} {names[k]} il_a", f"{kind} {names[k]} duty"]
+                cols += [sr.i[k], sr.duty[k]]
+        writer.writerow(header)
+        for row in np.stack(cols, axis=1):
+            writer.writerow([f"{x:.9g}" for x in row])
+    return buf.getvalue()
+
+
 def _cmd_stage(args) -> int:
     design = load_design(args.file)
     print(stage_report(design, analyse_stage(design), args.file))
@@ -803,6 +932,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--save-fit", metavar="OUT.toml", help="with --fit: write the design with the fitted values")
     p.add_argument("--csv", metavar="OUT", help="write measured, predicted and difference at every frequency")
     p.set_defaults(run=_cmd_measured)
+
+    p = sub.add_parser("step", help="load, input and set-point steps per corner: peak, overshoot, settling")
+    p.add_argument("file", metavar="FILE", help="design file (TOML)")
+    p.add_argument("--load", metavar="FROM:TO", help="load step, A, e.g. 0.5:3 (linearised at FROM)")
+    p.add_argument("--vin-step", metavar="FROM:TO", help="input-voltage step, V, e.g. 18:24 (linearised at FROM)")
+    p.add_argument("--ref-step", metavar="STEP", help="set-point step: volts (50m) or percent of Vout (1%%)")
+    p.add_argument("--rise", help="rise time of the step, s (default 0: an ideal step)")
+    p.add_argument("--band", help="settling band: volts or percent of Vout (default 1%%)")
+    p.add_argument("--max-dev", help="allowed peak deviation: volts or percent of Vout (exit 1 when missed)")
+    p.add_argument("--max-settle", help="allowed settling time, s (exit 1 when missed)")
+    p.add_argument("--span", help="simulated time, s (default from the crossover and the slowest pole)")
+    p.add_argument("--corner", type=int, help="show one corner only (index in the step's corners)")
+    p.add_argument("--csv", metavar="OUT", help="write the waveforms as CSV")
+    p.set_defaults(run=_cmd_step)
 
     p = sub.add_parser("gui", help="open the desktop app")
     p.add_argument("file", metavar="FILE", nargs="?", help="design file to open")
