@@ -139,7 +139,7 @@ class MainWindow(QMainWindow):
         banner.setStyleSheet("#caution_banner { background: #fff6d6; border: 1px solid #e0c060; border-radius: 3px; }")
         h = QHBoxLayout(banner)
         h.setContentsMargins(8, 3, 8, 3)
-        text = QLabel(f"<b>Caution.</b> {CAUTION_SHORT}")
+        text = QLabel(CAUTION_SHORT.replace("Caution:", "<b>Caution:</b>", 1))
         text.setWordWrap(True)
         h.addWidget(text, 1)
         more = QPushButton("Read more")

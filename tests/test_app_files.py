@@ -111,7 +111,7 @@ def test_a_design_whose_loop_fails_while_opening_is_reported_in_the_window(make_
     assert window.open_path(SAMPLES[0], ask=False)
     shown_design, shown_path = window.model.design, window.model.path
 
-    def broken(session, design):
+    def broken(session, design, preview=False):
         raise ZeroDivisionError("float division by zero")  # what a computation that fails inside looks like
 
     monkeypatch.setattr(viewmodel.DesignModel, "_run", staticmethod(broken))

@@ -181,10 +181,10 @@ def test_infeasible_keeps_plant_and_last_feasible_loop(window):
     bode = window.bode
     last_mag = bode.loop_mag._y.copy()
     fc = model.targets.fc_hz * 3
-    model.set_targets("infeasible", pm=85.0, fc=fc)
+    model.set_targets("infeasible", pm=85.0, fc=fc, method="k-factor")  # the K-factor alone cannot do it
     r = model.result
     design = load_design(SAMPLES["boost_liion_5v"])
-    want = design_loop(design, replace(Targets.from_design(design), pm_deg=85.0, fc_hz=fc))
+    want = design_loop(design, replace(Targets.from_design(design), pm_deg=85.0, fc_hz=fc, method="k-factor"))
     assert not r.feasible and not want.feasible
     reason = next(f.message for f in want.findings if f.code == "infeasible")
     # the plant, in full colour, and the last feasible loop, grey and dashed, with legend entries
@@ -214,7 +214,7 @@ def test_infeasible_keeps_plant_and_last_feasible_loop(window):
 def test_infeasible_on_open_shows_the_plant(window, tmp_path):
     """A file whose targets cannot be met opens with its plant shown (no last feasible loop of another design)."""
     text = SAMPLES["boost_liion_5v"].read_text(encoding="utf-8")
-    text = re.sub(r"(?m)^pm\s*=.*$", "pm = 88", text, count=1)
+    text = re.sub(r"(?m)^pm\s*=.*$", 'pm = 88\nmethod = "k-factor"', text, count=1)
     p = tmp_path / "hard.toml"
     p.write_text(text, encoding="utf-8")
     assert window.open_path(p, ask=False)
@@ -284,9 +284,9 @@ def test_start_computes_the_design_once(qapp, tmp_path, monkeypatch):
             sessions.append(design.title)
             super().__init__(design)
 
-        def run(self, targets=None):
+        def run(self, targets=None, preview=False):
             runs.append(targets)
-            return super().run(targets)
+            return super().run(targets, preview)
 
     monkeypatch.setattr(vm, "LoopSession", Counting)
     window = build_window(str(SAMPLES["buck_24v_3v3"]))

@@ -32,6 +32,7 @@ from loopkit.margins import GM_WORDS, gm_state
 
 ROOT = __import__("conftest").ROOT
 SAMPLES = __import__("conftest").SAMPLES
+BUCK24 = next(p for p in SAMPLES if p.stem == "buck_24v_3v3")
 
 
 class Unexpected(AssertionError):
@@ -227,7 +228,7 @@ def test_marker_drag_matches_library(window, sample_path):
 
 
 def test_marker_preview_updates_every_move(window):
-    model = open_sample(window, SAMPLES[1])
+    model = open_sample(window, BUCK24)
     fc0 = model.targets.fc_hz
     seen = []
     model.results_changed.connect(lambda r: seen.append(r.targets.fc_hz))
@@ -246,7 +247,7 @@ def test_network_and_boost_split(window):
     bar = window.targets_bar
     bar.split_slider.setValue(45)
     assert model.targets.boost_split == 0.45
-    design = load_design(SAMPLES[1])
+    design = load_design(BUCK24)
     want = design_loop(design, replace(Targets.from_design(design), boost_split=0.45))
     assert want.feasible
     assert_shows(window, want)
@@ -263,12 +264,12 @@ def test_network_and_boost_split(window):
 
 
 def test_series_change_moves_parts(window):
-    model = open_sample(window, SAMPLES[1])
+    model = open_sample(window, BUCK24)
     box = window.parts.resistor_series
     i = box.findData("E24")
     box.setCurrentIndex(i)
     box.activated.emit(i)
-    design = load_design(SAMPLES[1])
+    design = load_design(BUCK24)
     want = design_loop(design, replace(Targets.from_design(design), resistor_series="E24"))
     assert model.targets.resistor_series == "E24"
     assert_shows(window, want)
@@ -281,7 +282,7 @@ def test_series_change_moves_parts(window):
     ("operating.vout", "0", "nonzero"),
 ])
 def test_invalid_field_shows_message_and_keeps_design(window, qtbot, key, text, words):
-    model = open_sample(window, SAMPLES[1])
+    model = open_sample(window, BUCK24)
     before, result = model.design, model.result
     field = window.form.widget_for(key)
     field.setFocus()
@@ -307,7 +308,7 @@ def test_invalid_field_shows_message_and_keeps_design(window, qtbot, key, text, 
 
 def test_invalid_topology_change_reverts(window):
     """A boost cannot make 3.3 V from 18-32 V: the choice is refused with analyse_stage's words."""
-    model = open_sample(window, SAMPLES[1])
+    model = open_sample(window, BUCK24)
     before = model.design
     box = window.form.widget_for("stage.topology")
     i = box.findData("boost")
@@ -338,7 +339,7 @@ def test_light_load_automatic(window):
 
 
 def test_fill_range_and_corner_count(window):
-    model = open_sample(window, SAMPLES[1])
+    model = open_sample(window, BUCK24)
     form = window.form
     form._vin_points.setValue(7)
     form._on_fill_vin()
@@ -495,7 +496,7 @@ def test_finding_selects_its_corner(window):
 
 
 def test_vin_scrub_highlights_corners(window):
-    model = open_sample(window, SAMPLES[1])
+    model = open_sample(window, BUCK24)
     s = window.targets_bar.vin_slider
     s.setValue(2)
     v = sorted(set(model.design.operating.vin))[1]
@@ -506,7 +507,7 @@ def test_vin_scrub_highlights_corners(window):
 
 
 def test_sweep_runs_off_thread_and_cancels(window, qtbot):
-    model = open_sample(window, SAMPLES[1])
+    model = open_sample(window, BUCK24)
     dialog = window.open_sweep()
     qtbot.addWidget(dialog)
     qtbot.waitUntil(lambda: dialog.data is not None, timeout=30000)
@@ -559,7 +560,7 @@ def test_start_up_and_slider_do_not_import_control(tmp_path):
         "from PySide6.QtWidgets import QApplication\n"
         "app = QApplication([])\n"
         "from app.main import build_window\n"
-        f"w = build_window({str(SAMPLES[1])!r}); w.show()\n"
+        f"w = build_window({str(BUCK24)!r}); w.show()\n"
         "from app.testing import settle; settle(0.5)\n"
         "w.targets_bar.fc_slider.setValue(w.targets_bar.fc_slider.value() + 20); settle(0.3)\n"
         "print(sorted(m for m in ('control', 'matplotlib') if m in sys.modules))\n"
