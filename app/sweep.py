@@ -28,6 +28,7 @@ from PySide6.QtWidgets import (
 )
 
 from loopkit import DesignError, format_value
+from loopkit.bounds import MAX_CORNERS
 from loopkit.loop import apply_parts, design_loop
 
 from .plots import load_styles, vin_colour_map
@@ -64,7 +65,8 @@ class SweepWorker(QObject):
 
     def run(self) -> None:
         out = {"vin": [], "load": [], "fc_hz": [], "pm_deg": [], "gm_db": [], "stable": []}
-        chunks = [self._vin[i:i + _CHUNK] for i in range(0, len(self._vin), _CHUNK)]
+        size = max(1, min(_CHUNK, MAX_CORNERS // max(1, len(self._design.operating.load))))  # the corner cap
+        chunks = [self._vin[i:i + size] for i in range(0, len(self._vin), size)]
         try:
             for i, chunk in enumerate(chunks):
                 if self._cancel.is_set():
