@@ -29,6 +29,9 @@ from loopkit.margins import GM_WORDS, gm_state
 __all__ = ["COLUMNS", "GM_BEYOND_TIP", "CornersView", "below_target", "fc_text", "gm_cell", "gm_text", "pm_text"]
 
 COLUMNS = ("Vin (V)", "Load (A)", "Mode", "fc (Hz)", "PM (°)", "GM (dB)", "Qp")
+#: How each severity of finding is shown: a missed target first and in red, warnings amber, notes grey.
+_SEVERITY_PREFIX = {"error": "✖ Not met: ", "warning": "⚠ "}
+_SEVERITY_COLOUR = {"error": "#b02a00", "warning": "#8a3b00"}
 #: The Qp column (peak current mode's sampling double pole) shows only under current mode.
 _QP_COLUMN = COLUMNS.index("Qp")
 _WORST_BG = QColor("#fff1c9")
@@ -234,12 +237,14 @@ class CornersView(QWidget):
         self._findings_key = key
         with QSignalBlocker(self.findings):
             self.findings.clear()
-            order = sorted(findings, key=lambda f: (f.severity != "warning", f.corner is not None))
+            rank = {"error": 0, "warning": 1}
+            order = sorted(findings, key=lambda f: (rank.get(f.severity, 2), f.corner is not None))
             for f in order:
-                item = QListWidgetItem(f"⚠ {f.message}" if f.severity == "warning" else f"Note: {f.message}")
+                prefix = _SEVERITY_PREFIX.get(f.severity, "Note: ")
+                item = QListWidgetItem(f"{prefix}{f.message}")
                 item.setData(Qt.UserRole, -1 if f.corner is None else int(f.corner))
                 item.setToolTip(f"{f.code}: {f.message}")
-                item.setForeground(QBrush(QColor("#8a3b00" if f.severity == "warning" else "#555555")))
+                item.setForeground(QBrush(QColor(_SEVERITY_COLOUR.get(f.severity, "#555555"))))
                 self.findings.addItem(item)
             if not findings:
                 self.findings.addItem(QListWidgetItem("No warnings."))
