@@ -62,16 +62,30 @@ def loop_findings(m: Margins, stage: StageResult, fsw: float, targets) -> list[F
                                " does not predict it: no gain margin is given; measure it", k, "note"))
     return out
 
-def opamp_findings(module, parts: dict, ctx, f_hz: np.ndarray) -> list[Finding]:
-    """Where the network needs more gain than the amplifier has."""
+#: The amplifier's shortfall matters at a corner when it starts below this multiple of the corner's
+#: crossover: the loop's phase there is set within a decade or so of fc (common practice, no source).
+OPAMP_REACH = 10.0
+
+
+def opamp_findings(module, parts: dict, ctx, f_hz: np.ndarray, m: Margins | None = None,
+                   stage: StageResult | None = None) -> list[Finding]:
+    """Where the network needs more gain than the amplifier has: at every corner whose crossover lies
+    within :data:`OPAMP_REACH` of where the shortfall starts (else once, as a note for the design)."""
     check = getattr(module, "gain_shortfall", None)
     if check is None or ctx.opamp.ideal:
         return []
     short = check(parts, ctx, f_hz)
     if short is None:
         return []
-    return [Finding("opamp-gain", f"the network needs more gain than the op-amp has above"
-                    f" {format_value(short, 'Hz')}: choose an op-amp with more gain-bandwidth", None)]
+    text = (f"the network needs more gain than the op-amp has above {format_value(short, 'Hz')}, so the"
+            " loop there is not the designed one: choose an op-amp with more gain-bandwidth, or lower fc")
+    if m is None or stage is None:
+        return [Finding("opamp-gain", text, None)]
+    near = np.nonzero(np.isfinite(m.fc_hz) & (short < OPAMP_REACH * m.fc_hz))[0]
+    if near.size == 0:
+        return [Finding("opamp-gain", text.replace(", so the loop there is not the designed one", "")
+                        + " (well above every crossover: little effect)", None, "note")]
+    return [Finding("opamp-gain", f"{corner_label(stage.vin[k], stage.load[k])}: {text}", int(k)) for k in near]
 
 
 

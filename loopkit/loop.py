@@ -332,7 +332,7 @@ class LoopSession:
         worst = worst_corner(margins)
         findings.extend(eseries.part_warnings(parts))
         findings.extend(loop_findings(margins, self.stage, self.design.stage.fsw, targets))
-        findings.extend(opamp_findings(module, parts, self.ctx, self.f_hz))
+        findings.extend(opamp_findings(module, parts, self.ctx, self.f_hz, margins, self.stage))
         return LoopResult(
             design=with_targets(self.design, targets), stage=self.stage, targets=targets, f_hz=self.f_hz,
             feasible=True,

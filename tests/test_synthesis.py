@@ -311,3 +311,21 @@ def test_preview_reuses_the_search_and_a_full_run_does_not_depend_on_history():
     again = session.run(t)
     assert again.parts == fresh.parts
     assert LoopSession(design).run(t).parts == fresh.parts
+
+
+def test_slow_opamp_is_named_at_every_corner_it_affects():
+    """A 1 MHz, 80 dB op-amp cannot give a 20 kHz Type III its high-frequency gain: every corner whose
+    crossover lies within a decade of where the shortfall starts is named (common practice, no source);
+    the default 10 MHz part draws no such warning on the same sample."""
+    from loopkit.findings import OPAMP_REACH
+
+    design = load_design(SAMPLES[[p.stem for p in SAMPLES].index("boost_liion_5v")])
+    slow = replace(design, compensator=replace(design.compensator, opamp=OpAmp(gain_db=80, gbw=1e6)))
+    result = design_loop(slow)
+    named = [f for f in result.findings if f.code == "opamp-gain" and f.severity == "warning"]
+    assert named and all(f.corner is not None for f in named)
+    module = __import__("loopkit.networks", fromlist=["network_module"]).network_module(result.network)
+    short = module.gain_shortfall(result.parts, LoopSession(slow).ctx, result.f_hz)
+    want = {int(k) for k in np.nonzero(short < OPAMP_REACH * result.margins.fc_hz)[0]}
+    assert {f.corner for f in named} == want
+    assert not any(f.code == "opamp-gain" and f.severity == "warning" for f in design_loop(design).findings)
