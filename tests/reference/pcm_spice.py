@@ -28,7 +28,9 @@ The circuit (one deck per run)
   current itself.
 * Clock and ramp: a set pulse of Ts/100 at the start of each period; the
   external ramp ``Se t`` (a sawtooth, reset at the start of each period); a
-  maximum-duty pulse resets the latch from ``max_duty Ts`` to the period end.
+  maximum-duty pulse resets the latch from ``max_duty Ts`` to the period end
+  (in the unperturbed runs only: the perturbation runs stay far below it and
+  its edges would only cost time steps).
 * Comparator: an ngspice ``SW`` switch (pulling a node to 1 V) whose control
   is ``k (Ri i_L + v_ramp - v_c)``.  ngspice limits the time step as a
   switch's control approaches its threshold but lets it overshoot by 0.05 V;
@@ -311,8 +313,12 @@ def netlist(case: PcmCase, vc_v: float, state0, periods: int, *, perturb=None, t
         f"VIN in 0 DC {case.vin_v:.12g}",
         f"VC vc 0 DC {vc_v:.12g}{sine}",
         f"VSET set 0 PULSE(0 1 0 {e:.6g} {e:.6g} {_SET * ts:.9g} {ts:.12g})",
-        f"VMAX mx 0 PULSE(0 1 {dmax:.12g} {e:.6g} {e:.6g} {ts - dmax - 2 * e:.12g} {ts:.12g})",
-        f"VRAMP ramp 0 PULSE(0 {se * ts:.12g} 0 {ts - 2 * e:.12g} {e:.6g} {e / 2:.6g} {ts:.12g})",
+        (
+            f"VMAX mx 0 PULSE(0 1 {dmax:.12g} {e:.6g} {e:.6g} {ts - dmax - 2 * e:.12g} {ts:.12g})"
+            if record == "raw"
+            else "VMAX mx 0 DC 0"
+        ),
+        f"VRAMP ramp 0 PULSE(0 {se * ts:.12g} 0 {ts - e:.12g} {e:.6g} 0 {ts:.12g})" if se > 0 else "VRAMP ramp 0 DC 0",
         f"BCTL ctl 0 V = {kc:.9g} * ({ri:.12g} * i(VSL) + v(ramp) - v(vc))",
         "SCMP on cmp ctl 0 SWCMP",
         f".model SWCMP SW vt={-_CMP_H:g} vh={_CMP_H:g} ron=1e-3 roff=1e9",
@@ -692,11 +698,13 @@ class Doubling:
     Attributes
     ----------
     doubled : bool
-        The on-time alternates from cycle to cycle by more than ``threshold`` Ts
-        over the last cycles (a period-2 pattern), i.e. period doubling.
+        The on-time changes from cycle to cycle by more than ``threshold`` Ts
+        over the last cycles: period doubling (a period-2 pattern, or the
+        irregular one it turns into when the maximum duty clips it).
     alternation : float
-        Amplitude of the alternating (fsw/2) component of the on-time over the
-        last ``window`` cycles, in units of Ts.
+        Half the RMS cycle-to-cycle change of the on-time over the last
+        ``window`` cycles, in units of Ts: the amplitude of a period-2 pattern,
+        zero in the periodic steady state.
     alternation_a : float
         The same for the switch-current peak, A.
     on_times : ndarray
@@ -756,9 +764,8 @@ def period_doubling(
         pk[j] = isw[a:b].max()
     valley = np.interp(np.arange(periods) * ts, t, il)
     last = slice(periods - window, periods)
-    sign = (-1.0) ** np.arange(window)
-    alt = abs(np.mean(sign * (on[last] - on[last].mean())))
-    alt_a = abs(np.mean(sign * (pk[last] - pk[last].mean())))
+    alt = 0.5 * float(np.sqrt(np.mean(np.diff(on[last]) ** 2)))
+    alt_a = 0.5 * float(np.sqrt(np.mean(np.diff(pk[last]) ** 2)))
     return Doubling(
         doubled=bool(alt > threshold),
         alternation=float(alt),
