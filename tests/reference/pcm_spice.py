@@ -392,6 +392,7 @@ def netlist(case: PcmCase, vc_v: float, state0, periods: int, *, perturb=None, t
         ".control",
         "set wr_singlescale",
         "set wr_vecnames",
+        "set numdgt=12",
         "run",
         *out,
         ".endc",
@@ -420,7 +421,7 @@ def _run(text: str, t_stop: float, cache_dir=None) -> np.ndarray:
                 f"ngspice failed (exit {proc.returncode}):\n{proc.stdout[-2000:]}\n{proc.stderr[-2000:]}"
             )
         data = np.loadtxt(out, skiprows=1, ndmin=2)
-    if data[-1, 0] < t_stop * (1.0 - 1e-9):
+    if data[-1, 0] < t_stop * (1.0 - 1e-7):
         raise RuntimeError(f"ngspice stopped at t = {data[-1, 0]:.6g} s of {t_stop:.6g} s:\n{proc.stdout[-1500:]}")
     if path:
         np.save(path, data)
