@@ -27,20 +27,22 @@ control-to-output within 1 dB and 5 deg of ngspice up to fsw/4 (issue 9) and
 within 3 dB and 20 deg from fsw/4 to 0.45 fsw.  That wider band is our
 tolerance for the model's trend: a continuous-time model replaces the exact
 sampling gain He(s) = s Ts / (exp(s Ts) - 1) by its quadratic approximation
-(Ridley 1991), whose error grows towards fsw/2 (on bucks 0.5-0.8 dB and 3-6 deg
-at 0.3-0.45 fsw, REFERENCES.md, measured), and more where Qp is high; a model
-without the sampling double pole, or with it at the wrong Qp, misses by more
-(the double pole alone is 20-40 deg of phase at 0.45 fsw for the Qp here; the
-test ``test_tolerance_catches_a_missing_double_pole`` shows it on the buck).
+(Ridley 1991), whose error grows towards fsw/2 (REFERENCES.md, measured on
+other bucks: 0.5-0.8 dB and 3-6 deg at 0.3-0.45 fsw; here Ridley's formula is
+within 0.25 dB and 3.3 deg of the lossless bucks at 0.45 fsw), and more where
+Qp is high; a model without the sampling double pole misses by more (for
+Qp = 2/pi the double pole alone is 45 deg at fsw/4 and 80 deg at 0.45 fsw:
+``test_tolerance_catches_a_missing_double_pole``).
 With Se = 0 and D > 0.5 the simulation shows period doubling and the model's
 cycle-to-cycle ratio has magnitude >= 1; with the model's automatic slope
 neither.
 
 Designs: the sample designs with changed corners or capacitors (scenarios, not
 check values: the check values come from ngspice).  The output capacitors of
-the flyback and the four-switch stage are made smaller than the samples' so
-that the current-mode output pole is a few hundred hertz and a run of 10
-periods of the lowest frequency stays a few thousand switching periods.
+the boost, inverting, flyback and four-switch stages are made smaller than the
+samples' (and the inverting stage's load larger) so that the current-mode
+output pole is a few hundred hertz or more: one period of the lowest
+frequency, pole / 10, is then at most a few thousand switching periods.
 
 Runtime (2 cores, shared): the quick tests take about 10-20 s; each
 frequency-response case 10-40 s wall (printed with pytest -s).  Runs are cached
@@ -98,8 +100,8 @@ def _boost(vin, load):
 
 
 def _inverting(vin):
-    # one 10 uF capacitor and 0.6 A instead of 2 x 10 uF at 0.3 A: the pole at 1 kHz instead of 250 Hz
-    return _with(_sample("inverting_minus15v"), vin=[vin], load=[0.6], caps=[CapacitorBank(10e-6, 0.005, 1)])
+    # one 4.7 uF capacitor and 0.6 A instead of 2 x 10 uF at 0.3 A: the pole at 2 kHz instead of 250 Hz
+    return _with(_sample("inverting_minus15v"), vin=[vin], load=[0.6], caps=[CapacitorBank(4.7e-6, 0.005, 1)])
 
 
 def _inverting_dcm(vin):
@@ -108,8 +110,8 @@ def _inverting_dcm(vin):
 
 
 def _flyback(vin):
-    # 2 x 1000 uF electrolytic in the sample: a 2 Hz current-mode pole; 100 uF polymer here
-    return _with(_sample("flyback_48v_12v"), vin=[vin], load=[2.0], caps=[CapacitorBank(100e-6, 0.03, 1)])
+    # 2 x 1000 uF electrolytic in the sample: a 40 Hz current-mode pole; 47 uF polymer here (800 Hz)
+    return _with(_sample("flyback_48v_12v"), vin=[vin], load=[2.0], caps=[CapacitorBank(47e-6, 0.03, 1)])
 
 
 def _fourswitch(vin):

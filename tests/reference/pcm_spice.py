@@ -121,7 +121,10 @@ TOPOLOGIES = ("buck", "boost", "inverting-buck-boost", "flyback", "four-switch-b
 _ROFF = 1e8
 _G_OFF = 1e-9
 _R_MIN = 1e-4
-_EDGE = 1e-5  # pulse edges, fraction of Ts
+#: Pulse edges, fraction of Ts.  ngspice merges breakpoints closer than 5e-5 of the maximum
+#: step (Ts/10 here, so 5e-6 Ts); with edges of 1e-5 Ts a set pulse was lost after ~900
+#: periods and with it every later one (the chain of PULSE breakpoints broke).
+_EDGE = 1e-4
 _SET = 0.01  # set-pulse width, fraction of Ts
 _LATCH_TAU = 1.0 / 2000.0  # latch time constant, fraction of Ts
 _CMP_T = 1e-5  # comparator timing resolution, fraction of Ts
@@ -665,6 +668,9 @@ def _one_frequency(case, op, f_hz, amp, n_settle_tau, min_window, cache_dir):
     data = _run(text, periods * ts, cache_dir)
     t, vo, vc = data[:, 0], data[:, 1], data[:, 2]
     t_a, t_b = settle * ts, periods * ts
+    mean = _mean(t, vo, t_a, t_b)
+    if abs(mean - op.vout_v) > 0.02 * abs(op.vout_v):
+        raise RuntimeError(f"{case.topology} at {f_hz:.6g} Hz: output mean {mean:.6g} V, not {op.vout_v:.6g} V")
     yo = 2.0 * _fourier(t, vo, f_hz, t_a, t_b) / (t_b - t_a)
     yc = 2.0 * _fourier(t, vc, f_hz, t_a, t_b) / (t_b - t_a)
     return yo / yc, abs(yo) / abs(case.vout_v), time.perf_counter() - t0
