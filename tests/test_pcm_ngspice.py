@@ -335,6 +335,63 @@ def test_reference_buck_against_ridley_sweep(vin, se_rel, cache_dir):
     assert np.all(np.abs(db[~low]) < 1.0) and np.all(np.abs(deg[~low]) < 6.0)
 
 
+def dcm_inverting_charge_packets(case, f_hz):
+    """vo/vc of a DCM inverting buck-boost under peak current mode, from its charge packets.
+
+    Derived here from the circuit (our derivation, no published source; the DCM
+    relations D Vg = D2 (V + Vf) are Erickson & Maksimovic ch. 5): in DCM the
+    current starts from zero each period, so the peak is set afresh by vc at
+    the turn-off instant, ipk = vc / Ri (Se = 0), and the inductor then empties
+    into the output in a triangle of height ipk and length D2 Ts.  A peak
+    perturbation di turns the switch off later by L di / Vg (the triangle
+    starts later: a charge -ipk L di / Vg at the turn-off instant) and raises it
+    by di + S L di / Vg (S = (V + Vf)/L its down-slope) over D2 Ts.  Sampling
+    once per period at the turn-off instant, the output current seen at f is
+    P(f) di / Ts with P(f) = -D Ts + ((D + D2)/D2) (1 - exp(-j w D2 Ts))/(j w)
+    (P(0) = D2 Ts: the charge ipk D2 Ts / 2 grows by D2 Ts di); at low
+    frequency P is D2 Ts delayed by (D + D2) Ts / 2.  The output voltage's own
+    effect on the down-slope removes a charge v (D2 Ts)^2 / (2 L) per period, a
+    conductance D2^2 Ts / (2 L) beside the load and the capacitor with its ESR.
+    The inverting stage's output is negative: vo/vc = -P/(Ri Ts) Z.  The
+    operating point is the lossless one with the diode drop: the energy
+    L ipk^2 fsw / 2 = (V + Vf) Io per period, D = L ipk / (Vg Ts),
+    D2 = L ipk / ((V + Vf) Ts).
+    """
+    ts, l_h = case.ts_s, case.l_h
+    v = abs(case.vout_v) + case.vf_v
+    i_peak_a = math.sqrt(2.0 * v * abs(case.vout_v) / case.r_load_ohm / (l_h * case.fsw_hz))
+    duty = l_h * i_peak_a / (case.vin_v * ts)
+    d2 = l_h * i_peak_a / (v * ts)
+    w = 2.0 * np.pi * np.asarray(f_hz)
+    p = -duty * ts + (duty + d2) / d2 * (1.0 - np.exp(-1j * w * d2 * ts)) / (1j * w)
+    c, esr = case.caps[0]
+    z = 1.0 / (1.0 / case.r_load_ohm + d2**2 * ts / (2.0 * l_h) + 1.0 / (esr + 1.0 / (1j * w * c)))
+    return -p / (case.sense_gain_ohm * ts) * z
+
+
+@pytest.mark.slow
+def test_reference_dcm_matches_charge_packets(cache_dir):
+    """DCM inverting corner: ngspice's phase within 1.5 deg of the charge-packet analysis to fsw/4.
+
+    The analysis (:func:`dcm_inverting_charge_packets`) leaves out the
+    conduction losses (DCR, switch and diode resistance) and the output
+    ripple's effect on the slopes; they shift its gain by a few tenths of a dB
+    (measured +0.35 dB at pole/14, +0.1 dB above the pole), hence 0.5 dB.  The
+    phase is what tells: measured within 0.7 deg to fsw/4 and 2.4 deg at
+    0.45 fsw, so 1.5 deg to fsw/4 and 4 deg above.  The (D + D2) Ts / 2 delay in
+    the analysis is 7 deg at fsw/19 and 20 deg at fsw/6.5: the check sees it.
+    """
+    row = next(r for r in CASES if "-DCM" in r[0])
+    _design, result, k, case = _setup(row)
+    assert result.dcm[k] and case.slope_v_per_s == 0.0
+    res = ref.control_to_output(case, ref.frequencies(case, n=8), hint=_hint(result, k), cache_dir=cache_dir)
+    db, deg = _deviation(res, dcm_inverting_charge_packets(case, res.f_hz))
+    print(f"\n{row[0]} vs charge packets: {_fmt(res.f_hz, 10 ** (db / 20) * np.exp(1j * np.radians(deg)))}")
+    low = res.f_hz <= case.fsw_hz / 4.0
+    assert np.all(np.abs(db) < 0.5)
+    assert np.all(np.abs(deg[low]) < 1.5) and np.all(np.abs(deg[~low]) < 4.0)
+
+
 # ------------------------------------------------------------- loopkit's model
 def _model():
     return pytest.importorskip("loopkit.schemes.peak_current")
