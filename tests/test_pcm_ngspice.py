@@ -19,6 +19,12 @@ Checks of the reference itself (they run before loopkit's model exists):
   pole; common practice, no source beyond the textbooks' derivations:
   Erickson & Maksimovic, Fundamentals of Power Electronics, 2nd ed. 2001,
   ch. 12.1), and period doubling with Se = 0 at D > 0.5.
+* In DCM (the inverting stage at light load), a charge-packet analysis derived
+  here (:func:`dcm_inverting_charge_packets`): the peak is set afresh each
+  period, so the output receives one triangle of charge per period; a later
+  turn-off delays it, which puts a delay of (D + D2) Ts / 2 into vo/vc.  A DCM
+  model without that delay misses by 7 deg at fsw/19 and 20 deg at fsw/6.5 and
+  fails the model check below.
 
 Checks of loopkit's model (``loopkit.schemes.peak_current``; skipped until it
 exists): for every topology at two corners (one at D > 0.5) and one DCM
@@ -44,10 +50,12 @@ samples' (and the inverting stage's load larger) so that the current-mode
 output pole is a few hundred hertz or more: one period of the lowest
 frequency, pole / 10, is then at most a few thousand switching periods.
 
-Runtime (2 cores, shared): the quick tests take about 10-20 s; each
-frequency-response case 10-40 s wall (printed with pytest -s).  Runs are cached
-by their deck in a session temporary directory, so the model tests and the
-reports share them.
+Runtime (2 cores shared with other work; wall times vary 2-3x with the load):
+the quick tests (not ``slow``) about 10-15 s; each frequency-response case
+20-70 s (buck 20-25 s, boost 20-35 s, four-switch 20-35 s, inverting 35-55 s,
+flyback 60-70 s, DCM 50 s; printed with pytest -s); the whole file about
+10 minutes.  Runs are cached by their deck in a session temporary directory,
+so tests that share a case share its runs.
 """
 
 from __future__ import annotations

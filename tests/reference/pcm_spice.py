@@ -123,7 +123,8 @@ _G_OFF = 1e-9
 _R_MIN = 1e-4
 #: Pulse edges, fraction of Ts.  ngspice merges breakpoints closer than 5e-5 of the maximum
 #: step (Ts/10 here, so 5e-6 Ts); with edges of 1e-5 Ts a set pulse was lost after ~900
-#: periods and with it every later one (the chain of PULSE breakpoints broke).
+#: periods and with it every later one (the chain of PULSE breakpoints broke); edges of
+#: different sources are kept apart too (see :func:`netlist`).
 _EDGE = 1e-4
 _SET = 0.01  # set-pulse width, fraction of Ts
 _LATCH_TAU = 1.0 / 2000.0  # latch time constant, fraction of Ts
@@ -319,9 +320,11 @@ def netlist(case: PcmCase, vc_v: float, state0, periods: int, *, perturb=None, t
         f"* peak current mode, {case.topology}, vin={case.vin_v:g} V, vc={vc_v:.9g} V",
         f"VIN in 0 DC {case.vin_v:.12g}",
         f"VC vc 0 DC {vc_v:.12g}{sine}",
-        f"VSET set 0 PULSE(0 1 0 {e:.6g} {e:.6g} {_SET * ts:.9g} {ts:.12g})",
+        # edges of different sources never share a time: set rises over [2e, 3e], the
+        # maximum-duty reset falls over [Ts - 3e, Ts - 2e], the ramp resets over [Ts - e, Ts]
+        f"VSET set 0 PULSE(0 1 {2 * e:.9g} {e:.6g} {e:.6g} {_SET * ts:.9g} {ts:.12g})",
         (
-            f"VMAX mx 0 PULSE(0 1 {dmax:.12g} {e:.6g} {e:.6g} {ts - dmax - 2 * e:.12g} {ts:.12g})"
+            f"VMAX mx 0 PULSE(0 1 {dmax:.12g} {e:.6g} {e:.6g} {ts - dmax - 4 * e:.12g} {ts:.12g})"
             if record == "raw"
             else "VMAX mx 0 DC 0"
         ),
