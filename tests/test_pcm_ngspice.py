@@ -50,11 +50,11 @@ samples' (and the inverting stage's load larger) so that the current-mode
 output pole is a few hundred hertz or more: one period of the lowest
 frequency, pole / 10, is then at most a few thousand switching periods.
 
-Runtime (2 cores shared with other work; wall times vary 2-3x with the load):
-the quick tests (not ``slow``) about 10-15 s; each frequency-response case
-20-70 s (buck 20-25 s, boost 20-35 s, four-switch 20-35 s, inverting 35-55 s,
-flyback 60-70 s, DCM 50 s; printed with pytest -s); the whole file about
-10 minutes.  Runs are cached by their deck in a session temporary directory,
+Runtime, measured on 2 cores (wall times grow 2-3x when other work shares
+them): the quick tests (not ``slow``) about 10 s; each frequency-response case
+8-27 s (buck 11-13 s, boost 13-19 s, four-switch 8-15 s, inverting 11-13 s,
+flyback 18-19 s, DCM 27 s); the whole file 4 minutes (10 minutes on a busy
+machine).  Runs are cached by their deck in a session temporary directory,
 so tests that share a case share its runs.
 """
 
