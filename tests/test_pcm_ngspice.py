@@ -402,7 +402,10 @@ def test_reference_dcm_matches_charge_packets(cache_dir):
 
 # ------------------------------------------------------------- loopkit's model
 def _model():
-    return pytest.importorskip("loopkit.schemes.peak_current")
+    pc = pytest.importorskip("loopkit.schemes.peak_current")
+    if not Path(pc.__file__).resolve().is_relative_to(Path(loopkit.__file__).resolve().parent):
+        pytest.skip(f"loopkit.schemes.peak_current found outside this checkout ({pc.__file__})")
+    return pc
 
 
 def _fmt(f_hz, err):
