@@ -79,18 +79,23 @@ there (a ramp removes it), as the steady state under the comparator law says.
 Ideal buck-boost without ramp: the output port is a power source, pole
 ``2/(R C)``, dc gain ``V/(Ri Ipk)``.  No high-frequency pole is added (the voltage-mode DCM model's
 2 fsw/D2 pole is the inductor current's lag behind d, which current programming
-removes); the sampling effects near fsw/2 are not modelled in DCM.
+removes); the sampling effects near fsw/2 are not modelled in DCM.  Boost-type
+stages (the output fed only while the inductor empties) get the delay
+``(D + D2) Ts / 2`` with which the programmed peak's charge reaches the output
+(a charge-packet analysis of the DCM period; tests/test_pcm_ngspice.py derives
+it and checks it against ngspice).
 """
 
 from __future__ import annotations
 
+from dataclasses import replace
 from functools import lru_cache
 
 import numpy as np
 
 from ..errors import DesignError, Finding
 from ..powerstage import StageResult, corner_label
-from ..rational import Rational
+from ..rational import TWO_PI, Rational
 from ..units import format_value
 
 __all__ = [
@@ -265,7 +270,15 @@ def _dcm_control_to_output(stage: StageResult, ri: float, se: np.ndarray, idx: n
     mc = 1.0 + se[idx] / (ri * sn)
     k1 = sign_j2 * d / (mc * ri * ipk)
     k2 = sign_j2 * d * sn_v / (mc * sn)
-    return zout.feedback(Rational.constant(k2)) * k1
+    out = zout.feedback(Rational.constant(k2)) * k1
+    # Where the output is fed only while the inductor empties (boost-type stages: the on-time slope does not
+    # depend on the output), the programmed peak reaches the output as a triangle of charge after the
+    # turn-off: at low frequency a delay of (D + D2) Ts / 2 (charge-packet analysis of the DCM period, derived
+    # in tests/test_pcm_ngspice.py and checked there against ngspice).  Buck-type stages feed the output
+    # through the whole triangle; no delay is added for them.
+    d2 = 2.0 * stage.fsw_hz / (TWO_PI * stage.f_hf_hz[idx])
+    delay = np.where(sn_v == 0, 0.5 * (d + d2) * stage.ts_s, 0.0)
+    return replace(out, delay_s=out.delay_s + delay)
 
 
 def _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, which):
