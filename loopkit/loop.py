@@ -202,7 +202,7 @@ class LoopSession:
         loop, _, resp, phase = self._loop_on_grid(gc)
         m = loop_margins(loop, self.f_hz, resp, phase, self.design.stage.fsw / 2)
         misses = verdict_findings(m, self.stage, targets, self.design.stage.fsw)
-        worst = np.nanmin(np.where(m.stable, m.pm_deg, -180.0)) - targets.pm_deg
+        worst = np.min(np.where(m.stable & np.isfinite(m.pm_deg), m.pm_deg, -180.0)) - targets.pm_deg
         return len({f.corner for f in misses}), -float(worst)
 
     def _search(self, module, targets: Targets, corner: int, kfactor: Placement | None):
