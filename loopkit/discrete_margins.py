@@ -20,65 +20,9 @@ import numpy as np
 
 from .discrete import Discrete
 from .errors import DesignError
-from .margins import Margins
+from .margins import Margins, _hidden_pairs, _refine
 
 __all__ = ["discrete_loop_margins"]
-
-
-def _refine(loop: Discrete, corner, f_lo, f_hi, g_lo, g_hi, which, level=0.0, tol=1e-11, iterations=40):
-    """Solve ln|T| = 0 or phase = level inside each bracket (as :func:`loopkit.margins._refine`)."""
-    sub = loop.take(corner)
-    a, b = np.log(f_lo), np.log(f_hi)
-    ga = g_lo
-    u = np.where(g_hi != g_lo, a - g_lo * (b - a) / np.where(g_hi != g_lo, g_hi - g_lo, 1.0), 0.5 * (a + b))
-    for _ in range(iterations):
-        g, dg = sub.local(np.exp(u), which)
-        g = g - level
-        same = np.sign(g) == np.sign(ga)
-        a, ga, b = np.where(same, u, a), np.where(same, g, ga), np.where(same, b, u)
-        new = u - g / np.where(dg != 0, dg, np.inf)
-        outside = ~((new > np.minimum(a, b)) & (new < np.maximum(a, b)))
-        new = np.where(outside, 0.5 * (a + b), new)
-        done = (np.abs(new - u) < tol) | (g == 0)
-        u = np.where(g == 0, u, new)
-        if done.all():
-            break
-    return np.exp(u)
-
-
-def _hidden_pairs(loop: Discrete, f_hz, values, which, level_of):
-    """Pairs of crossings inside one grid step around a local extremum (as in :mod:`loopkit.margins`)."""
-    d = np.diff(values, axis=1)
-    turn = np.sign(d[:, :-1]) * np.sign(d[:, 1:]) < 0
-    rows, mid = np.nonzero(turn)
-    mid = mid + 1
-    if rows.size == 0:
-        return None
-    level = level_of(values[rows, mid])
-    near = np.abs(values[rows, mid] - level) < 3.0 * (np.abs(d[rows, mid - 1]) + np.abs(d[rows, mid])) + 1e-12
-    same_side = np.sign(values[rows, mid - 1] - level) == np.sign(values[rows, mid + 1] - level)
-    keep = near & same_side
-    if not np.any(keep):
-        return None
-    rows, mid, level = rows[keep], mid[keep], level[keep]
-    sub = loop.take(rows)
-    a, b = np.log(f_hz[mid - 1]), np.log(f_hz[mid + 1])
-    _, slope_a = sub.local(np.exp(a), which)
-    for _ in range(50):
-        c = 0.5 * (a + b)
-        _, sc = sub.local(np.exp(c), which)
-        same = np.sign(sc) == np.sign(slope_a)
-        a, slope_a, b = np.where(same, c, a), np.where(same, sc, slope_a), np.where(same, b, c)
-    f_ext = np.exp(0.5 * (a + b))
-    g_ext = sub.local(f_ext, which)[0] - level
-    g_side = values[rows, mid - 1] - level
-    hidden = np.sign(g_ext) != np.sign(g_side)
-    if not np.any(hidden):
-        return None
-    r, m, fe, ge, lv = rows[hidden], mid[hidden], f_ext[hidden], g_ext[hidden], level[hidden]
-    g_lo, g_hi = values[r, m - 1] - lv, values[r, m + 1] - lv
-    return (np.r_[r, r], np.r_[f_hz[m - 1], fe], np.r_[fe, f_hz[m + 1]], np.r_[g_lo, ge], np.r_[ge, g_hi],
-            np.r_[lv, lv])
 
 
 def _check_grid(f_hz: np.ndarray, nyquist_hz: float) -> None:

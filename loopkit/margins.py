@@ -107,6 +107,13 @@ def _local(sub: Rational, f: np.ndarray, which: str) -> tuple[np.ndarray, np.nda
     return value, slope.imag
 
 
+def _evaluate(sub, f: np.ndarray, which: str) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_local` of a :class:`Rational`, or the ``local`` method of a loop type that has one
+    (the sampled loop's :class:`loopkit.discrete.Discrete`): the refinements below serve both."""
+    local = getattr(sub, "local", None)
+    return local(f, which) if local is not None else _local(sub, f, which)
+
+
 def _refine(loop: Rational, corner: np.ndarray, f_lo: np.ndarray, f_hi: np.ndarray, g_lo: np.ndarray,
             g_hi: np.ndarray, which: str, level: np.ndarray | float = 0.0, tol: float = 1e-11,
             iterations: int = 30) -> np.ndarray:
@@ -123,15 +130,15 @@ def _refine(loop: Rational, corner: np.ndarray, f_lo: np.ndarray, f_hi: np.ndarr
     ga = g_lo
     u = np.where(g_hi != g_lo, a - g_lo * (b - a) / np.where(g_hi != g_lo, g_hi - g_lo, 1.0), 0.5 * (a + b))
     for _ in range(iterations):
-        g, dg = _local(sub, np.exp(u), which)
+        g, dg = _evaluate(sub, np.exp(u), which)
         g = g - level
         same = np.sign(g) == np.sign(ga)
         a, ga, b = np.where(same, u, a), np.where(same, g, ga), np.where(same, b, u)
         new = u - g / np.where(dg != 0, dg, np.inf)
         outside = ~((new > np.minimum(a, b)) & (new < np.maximum(a, b)))
         new = np.where(outside, 0.5 * (a + b), new)
-        done = np.abs(new - u) < tol
-        u = new
+        done = (np.abs(new - u) < tol) | (g == 0)
+        u = np.where(g == 0, u, new)  # an exact root stays where it is
         if done.all():
             break
     return np.exp(u)
@@ -168,14 +175,14 @@ def _hidden_pairs(loop: Rational, f_hz: np.ndarray, values: np.ndarray, which: s
     rows, mid, level = rows[keep], mid[keep], level[keep]
     sub = loop.take(rows)
     a, b = np.log(f_hz[mid - 1]), np.log(f_hz[mid + 1])
-    _, slope_a = _local(sub, np.exp(a), which)
+    _, slope_a = _evaluate(sub, np.exp(a), which)
     for _ in range(50):
         c = 0.5 * (a + b)
-        _, sc = _local(sub, np.exp(c), which)
+        _, sc = _evaluate(sub, np.exp(c), which)
         same = np.sign(sc) == np.sign(slope_a)
         a, slope_a, b = np.where(same, c, a), np.where(same, sc, slope_a), np.where(same, b, c)
     f_ext = np.exp(0.5 * (a + b))
-    g_ext = _local(sub, f_ext, which)[0] - level
+    g_ext = _evaluate(sub, f_ext, which)[0] - level
     g_side = values[rows, mid - 1] - level
     hidden = np.sign(g_ext) != np.sign(g_side)
     if not np.any(hidden):
