@@ -220,9 +220,9 @@ class TargetsBar(QWidget):
     def _on_fc_slider_changed(self, pos: int) -> None:
         fc = self.slider_to_fc(pos)
         if self.fc_slider.isSliderDown():
-            self._model.preview_targets(fc=fc)
+            self._model.preview_targets(fc_hz=fc)
         else:
-            self._model.set_targets(f"Crossover target {format_value(fc, 'Hz')}", "fc", fc=fc)
+            self._model.set_targets(f"Crossover target {format_value(fc, 'Hz')}", "fc", fc_hz=fc)
 
     def _on_fc_slider_released(self) -> None:
         self._model.end_preview(f"Crossover target {format_value(self._model.targets.fc_hz, 'Hz')}")
@@ -230,9 +230,9 @@ class TargetsBar(QWidget):
     def _on_pm_slider_changed(self, pos: int) -> None:
         pm = pos / _PM_SCALE
         if self.pm_slider.isSliderDown():
-            self._model.preview_targets(pm=pm)
+            self._model.preview_targets(pm_deg=pm)
         else:
-            self._model.set_targets(f"Phase-margin target {pm:g}°", "pm", pm=pm)
+            self._model.set_targets(f"Phase-margin target {pm:g}°", "pm", pm_deg=pm)
 
     def _on_pm_slider_released(self) -> None:
         self._model.end_preview(f"Phase-margin target {self._model.targets.pm_deg:g}°")
@@ -254,7 +254,7 @@ class TargetsBar(QWidget):
         except DesignError as exc:
             self.fc_edit.mark_invalid(str(exc))
             return
-        self._model.set_targets(f"Crossover target {format_value(fc, 'Hz')}", fc=fc)
+        self._model.set_targets(f"Crossover target {format_value(fc, 'Hz')}", fc_hz=fc)
 
     def _on_pm_edited(self, key: str, text: str) -> None:
         try:
@@ -262,7 +262,7 @@ class TargetsBar(QWidget):
         except DesignError as exc:
             self.pm_edit.mark_invalid(str(exc))
             return
-        self._model.set_targets(f"Phase-margin target {pm:g}°", pm=pm)
+        self._model.set_targets(f"Phase-margin target {pm:g}°", pm_deg=pm)
 
     def _on_vin_slider_changed(self, pos: int) -> None:
         if pos == 0:

@@ -30,7 +30,7 @@ from PySide6.QtCore import QObject, QRunnable, QThreadPool, QTimer, Signal
 from PySide6.QtGui import QUndoStack
 
 from loopkit import DesignError, dumps_design, load_design, save_design
-from loopkit.design import CapacitorBank, Compensator, Design, Operating, Stage
+from loopkit.design import FILE_KEYS, CapacitorBank, Compensator, Design, Operating, Stage
 from loopkit.designfile import design_from_dict, design_to_dict
 from loopkit.loop import LoopSession, Targets
 
@@ -39,7 +39,7 @@ from .undo import DesignStep
 __all__ = ["HEAVY_CORNERS", "RESULTS_KEPT", "TARGET_FIELDS", "DesignModel", "starter_design"]
 
 #: Compensator fields that are loop targets: changing them re-runs the session only.
-TARGET_FIELDS = ("network", "fc", "pm", "boost_split", "design_corner", "method", "resistor_series",
+TARGET_FIELDS = ("network", "fc_hz", "pm_deg", "boost_split", "design_corner", "method", "resistor_series",
                  "capacitor_series")
 
 _FRAME_S = 1.0 / 60.0
@@ -59,7 +59,7 @@ def starter_design() -> Design:
                     rectifier="synchronous", r_rectifier=15e-3,
                     output_caps=(CapacitorBank(capacitance=22e-6, esr=3e-3, count=3),)),
         operating=Operating(vout=5.0, vin=(9.0, 12.0, 16.0), load=(0.2, 2.0)),
-        compensator=Compensator(network="type3", fc=30e3, pm=60.0),
+        compensator=Compensator(network="type3", fc_hz=30e3, pm_deg=60.0),
         title="Untitled design",
     )
 
@@ -74,6 +74,12 @@ def _split_path(path: str) -> list:
         if m.group(2) is not None:
             keys.append(int(m.group(2)))
     return keys
+
+
+def _target_key(changes: dict) -> str:
+    """The design-file key of the first changed target field (``compensator.fc`` for ``fc_hz``)."""
+    name = next(iter(changes))
+    return f"compensator.{FILE_KEYS.get(name, name)}"
 
 
 def _set_path(doc: dict, path: str, value) -> None:
@@ -409,16 +415,16 @@ class DesignModel(QObject):
         return replace(self._design, compensator=comp)
 
     def set_targets(self, text: str, merge_key: str | None = None, **changes) -> bool:
-        """One undoable change of loop targets (compensator fields, e.g. ``fc=40e3``).
+        """One undoable change of loop targets (compensator fields, e.g. ``fc_hz=40e3``).
 
         Moving a target re-synthesises: parts carried by the design are dropped.
         """
         try:
             design = self._with_targets(changes)
         except DesignError as exc:
-            self.field_invalid.emit(f"compensator.{next(iter(changes))}", str(exc))
+            self.field_invalid.emit(_target_key(changes), str(exc))
             return False
-        return self.propose(design, text, f"compensator.{next(iter(changes))}", merge_key)
+        return self.propose(design, text, _target_key(changes), merge_key)
 
     def begin_preview(self) -> None:
         """Start a live gesture (a drag): previews are not undo steps until :meth:`end_preview`."""
@@ -431,7 +437,7 @@ class DesignModel(QObject):
         try:
             design = self._with_targets(changes)
         except DesignError as exc:
-            self.field_invalid.emit(f"compensator.{next(iter(changes))}", str(exc))
+            self.field_invalid.emit(_target_key(changes), str(exc))
             return False
         if self._last_compute_s > _FRAME_S:
             # slow designs: moves that arrive while one is computed collapse into the latest

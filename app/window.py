@@ -277,7 +277,7 @@ class MainWindow(QMainWindow):
 
     # ------------------------------------------------------------------ marker
     def _on_marker_moved(self, f_hz: float) -> None:
-        self.model.preview_targets(fc=nice_hz(f_hz))
+        self.model.preview_targets(fc_hz=nice_hz(f_hz))
 
     def _on_marker_released(self, f_hz: float) -> None:
         self.model.end_preview(f"Drag crossover target to {format_value(nice_hz(f_hz), 'Hz')}")

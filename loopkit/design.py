@@ -21,6 +21,7 @@ from .networks import NETWORKS
 from .units import format_value
 
 __all__ = [
+    "FILE_KEYS",
     "METHODS",
     "NETWORKS",
     "SCHEMES",
@@ -39,6 +40,9 @@ __all__ = [
 
 #: Topology names accepted in ``stage.topology``.
 TOPOLOGIES = ("buck", "boost", "inverting-buck-boost", "four-switch-buck-boost", "flyback")
+
+#: Fields whose design-file key differs from the field's name (the file keeps the trade's short words).
+FILE_KEYS = {"fc_hz": "fc", "pm_deg": "pm"}
 
 #: Synthesis methods accepted in ``compensator.method``.
 METHODS = ("auto", "k-factor", "placement")
@@ -303,10 +307,10 @@ class Compensator:
     ----------
     network : str
         One of :data:`NETWORKS`.
-    fc : float
-        Target crossover, Hz.
-    pm : float
-        Target phase margin, deg.
+    fc_hz : float
+        Target crossover, Hz (design-file key ``fc``).
+    pm_deg : float
+        Target phase margin, deg (design-file key ``pm``).
     design_corner : int or None
         Corner index to design at; None = the worst corner.
     gm_db : float
@@ -333,8 +337,8 @@ class Compensator:
     """
 
     network: str = "type2"
-    fc: float = 0.0
-    pm: float = 60.0
+    fc_hz: float = 0.0
+    pm_deg: float = 60.0
     design_corner: int | None = None
     method: str = "auto"
     gm_db: float = 6.0
@@ -350,8 +354,8 @@ class Compensator:
     def __post_init__(self):
         if self.network not in NETWORKS:
             raise DesignError("compensator.network", self.network, f"must be one of {', '.join(NETWORKS)}")
-        bounds.check("compensator.fc", self.fc)
-        bounds.check("compensator.pm", self.pm)
+        bounds.check("compensator.fc", self.fc_hz)
+        bounds.check("compensator.pm", self.pm_deg)
         if self.method not in METHODS:
             raise DesignError("compensator.method", self.method, f"must be one of {', '.join(METHODS)}")
         bounds.check("compensator.gm_db", self.gm_db)

@@ -61,7 +61,18 @@ import numpy as np
 
 from . import bounds
 from .bounds import MAX_CORNERS, MAX_FILE_BYTES
-from .design import CapacitorBank, Compensator, Control, Design, Modulator, OpAmp, Operating, Sensing, Stage
+from .design import (
+    FILE_KEYS,
+    CapacitorBank,
+    Compensator,
+    Control,
+    Design,
+    Modulator,
+    OpAmp,
+    Operating,
+    Sensing,
+    Stage,
+)
 from .errors import DesignError, DesignFileError, shorten
 from .eseries import is_capacitor, is_resistor
 from .networks import network_module
@@ -142,23 +153,24 @@ def _number(table: dict, key: str, where: str, default=None):
 
 def _section(cls, table: dict, where: str, extra: dict | None = None, skip: tuple = ()):
     """Build a dataclass from a TOML table: numbers parsed, text kept, keys checked."""
-    names = {f.name for f in fields(cls)} - set(skip)
+    names = {FILE_KEYS.get(f.name, f.name) for f in fields(cls) if f.name not in skip}
     _check_keys(table, names | set(extra or {}), where)
     kwargs = {}
     for f in fields(cls):
-        if f.name in skip or f.name in (extra or {}) or f.name not in table:
+        key = FILE_KEYS.get(f.name, f.name)  # the file's key for this field (fc for fc_hz, ...)
+        if f.name in skip or f.name in (extra or {}) or key not in table:
             continue
-        value = table[f.name]
-        if f.name in _TEXT:
+        value = table[key]
+        if key in _TEXT:
             if not isinstance(value, str):
-                raise DesignError(f"{where}.{f.name}", value, "must be text")
+                raise DesignError(f"{where}.{key}", value, "must be text")
             kwargs[f.name] = value
-        elif f.name in ("feedforward",):
+        elif key in ("feedforward",):
             if not isinstance(value, bool):
-                raise DesignError(f"{where}.{f.name}", value, "must be true or false")
+                raise DesignError(f"{where}.{key}", value, "must be true or false")
             kwargs[f.name] = value
         else:
-            kwargs[f.name] = _number(table, f.name, where)
+            kwargs[f.name] = _number(table, key, where)
     kwargs.update(extra or {})
     return cls(**kwargs)
 
@@ -543,7 +555,7 @@ def design_to_dict(design: Design, ranges: bool = True) -> dict:
         sensing = _without(sensing, Sensing, {"diff_bandwidth"})
     comp = design.compensator
     compensator = {
-        f.name: getattr(comp, f.name)
+        FILE_KEYS.get(f.name, f.name): getattr(comp, f.name)
         for f in fields(Compensator)
         if f.name not in ("parts", "placement", "opto", "opamp", "design_corner")
     }

@@ -47,7 +47,7 @@ class Targets:
     @classmethod
     def from_design(cls, design: Design) -> Targets:
         c = design.compensator
-        return cls(c.network, c.fc, c.pm, c.boost_split, c.design_corner, c.resistor_series,
+        return cls(c.network, c.fc_hz, c.pm_deg, c.boost_split, c.design_corner, c.resistor_series,
                    c.capacitor_series, c.method, c.gm_db, c.fc_band)
 
 
@@ -170,7 +170,7 @@ def with_targets(design: Design, t: Targets) -> Design:
     c = design.compensator
     if Targets.from_design(design) == t:
         return design
-    comp = replace(c, network=t.network, fc=t.fc_hz, pm=t.pm_deg, boost_split=t.boost_split,
+    comp = replace(c, network=t.network, fc_hz=t.fc_hz, pm_deg=t.pm_deg, boost_split=t.boost_split,
                    design_corner=t.design_corner, resistor_series=t.resistor_series,
                    capacitor_series=t.capacitor_series, method=t.method, gm_db=t.gm_db, fc_band=t.fc_band)
     return replace(design, compensator=comp)

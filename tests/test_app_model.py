@@ -70,7 +70,7 @@ def test_targets_change_reruns_session_only(model, sample_path):
     session = model.session
     spy_design = Spy(model.design_changed)
     fc = model.targets.fc_hz * 1.25
-    assert model.set_targets("fc", fc=fc)
+    assert model.set_targets("fc", fc_hz=fc)
     assert model.session is session  # no new power-stage analysis
     assert spy_design.calls == []
     want = design_loop(load_design(sample_path), replace(Targets.from_design(load_design(sample_path)), fc_hz=fc))
@@ -138,7 +138,7 @@ def test_undo_redo(model, some_path):
     d0 = model.design
     model.edit({"stage.dcr": "50m"}, "dcr")
     d1 = model.design
-    model.set_targets("pm", pm=50.0)
+    model.set_targets("pm", pm_deg=50.0)
     assert model.undo_stack.count() == 2
     model.undo_stack.undo()
     assert model.design == d1
@@ -156,7 +156,7 @@ def test_preview_is_one_undo_step(model, some_path):
     fc0 = model.targets.fc_hz
     model.begin_preview()
     for k in range(1, 6):
-        model.preview_targets(fc=fc0 * (1 + 0.05 * k))
+        model.preview_targets(fc_hz=fc0 * (1 + 0.05 * k))
     assert model.undo_stack.count() == 0
     model.end_preview("drag")
     assert model.undo_stack.count() == 1
@@ -168,16 +168,16 @@ def test_preview_is_one_undo_step(model, some_path):
 def test_keyboard_steps_merge(model, some_path):
     model.open(some_path)
     for k in range(4):
-        model.set_targets("pm", "pm", pm=50.0 + k)
+        model.set_targets("pm", "pm", pm_deg=50.0 + k)
     assert model.undo_stack.count() == 1
     model.undo_stack.undo()
-    assert model.targets.pm_deg == load_design(some_path).compensator.pm
+    assert model.targets.pm_deg == load_design(some_path).compensator.pm_deg
 
 
 def test_save_reopen_identical(model, sample_path, tmp_path):
     model.open(sample_path)
     model.edit({"stage.dcr": "33m"}, "dcr")
-    model.set_targets("fc", fc=model.targets.fc_hz * 0.9)
+    model.set_targets("fc", fc_hz=model.targets.fc_hz * 0.9)
     out = tmp_path / "saved.toml"
     model.save(out)
     assert not model.dirty
@@ -196,7 +196,7 @@ def test_kept_parts_are_analysed_as_given(model, some_path, tmp_path):
     same_margins(model.result.margins, design_loop(model.design).margins)
     model.save(tmp_path / "p.toml")
     assert load_design(tmp_path / "p.toml").compensator.parts == parts
-    assert model.set_targets("fc", fc=model.targets.fc_hz * 1.1)  # moving a target synthesises again
+    assert model.set_targets("fc", fc_hz=model.targets.fc_hz * 1.1)  # moving a target synthesises again
     assert not model.parts_given
 
 
@@ -257,11 +257,11 @@ def test_slow_previews_collapse_into_the_latest(model, qtbot):
     runs = Spy(model.results_changed)
     model._last_compute_s = 1.0  # as if the last run had taken a second
     for k in (1.1, 1.2, 1.3):
-        model.preview_targets(fc=fc0 * k)
+        model.preview_targets(fc_hz=fc0 * k)
     assert runs.calls == []  # nothing computed yet: the moves wait for the event loop
     qtbot.waitUntil(lambda: len(runs.calls) == 1, timeout=5000)
     assert model.targets.fc_hz == fc0 * 1.3
     model._last_compute_s = 1.0
-    model.preview_targets(fc=fc0 * 1.4)
+    model.preview_targets(fc_hz=fc0 * 1.4)
     model.end_preview("drag")  # the release applies the last move first
     assert model.targets.fc_hz == fc0 * 1.4 and model.undo_stack.count() == 1

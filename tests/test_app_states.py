@@ -81,7 +81,7 @@ def test_header_colours_against_the_targets(window, stem):
     model = open_sample(window, stem)
     seen = set()
     for pm_target in (40.0, model.targets.pm_deg, 80.0):
-        model.set_targets("pm", pm=pm_target)
+        model.set_targets("pm", pm_deg=pm_target)
         r = model.result
         if not r.feasible:
             continue
@@ -181,7 +181,7 @@ def test_infeasible_keeps_plant_and_last_feasible_loop(window):
     bode = window.bode
     last_mag = bode.loop_mag._y.copy()
     fc = model.targets.fc_hz * 3
-    model.set_targets("infeasible", pm=85.0, fc=fc, method="k-factor")  # the K-factor alone cannot do it
+    model.set_targets("infeasible", pm_deg=85.0, fc_hz=fc, method="k-factor")  # the K-factor alone cannot do it
     r = model.result
     design = load_design(SAMPLES["boost_liion_5v"])
     want = design_loop(design, replace(Targets.from_design(design), pm_deg=85.0, fc_hz=fc, method="k-factor"))

@@ -397,7 +397,7 @@ def test_recovery_restores_work(make_window, tmp_path, monkeypatch):
     first = make_window()
     first.open_path(path, ask=False)
     first.model.edit({"stage.inductance": "3.3u"}, "L")
-    first.model.set_targets("pm", pm=52.0)
+    first.model.set_targets("pm", pm_deg=52.0)
     assert first.autosave()
     edited = first.model.design
     first._autosave_timer.stop()  # the app "crashes": no clean exit, the recovery copy stays

@@ -60,18 +60,30 @@ def test_readme_table_is_the_code_table():
 def test_every_numeric_field_has_a_bound():
     from dataclasses import fields
 
-    from loopkit.design import CapacitorBank, Compensator, Modulator, OpAmp, Operating, Sensing, Stage
+    from loopkit.design import (
+        FILE_KEYS,
+        CapacitorBank,
+        Compensator,
+        Control,
+        Modulator,
+        OpAmp,
+        Operating,
+        Sensing,
+        Stage,
+    )
 
     sections = {
         "stage": Stage, "stage.output_caps": CapacitorBank, "operating": Operating, "sensing": Sensing,
-        "modulator": Modulator, "compensator": Compensator, "compensator.opamp": OpAmp,
+        "modulator": Modulator, "compensator": Compensator, "compensator.opamp": OpAmp, "control": Control,
     }
     not_numbers = {"topology", "output_caps", "rectifier", "light_load", "kind", "feedforward", "network", "method",
-                   "design_corner", "resistor_series", "capacitor_series", "parts", "placement", "opamp", "opto"}
+                   "design_corner", "resistor_series", "capacitor_series", "parts", "placement", "opamp", "opto",
+                   "scheme"}
     for where, cls in sections.items():
         for f in fields(cls):
             if f.name not in not_numbers:
-                assert bound_for(f"{where}.{f.name}") is not None, f"{where}.{f.name}"
+                key = FILE_KEYS.get(f.name, f.name)  # bounds are named by the design file's keys
+                assert bound_for(f"{where}.{key}") is not None, f"{where}.{key}"
     for key in ("ctr", "r_pull", "r_led", "c_opto"):
         assert bound_for(f"compensator.opto.{key}") is not None
     for key in ("R1", "Rb", "Rz", "C1", "Cpole", "Chf"):

@@ -423,7 +423,7 @@ def test_design_write_with_new_targets_changes_only_parts_and_targets(capsys, tm
     assert added[:2] == ['fc = "25kHz"   # crossover target', "pm = 55"]
     assert "[compensator.parts]" in added
     d = load_design(path)
-    assert (d.compensator.fc, d.compensator.pm) == (25e3, 55.0)
+    assert (d.compensator.fc_hz, d.compensator.pm_deg) == (25e3, 55.0)
     # a second --write with the same targets changes nothing
     code, _, _ = run(capsys, "design", path, "--write")
     assert code in (0, 1) and path.read_text() == written

@@ -158,7 +158,7 @@ def test_round_trip_after_changing_values(
     base, inductance, fsw, dcr, esr, capacitance, vout, vin, load, pm, ramp, r_parts, c_parts, title
 ):
     parts = {**r_parts, **c_parts}
-    fc = base.compensator.fc if base.compensator.fc < fsw / 2 else 0.0
+    fc = base.compensator.fc_hz if base.compensator.fc_hz < fsw / 2 else 0.0
     sign = -1.0 if base.stage.topology == "inverting-buck-boost" else 1.0
     d = dataclasses.replace(
         base,
@@ -174,7 +174,7 @@ def test_round_trip_after_changing_values(
             base.operating, vout=sign * vout, vin=tuple(vin), load=tuple(load), vin_nominal=None
         ),
         modulator=dataclasses.replace(base.modulator, ramp=ramp),
-        compensator=dataclasses.replace(base.compensator, pm=pm, parts=parts, fc=fc),
+        compensator=dataclasses.replace(base.compensator, pm_deg=pm, parts=parts, fc_hz=fc),
     )
     text = dumps_design(d)
     assert loads_design(text) == d
@@ -512,7 +512,7 @@ def test_edit_of_targets_keeps_comments_notation_and_form():
     from loopkit.designedit import edit_design_text
 
     before = loads_design(COMMENTED)
-    comp = dataclasses.replace(before.compensator, fc=25e3, pm=55.0, parts={"R1": 49.9e3, "R2": 10e3})
+    comp = dataclasses.replace(before.compensator, fc_hz=25e3, pm_deg=55.0, parts={"R1": 49.9e3, "R2": 10e3})
     after = dataclasses.replace(before, compensator=comp)
     text = edit_design_text(COMMENTED, before, after)
     removed, added = _diff(COMMENTED, text)
@@ -899,7 +899,7 @@ def test_edits_read_back_and_keep_every_comment(
         vin = op.vin[:-1] + (op.vin[-1] * vin_scale,)
         op = dataclasses.replace(op, vin=vin, vin_nominal=None)
     if "pm" in changed:
-        comp = dataclasses.replace(comp, pm=pm)
+        comp = dataclasses.replace(comp, pm_deg=pm)
     if "parts" in changed:
         comp = dataclasses.replace(comp, parts=parts)
     after = dataclasses.replace(

@@ -109,10 +109,10 @@ def main(argv=None) -> int:
     window.open_path(boost, ask=False)
     ready()
     fc = window.model.targets.fc_hz * 3
-    window.model.set_targets("Hard targets", pm=85.0, fc=fc)  # method auto: parts, with every miss named
+    window.model.set_targets("Hard targets", pm_deg=85.0, fc_hz=fc)  # method auto: parts, with every miss named
     shot("targets-not-met")
     window.model.undo_stack.undo()
-    window.model.set_targets("Infeasible targets", pm=85.0, fc=fc, method="k-factor")  # the K factor alone: none
+    window.model.set_targets("Infeasible targets", pm_deg=85.0, fc_hz=fc, method="k-factor")  # the K factor alone: none
     shot("infeasible-target")
     window.model.undo_stack.undo()
     window.open_path(buck, ask=False)
