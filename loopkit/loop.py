@@ -115,10 +115,11 @@ class LoopSession:
         as given; otherwise the network is synthesised for the targets (the
         design's own by default).
 
-        ``preview`` True (a slider being dragged): where method ``auto`` needs
-        the worst-corner search, the placement found for the last such targets
-        (scaled to the new crossover) is tried first and kept when it meets
-        every target, which saves the search on most moves.  Without
+        ``preview`` True (a slider being dragged): where method ``auto`` needed
+        the worst-corner search for these targets before, the placement found
+        then (scaled to the new crossover) is tried first and kept when it
+        meets every target; otherwise the K factor's parts are shown as they
+        are (the verdict still names every missed corner).  Without
         ``preview`` the result depends only on the design and the targets (the
         CLI's answer), so a drag ends with a run without it.
         """
@@ -169,6 +170,11 @@ class LoopSession:
             parts, placement = self._solve(module, targets, corner)
         except InfeasibleDesign as exc:
             parts, placement, failure = None, None, exc
+        if preview and parts is not None and key not in self._searched:
+            # a drag over a design the K factor served last time: no exact-parts check on every move
+            # (the drag ends with a full run, which checks and searches where needed)
+            findings.extend(placement.notes)
+            return self._assemble(targets, parts, placement, corner, findings)
         before = None if parts is None else self._shortfall(module, parts, targets)
         if targets.method == "auto" and module.ZEROS > 0 and (before is None or before[0] > 0):
             searched = self._search(module, targets, corner, placement)
