@@ -20,7 +20,7 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from reference import ssa  # tests/ is on sys.path (pytest rootdir conftest)
 
-from loopkit import analyse_stage
+from loopkit import DesignError, analyse_stage
 from loopkit.design import CapacitorBank, Design, Operating, Sensing, Stage
 from loopkit.stages import topology_module
 
@@ -62,6 +62,7 @@ def designs(draw, topology=None, rectifier=None, light_load=None):
         vout = draw(st.floats(3.0, 48.0))
         d_nom = draw(st.floats(0.2, 0.65))
         n = vin[0] * d_nom / ((1 - d_nom) * vout)
+        assume(0.01 <= n <= 100.0)  # turns ratios loopkit accepts (loopkit.bounds)
     else:
         vout = v1
         vin = (v1 * draw(st.floats(0.5, 0.95)), v1 * draw(st.floats(1.05, 2.5)))
@@ -69,6 +70,7 @@ def designs(draw, topology=None, rectifier=None, light_load=None):
     loads = (i_max * draw(st.floats(0.01, 0.3)), i_max * draw(st.floats(0.3, 0.9)), i_max)
     r_min = abs(vout) / i_max
     l_h = draw(st.floats(0.2, 20.0)) * r_min * n * n / fsw  # around the CCM/DCM boundary over the loads
+    assume(1e-9 <= l_h <= 1.0)  # inductances loopkit accepts (loopkit.bounds)
     rect = rectifier or draw(st.sampled_from(["synchronous", "diode"]))
     if light_load is not None:
         ll = light_load
@@ -84,21 +86,24 @@ def designs(draw, topology=None, rectifier=None, light_load=None):
         )
         for _ in range(draw(st.integers(1, 2)))
     )
-    stage = Stage(
-        topology=topo,
-        fsw=fsw,
-        inductance=l_h,
-        output_caps=banks,
-        dcr=par(True),
-        r_switch=par(True),
-        rectifier=rect,
-        r_rectifier=par(),
-        diode_drop=draw(st.floats(0.0, 0.8)) if rect == "diode" else 0.0,
-        light_load=ll,
-        turns_ratio=n,
-        buck_max_duty=0.85,
-        boost_min_duty=0.12,
-    )
+    try:  # a valid design: loopkit's bounds (loopkit.bounds) refuse the few draws beyond them
+        stage = Stage(
+            topology=topo,
+            fsw=fsw,
+            inductance=l_h,
+            output_caps=banks,
+            dcr=par(True),
+            r_switch=par(True),
+            rectifier=rect,
+            r_rectifier=par(),
+            diode_drop=draw(st.floats(0.0, 0.8)) if rect == "diode" else 0.0,
+            light_load=ll,
+            turns_ratio=n,
+            buck_max_duty=0.85,
+            boost_min_duty=0.12,
+        )
+    except DesignError:
+        assume(False)
     sensing = Sensing(kind="differential") if vout < 0 else Sensing()
     return Design(stage=stage, operating=Operating(vout=vout, vin=vin, load=loads), sensing=sensing)
 

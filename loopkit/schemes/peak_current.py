@@ -81,14 +81,14 @@ Ideal buck-boost without ramp: the output port is a power source, pole
 2 fsw/D2 pole is the inductor current's lag behind d, which current programming
 removes); the sampling effects near fsw/2 are not modelled in DCM.  Boost-type
 stages (the output fed only while the inductor empties) get the delay
-``(D + D2) Ts / 2`` with which the programmed peak's charge reaches the output
+``(D + D2) Ts / 2`` (as its (2, 2) Pade approximant, so closed loops stay
+rational) with which the programmed peak's charge reaches the output
 (a charge-packet analysis of the DCM period; tests/test_pcm_ngspice.py derives
 it and checks it against ngspice).
 """
 
 from __future__ import annotations
 
-from dataclasses import replace
 from functools import lru_cache
 
 import numpy as np
@@ -278,7 +278,23 @@ def _dcm_control_to_output(stage: StageResult, ri: float, se: np.ndarray, idx: n
     # through the whole triangle; no delay is added for them.
     d2 = 2.0 * stage.fsw_hz / (TWO_PI * stage.f_hf_hz[idx])
     delay = np.where(sn_v == 0, 0.5 * (d + d2) * stage.ts_s, 0.0)
-    return replace(out, delay_s=out.delay_s + delay)
+    return out * _delay_pade(delay)
+
+
+def _delay_pade(delay_s: np.ndarray) -> Rational:
+    """exp(-s tau) per corner as its (2, 2) Pade approximant (1 - x/2 + x^2/12) / (1 + x/2 + x^2/12), x = s tau.
+
+    Rational, so the closed loops built from it stay rational (``Rational.feedback``).  Its roots are
+    s = (+-3 +- j sqrt 3) / tau; its phase error is below 0.7 deg for omega tau <= pi/2, i.e. up to
+    fsw/2 for tau <= Ts/2 (the charge-packet delay (D + D2) Ts / 2 <= Ts/2).  tau = 0 gives 1.
+    """
+    tau = np.asarray(delay_s, float)
+    safe = np.where(tau > 0, tau, 1.0)
+    root = (3.0 + 1j * np.sqrt(3.0)) / safe / TWO_PI  # Hz, as Rational.from_roots_hz takes them
+    pad = np.full(tau.shape, np.inf + 0j)
+    zeros = np.where(tau > 0, root, pad), np.where(tau > 0, np.conj(root), pad)
+    poles = np.where(tau > 0, -np.conj(root), pad), np.where(tau > 0, -root, pad)
+    return Rational.from_roots_hz(np.ones(tau.shape), np.stack(zeros, axis=1), np.stack(poles, axis=1))
 
 
 def _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, which):
