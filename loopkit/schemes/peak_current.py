@@ -242,24 +242,7 @@ def control_to_output(
     CCM corners: Ridley's model; DCM corners: the current-programmed DCM model
     (never the CCM one); see the module notes for both and their sources.
     """
-    ri, se = _checked(stage, sense_gain_ohm, slope_v_per_s)
-    if sampling not in SAMPLING:
-        raise DesignError("sampling", sampling, f"must be one of {', '.join(SAMPLING)}")
-    parts, order = [], []
-    ccm = np.nonzero(~stage.dcm)[0]
-    dcm = np.nonzero(stage.dcm)[0]
-    if ccm.size:
-        g = {k: v[ccm] for k, v in _ccm_gains(stage, ri, se).items()}
-        gvd, gid = stage.gvd.take(ccm), stage.gid.take(ccm)
-        he = sampling_gain(stage.ts_s, ccm.size, sampling)
-        inner = gid * he * ri - gvd * g["kr"]
-        fm = Rational.constant(g["fm"])
-        parts.append((gvd * fm.feedback(inner)).cancel())
-        order.append(ccm)
-    if dcm.size:
-        parts.append(_dcm_control_to_output(stage, ri, se, dcm))
-        order.append(dcm)
-    return Rational.stack(parts, np.concatenate(order))
+    return _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, "control")
 
 
 def _dcm_control_to_output(stage: StageResult, ri: float, se: np.ndarray, idx: np.ndarray) -> Rational:
@@ -298,6 +281,7 @@ def _delay_pade(delay_s: np.ndarray) -> Rational:
 
 
 def _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, which):
+    """vo/vc (``which`` "control"), vo/vg ("line") or the output impedance ("output"), current loop closed."""
     ri, se = _checked(stage, sense_gain_ohm, slope_v_per_s)
     if sampling not in SAMPLING:
         raise DesignError("sampling", sampling, f"must be one of {', '.join(SAMPLING)}")
@@ -309,7 +293,9 @@ def _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, which):
         gvd, gid = stage.gvd.take(ccm), stage.gid.take(ccm)
         he = sampling_gain(stage.ts_s, ccm.size, sampling)
         d_per_vc = Rational.constant(g["fm"]).feedback(gid * he * ri - gvd * g["kr"])
-        if which == "line":
+        if which == "control":
+            parts.append((gvd * d_per_vc).cancel())
+        elif which == "line":
             gvg = stage.gvg.take(ccm)
             drive = gvg * g["kr"] - stage.gig.take(ccm) * he * ri + g["kf"]
             parts.append(gvg + (gvd * d_per_vc * drive).cancel())
@@ -318,7 +304,10 @@ def _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, which):
             drive = zout * g["kr"] - stage.gii.take(ccm) * he * ri
             parts.append(zout + (gvd * d_per_vc * drive).cancel())
         order.append(ccm)
-    if dcm.size:
+    if dcm.size and which == "control":
+        parts.append(_dcm_control_to_output(stage, ri, se, dcm))
+        order.append(dcm)
+    elif dcm.size:
         zout, gvd, gvg = stage.zout.take(dcm), stage.gvd.take(dcm), stage.gvg.take(dcm)
         sign_j2 = gvd.dc_gain() / zout.dc_gain()
         sign_g2 = gvg.dc_gain() / zout.dc_gain()
