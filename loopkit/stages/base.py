@@ -176,13 +176,7 @@ def _over_char(gain: np.ndarray, num_factors: np.ndarray, char: np.ndarray) -> R
 def ccm_transfer_functions(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> tuple[Rational, Rational, Rational]:
     """Gvd, Gvg and Zout of CCM corners from equations (1) and (2)."""
     n = op.duty.shape[0]
-    ny, dy = output_admittance(stage, r_load)
-    zs = np.stack([op.r_series, op.l_h], axis=1)  # Req + s L
-    char = np.zeros((n, ny.shape[1] + 1))
-    for k in range(ny.shape[1]):
-        char[:, k] += ny[:, k] * zs[:, 0]
-        char[:, k + 1] += ny[:, k] * zs[:, 1]
-    char[:, : dy.shape[1]] -= (op.a_v * op.b_i)[:, None] * dy
+    _, _, char = _ccm_characteristic(stage, op, r_load)
     banks = _bank_factors(stage, n)
     # control: (b_i e + b_d Req) + s b_d L: carries the RHP zero of boost-type stages
     lin = np.stack([op.b_i * op.e + op.b_d * op.r_series, op.b_d * op.l_h], axis=1).astype(complex)
@@ -234,17 +228,23 @@ def ccm_gid(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> Rational:
     the magnetising current seen from the primary, the current the primary switch
     carries while on.
     """
+    ny, dy, char = _ccm_characteristic(stage, op, r_load)
+    num = op.e[:, None] * ny + (op.a_v * op.b_d)[:, None] * dy
+    gain, factors = _roots_as_factors(num)
+    return _over_char(gain, factors, char)
+
+
+def _ccm_characteristic(stage: Stage, op: CcmPoint, r_load: np.ndarray):
+    """Output admittance ``ny/dy`` and Gvd's characteristic polynomial ``Z_s ny - a_v b_i dy`` (ascending in s)."""
     n = op.duty.shape[0]
     ny, dy = output_admittance(stage, r_load)
-    zs = np.stack([op.r_series, op.l_h], axis=1)
+    zs = np.stack([op.r_series, op.l_h], axis=1)  # Req + s L
     char = np.zeros((n, ny.shape[1] + 1))
     for k in range(ny.shape[1]):
         char[:, k] += ny[:, k] * zs[:, 0]
         char[:, k + 1] += ny[:, k] * zs[:, 1]
     char[:, : dy.shape[1]] -= (op.a_v * op.b_i)[:, None] * dy
-    num = op.e[:, None] * ny + (op.a_v * op.b_d)[:, None] * dy
-    gain, factors = _roots_as_factors(num)
-    return _over_char(gain, factors, char)
+    return ny, dy, char
 
 
 def ccm_gig_gii(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> tuple[Rational, Rational]:
@@ -258,16 +258,9 @@ def ccm_gig_gii(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> tuple[Rationa
     characteristic polynomial.  Peak current mode needs them for its closed
     current loop's line-to-output and output impedance.
     """
-    n = op.duty.shape[0]
-    ny, dy = output_admittance(stage, r_load)
-    zs = np.stack([op.r_series, op.l_h], axis=1)
-    char = np.zeros((n, ny.shape[1] + 1))
-    for k in range(ny.shape[1]):
-        char[:, k] += ny[:, k] * zs[:, 0]
-        char[:, k + 1] += ny[:, k] * zs[:, 1]
-    char[:, : dy.shape[1]] -= (op.a_v * op.b_i)[:, None] * dy
+    ny, dy, char = _ccm_characteristic(stage, op, r_load)
     g_ny, f_ny = _roots_as_factors(ny)
-    banks = _bank_factors(stage, n)  # dy = prod(1 + s ESR_k C_k)
+    banks = _bank_factors(stage, op.duty.shape[0])  # dy = prod(1 + s ESR_k C_k)
     gig = _over_char(op.a_g * g_ny, f_ny, char)
     gii = _over_char(op.a_v * dy[:, 0], banks, char)
     return gig, gii
