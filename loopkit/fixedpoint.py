@@ -317,21 +317,32 @@ class FixedPointController:
 
     def _run_one(self, errors: list, u_init: int) -> list:
         """One run in Python integers (the same arithmetic as the rows of :meth:`run`; several times faster)."""
+        step = self.stepper(u_init)
+        return [step(e) for e in errors]
+
+    def stepper(self, u_init: int = 0):
+        """A function ``step(e) -> u`` holding its own state: one sample at a time, for closed-loop simulations.
+
+        The same arithmetic as :meth:`run` (errors clamped to the range; no type check, for speed:
+        pass Python or numpy integers).
+        """
         e0, y0 = self.initial_state(u_init)
         e_hist, y_hist = [int(v) for v in e0], [int(v) for v in y0]
         bi, ai = list(self.b_int), list(self.a_int)
         bs, as_ = self.b_scale, self.a_scale
         shift, g = self.acc_frac_bits - self.state_frac_bits, self.state_frac_bits
-        y_lo, y_hi = self.y_min, self.y_max
-        out = []
-        for e in errors:
-            e_hist = [e] + e_hist[:-1]
+        y_lo, y_hi, e_lo, e_hi = self.y_min, self.y_max, self.e_min, self.e_max
+
+        def step(e) -> int:
+            nonlocal e_hist, y_hist
+            e_hist = [min(max(int(e), e_lo), e_hi)] + e_hist[:-1]
             acc = sum(c * v for c, v in zip(bi, e_hist)) * bs - sum(c * v for c, v in zip(ai, y_hist)) * as_
             y = min(max(_rshift_round_int(acc, shift), y_lo), y_hi)
             if ai:
                 y_hist = [y] + y_hist[:-1]
-            out.append(_rshift_round_int(y, g))
-        return out
+            return _rshift_round_int(y, g)
+
+        return step
 
 
 def _rshift_round_int(x: int, s: int) -> int:

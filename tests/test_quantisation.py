@@ -109,3 +109,82 @@ def test_bad_input_is_a_design_error(kw, field):
     with pytest.raises(DesignError) as err:
         check_resolution(**args)
     assert err.value.field == field
+
+
+# ---------------------------------------------------------------------------- against a sampled simulation
+def _buck_type3_counts(adc_bits, pwm_counts):
+    """The sample buck's 20 kHz Type III (its own zeros and poles, Tustin at fc) in counts for this ADC and PWM."""
+    from dataclasses import replace
+
+    import loopkit
+    from loopkit.digital_control import tustin
+    from loopkit.fixedpoint import adc_error_range, pwm_limits, realise
+    from loopkit.loop import LoopSession
+    from loopkit.rational import Rational
+    from loopkit.result import Targets
+
+    design = loopkit.load_design("sample_designs/buck_24v_3v3.toml")
+    fc = 20e3
+    res = LoopSession(design).run(replace(Targets.from_design(design), fc_hz=fc))
+    ts = 1.0 / res.stage.fsw_hz
+    (z1, z2), (_, p1, p2) = res.zeros_hz, res.poles_hz
+    ideal = Rational.from_roots_hz(1.0, [-z1, -z2], [0.0, -p1, -p2])
+    ideal = ideal * (abs(res.compensator.response([fc])[0, 0]) / abs(ideal.response([fc])[0, 0]))
+    lsb = 3.3 / 2**adc_bits
+    b, a = (tustin(ideal, ts, fc) * (lsb * pwm_counts / design.modulator.ramp)).difference_equation(0)
+    return realise(b, a, ts, adc_error_range(adc_bits), pwm_limits(pwm_counts, 0.0, 0.85)), design
+
+
+def _simulate(adc_bits, pwm_counts, load_a=3.0, samples=8000):
+    """Averaged synchronous buck (Erickson & Maksimovic 2nd ed. ch. 7: L di/dt = d Vg - v - r i,
+    C dv/dt = i - v/R), exact between samples (matrix exponential, duty held), 24 V in, ``load_a`` out; the
+    output sampled through the 0.8/3.3 divider by an ADC (floor to a code), the fixed-point controller,
+    the duty u/N applied at once.  Returns the last 2000 ADC codes and PWM values."""
+    from scipy.linalg import expm
+
+    ctrl, design = _buck_type3_counts(adc_bits, pwm_counts)
+    st = design.stage
+    vg, vo, r_load = 24.0, 3.3, 3.3 / load_a
+    ell, cap, r = st.inductance, sum(c.capacitance * c.count for c in st.output_caps), st.dcr + st.r_switch
+    ts = 1.0 / st.fsw
+    a_c = np.array([[-r / ell, -1.0 / ell], [1.0 / cap, -1.0 / (r_load * cap)]])
+    big = np.zeros((3, 3))
+    big[:2, :2], big[:2, 2] = a_c * ts, np.array([vg / ell, 0.0]) * ts
+    m = expm(big)
+    phi, gam = m[:2, :2], m[:2, 2]
+    h, lsb = 0.8 / 3.3, 3.3 / 2**adc_bits
+    ref_code = int(np.floor(0.8 / lsb))
+    duty0 = vo / vg
+    x = np.array([vo / r_load, vo])
+    step = ctrl.stepper(round(duty0 * pwm_counts))
+    codes, us = [], []
+    for _ in range(samples):
+        code = min(max(int(np.floor(h * x[1] / lsb)), 0), 2**adc_bits - 1)
+        u = step(ref_code - code)
+        x = phi @ x + gam * (u / pwm_counts)
+        codes.append(code)
+        us.append(u)
+    return np.array(codes[-2000:]), np.array(us[-2000:]), ctrl
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("adc_bits,pwm_counts,breaks", [(12, 250, True), (10, 1000, True), (8, 1000, False),
+                                                        (12, 8192, False)])
+def test_limit_cycle_appears_only_where_the_condition_breaks(adc_bits, pwm_counts, breaks):
+    """The check's verdict against a sampled simulation with both quantisers (averaged plant, not a
+    switching simulation), at loads from 0.5 A to 3 A.  Where (a) holds (8-bit ADC: 53 mV at the
+    output, 1000 counts: 24 mV; 12-bit: 3.3 mV, 8192 counts: 2.9 mV) the loop settles to one PWM value
+    and one ADC code at every load.  Where it breaks (12-bit with 250 counts: 96 mV; 10-bit, 13.3 mV,
+    with 1000 counts: 24 mV) the output hunts between PWM levels at some loads: at a load where a PWM
+    level happens to fall inside the zero-error bin it may still settle, which is why [PS03]'s
+    condition is stated for every operating point and [CCPE] speaks of intervals of load current."""
+    r = check_resolution([24.0], [3.3 / 24], adc_bits, 3.3, 0.8 / 3.3, pwm_counts)
+    assert r.fine_enough[0] == (not breaks)
+    hunting = []
+    for load in np.linspace(0.5, 3.0, 6):
+        codes, us, _ = _simulate(adc_bits, pwm_counts, load)
+        hunts = np.ptp(us) > 0 or np.ptp(codes) > 0
+        if hunts:  # a limit cycle, not a drift or a runaway: it keeps returning to a few neighbouring values
+            assert np.ptp(us) <= 4
+        hunting.append(hunts)
+    assert any(hunting) == breaks
