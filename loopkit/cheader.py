@@ -42,7 +42,15 @@ def _check_prefix(prefix: str) -> str:
 
 
 def _i64(v: int) -> str:
-    return f"INT64_C({int(v)})"
+    """A 64-bit constant; a negative one as ``(-INT64_C(n))`` (INT64_C takes an unsigned literal)."""
+    v = int(v)
+    return f"INT64_C({v})" if v >= 0 else f"(-INT64_C({-v}))"
+
+
+def _int(v: int) -> str:
+    """A macro value that is safe in any expression: negative numbers in parentheses."""
+    v = int(v)
+    return str(v) if v >= 0 else f"({v})"
 
 
 def _list(values) -> str:
@@ -107,14 +115,14 @@ def c_header(ctrl: FixedPointController, prefix: str = "loopkit_ctrl", title: st
 #define {m}_FS_HZ {fs_hz!r}
 #define {m}_NB {nb}
 #define {m}_NA {na}
-#define {m}_B_FRAC_BITS {ctrl.b_frac_bits}
-#define {m}_A_FRAC_BITS {ctrl.a_frac_bits}
+#define {m}_B_FRAC_BITS {_int(ctrl.b_frac_bits)}
+#define {m}_A_FRAC_BITS {_int(ctrl.a_frac_bits)}
 #define {m}_STATE_FRAC_BITS {ctrl.state_frac_bits}
 #define {m}_ACC_FRAC_BITS {ctrl.acc_frac_bits}
-#define {m}_E_MIN {ctrl.e_min}
-#define {m}_E_MAX {ctrl.e_max}
-#define {m}_U_MIN {ctrl.u_min}
-#define {m}_U_MAX {ctrl.u_max}
+#define {m}_E_MIN {_int(ctrl.e_min)}
+#define {m}_E_MAX {_int(ctrl.e_max)}
+#define {m}_U_MIN {_int(ctrl.u_min)}
+#define {m}_U_MAX {_int(ctrl.u_max)}
 #define {m}_B_SCALE {_i64(ctrl.b_scale)}
 #define {m}_A_SCALE {_i64(ctrl.a_scale)}
 #define {m}_Y_MIN {_i64(ctrl.y_min)}

@@ -132,6 +132,12 @@ def _int_in(field: str, value, lo: int, hi: int) -> int:
     return int(value)
 
 
+def _pair(field: str, value) -> tuple:
+    if not isinstance(value, (tuple, list)) or len(value) != 2:
+        raise DesignError(field, value, "a pair (lowest, highest) of whole numbers of counts")
+    return tuple(value)
+
+
 def _max_frac(coeffs: np.ndarray, word_bits: int) -> int:
     """The most fractional bits that keep every ``round(c 2^f)`` inside a signed word (may be negative)."""
     big = float(np.max(np.abs(coeffs))) if coeffs.size else 0.0
@@ -283,10 +289,10 @@ class FixedPointController:
         if arr.dtype.kind == "f":
             if not np.all(np.isfinite(arr)) or np.any(arr != np.round(arr)):
                 raise DesignError("errors", "not whole numbers", "errors in whole ADC counts")
-            if np.any(np.abs(arr) > 2.0**31):
-                raise DesignError("errors", "beyond 32 bits", "errors within a 32-bit integer")
         elif arr.dtype.kind not in "iu":
             raise DesignError("errors", str(arr.dtype), "errors in whole ADC counts (integers)")
+        if arr.size and (arr.max() > 2**31 - 1 or arr.min() < -(2**31) + 1):
+            raise DesignError("errors", "beyond 32 bits", "errors within a signed 32-bit integer")
         if arr.ndim not in (1, 2):
             raise DesignError("errors", f"shape {arr.shape}", "a sequence (n,) or rows of sequences (rows, n)")
         e_all = np.clip(np.atleast_2d(arr).astype(np.int64), self.e_min, self.e_max)
@@ -439,8 +445,8 @@ def realise(b, a, ts_s, e_range: tuple[int, int], u_range: tuple[int, int], word
     if a[0] == 0:
         raise DesignError("a", a.tolist(), "a[0] must be nonzero (a causal filter)")
     b, a = b / a[0], a / a[0]
-    e_min, e_max = (_int_in("e_range", v, -(2**31), 2**31 - 1) for v in e_range)
-    u_min, u_max = (_int_in("u_range", v, -(2**31), 2**31 - 1) for v in u_range)
+    e_min, e_max = (_int_in("e_range", v, -(2**31) + 1, 2**31 - 1) for v in _pair("e_range", e_range))
+    u_min, u_max = (_int_in("u_range", v, -(2**31) + 1, 2**31 - 1) for v in _pair("u_range", u_range))
     if e_min > e_max:
         raise DesignError("e_range", e_range, "(e_min, e_max) with e_min <= e_max, ADC counts")
     if u_min >= u_max:
@@ -459,32 +465,50 @@ def realise(b, a, ts_s, e_range: tuple[int, int], u_range: tuple[int, int], word
         given = tuple(_int_in("frac_bits", v, -32, 62) for v in frac_bits)
     else:
         given = (_int_in("frac_bits", frac_bits, -32, 62),) * 2
-    e_abs, u_abs = max(abs(e_min), abs(e_max)), max(abs(u_min), abs(u_max))
-    best = None
+    best, refused = None, None
     for w in words:
-        if given is None:
-            fb, fa = _max_frac(b, w), _max_frac(a[1:], w)
-            fa = min(fa, 62 - g)
-        else:
-            fb, fa = given
-        while True:
-            bi, ai = _integerise(b, a, fb, fa, w, integrator)
-            s, worst, acc_bits = _acc_bits(bi, ai, fb, fa, g, e_abs, u_abs)
-            if worst < 2**ACC_LIMIT_BITS:
-                break
-            if given is not None:
-                raise DesignError("frac_bits", frac_bits,
-                                  f"a format whose worst-case accumulator ({acc_bits} bits) stays below "
-                                  f"{ACC_LIMIT_BITS + 1} bits: fewer fractional bits, smaller ranges or state_frac_bits")
-            fb, fa = fb - 1, fa - 1
-        bq = bi * 2.0**-fb
-        aq = np.r_[1.0, ai * 2.0**-fa]
-        gain_err, phase_err = _response_error(b, a, bq, aq, ts)
-        best = FixedPointController(b, a, tuple(int(v) for v in bi), tuple(int(v) for v in ai), w, fb, fa, g, s,
-                                    acc_bits, e_min, e_max, u_min, u_max, ts, gain_err, phase_err)
-        if gain_err <= tol_db and phase_err <= tol_deg:
+        try:
+            best = _realise_word(b, a, ts, w, given, g, integrator, (e_min, e_max), (u_min, u_max))
+        except DesignError as exc:  # a given format that does not fit this word (or overflows)
+            refused = exc
+            continue
+        if best.gain_error_db <= tol_db and best.phase_error_deg <= tol_deg:
             break
+    if best is None:
+        raise refused
     return best
+
+
+def _realise_word(b, a, ts, w, given, g, integrator, e_range, u_range) -> FixedPointController:
+    """One coefficient word: the Q formats (given, or the most that fit and keep the accumulator bounded)."""
+    e_abs, u_abs = max(abs(v) for v in e_range), max(abs(v) for v in u_range)
+    if given is None:
+        fb, fa = _max_frac(b, w), min(_max_frac(a[1:], w), 62 - g)
+    else:
+        fb, fa = given
+    for _ in range(200):
+        try:
+            bi, ai = _integerise(b, a, fb, fa, w, integrator)
+        except DesignError:
+            if given is not None:
+                raise
+            fb, fa = fb - 1, fa - 1  # the integrator's correction pushed a coefficient past the word
+            continue
+        s, worst, acc_bits = _acc_bits(bi, ai, fb, fa, g, e_abs, u_abs)
+        if worst < 2**ACC_LIMIT_BITS:
+            break
+        if given is not None:
+            raise DesignError("frac_bits", given if given[0] != given[1] else given[0],
+                              f"a format whose worst-case accumulator ({acc_bits} bits) stays below "
+                              f"{ACC_LIMIT_BITS + 1} bits: fewer fractional bits, smaller ranges or state_frac_bits")
+        fb, fa = fb - 1, fa - 1
+    else:  # pragma: no cover - 200 halvings leave every coefficient zero
+        raise DesignError("b, a", (b.tolist(), a.tolist()), "coefficients a fixed-point format can hold")
+    bq = bi * 2.0**-fb
+    aq = np.r_[1.0, ai * 2.0**-fa]
+    gain_err, phase_err = _response_error(b, a, bq, aq, ts)
+    return FixedPointController(b, a, tuple(int(v) for v in bi), tuple(int(v) for v in ai), w, fb, fa, g, s,
+                                acc_bits, *e_range, *u_range, ts, gain_err, phase_err)
 
 
 def margins_before_after(plant: Discrete, controller: FixedPointController, f_hz):

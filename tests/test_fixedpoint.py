@@ -79,6 +79,13 @@ CASES = {
 
 
 def _controller(name):
+    if name == "lead-bipolar":  # the buck's first zero and pole as a lead stage (no integrator), output +-300
+        _, _, ts, res = _type3(40e3)
+        lead = Rational.from_roots_hz(1.0, [-res.zeros_hz[0]], [-res.poles_hz[1]])
+        b, a = (tustin(lead, ts, 40e3) * 2.0).difference_equation(0)
+        return realise(b, a, ts, adc_error_range(ADC_BITS), (-300, 300))
+    if name == "proportional":  # no past outputs at all (the header's NA = 0 branch)
+        return realise([0.75], [1.0], 1 / 400e3, adc_error_range(ADC_BITS), (-250, 250))
     if name == "pi":
         ts = 1 / 250e3
         b, a = digital_pi(0.9, 0.97, ts).difference_equation(0)
@@ -128,7 +135,7 @@ def _errors(rng, e_max):
 
 
 @needs_gcc
-@pytest.mark.parametrize("name", [*CASES, "pi"])
+@pytest.mark.parametrize("name", [*CASES, "pi", "lead-bipolar", "proportional"])
 def test_c_header_equals_python_model_bit_for_bit(tmp_path, name):
     ctrl = _controller(name)
     rng = np.random.default_rng(20261203)
@@ -334,3 +341,5 @@ def test_header_carries_the_caution_and_the_formats(tmp_path):
     assert f"#define BUCK_CTRL_U_MAX {ctrl.u_max}" in text
     assert f"#define BUCK_CTRL_FS_HZ {1 / ctrl.ts_s!r}" in text
     assert "{" + ", ".join(map(str, ctrl.b_int)) + "}" in text
+    bipolar = c_header(_controller("lead-bipolar"), prefix="lead")
+    assert "#define LEAD_U_MIN (-300)" in bipolar and "#define LEAD_Y_MIN (-INT64_C(" in bipolar
