@@ -154,9 +154,11 @@ def worst_corner(m: RowMargins) -> dict:
     pm = np.min(np.where(usable, m.pm_deg, -180.0), axis=1)
     gm = np.min(np.where(np.isfinite(m.gm_db), m.gm_db, np.inf), axis=1)
     fc = np.where(m.n_crossovers >= 1, m.fc_hz, np.nan)
-    with np.errstate(invalid="ignore"), np.testing.suppress_warnings() as sup:
-        sup.filter(RuntimeWarning)
-        return {"pm_deg": pm, "gm_db": gm, "fc_min_hz": np.nanmin(fc, axis=1), "fc_max_hz": np.nanmax(fc, axis=1)}
+    none = np.all(np.isnan(fc), axis=1)
+    filled = np.where(none[:, None], 0.0, fc)  # rows without a crossover give NaN, without a warning
+    lo = np.where(none, np.nan, np.nanmin(np.where(np.isnan(filled), np.inf, filled), axis=1))
+    hi = np.where(none, np.nan, np.nanmax(np.where(np.isnan(filled), -np.inf, filled), axis=1))
+    return {"pm_deg": pm, "gm_db": gm, "fc_min_hz": lo, "fc_max_hz": hi}
 
 
 # ------------------------------------------------------------------ intervals

@@ -40,6 +40,7 @@ __all__ = [
     "draws_per_chunk",
     "row_loop",
     "row_margins",
+    "row_stage",
     "vectorised",
 ]
 
@@ -205,6 +206,16 @@ def _row_design(design: Design, qs, values: np.ndarray, per_row: bool = True) ->
         tolerances=design.tolerances,
     )
     return row, parts
+
+
+def row_stage(design: Design, qs, values: np.ndarray):
+    """The power stage at every row of some draws (:class:`~loopkit.powerstage.StageResult` over rows).
+
+    The batch path's stage (not for the four-switch stage, whose modes split the corners).
+    """
+    values = np.atleast_2d(np.asarray(values, float))
+    row, _ = _row_design(design, qs, values)
+    return analyse_stage(row, findings=False)
 
 
 def _loop_one(design: Design, f_hz: np.ndarray):
