@@ -8,6 +8,7 @@ Subcommands::
     loopkit export FILE [--bom OUT.csv] [--spice OUT.cir] [--json OUT.json] [--svg OUT.svg]
     loopkit measured FILE MEASUREMENT.csv [--kind loop|plant] [--corner N] [--columns ...] [--fit] [--csv OUT]
     loopkit step FILE --load 0.5:3 [--rise 1u] [--vin-step 18:24] [--ref-step 1%] [--band 1%] [--csv OUT]
+    loopkit tolerance FILE [--draws 1000] [--random-state 0] [--workers 2] [--worst-case] [--csv OUT] [--json OUT]
     loopkit gui [FILE]
 
 Every command calls the same library path as the app and the tests
@@ -762,6 +763,51 @@ def _cmd_stage(args) -> int:
     return 0
 
 
+def _cmd_tolerance(args) -> int:
+    """Tolerance study (:mod:`loopkit.montecarlo`); Ctrl-C keeps the draws finished and reports them."""
+    from .montecarlo import monte_carlo, prepare_study, sensitivity, worst_case
+    from .tolerance_report import draws_csv, progress_bar, study_json, study_text
+
+    design = load_design(args.file)
+    if args.draws < 0:
+        raise DesignError("--draws", args.draws, "must be a whole number >= 0")
+    if args.workers < 1:
+        raise DesignError("--workers", args.workers, "must be a whole number >= 1")
+    min_yield = None
+    if args.min_yield is not None:
+        try:
+            min_yield = float(args.min_yield.strip().rstrip("%")) / 100.0
+        except ValueError:
+            min_yield = -1.0
+        if not 0.0 <= min_yield <= 1.0:
+            raise DesignError("--min-yield", args.min_yield, "must be a percentage from 0 to 100, e.g. 99%")
+    for out in (args.csv, args.json):
+        if out and out != "-":
+            check_writable(out)
+    study = prepare_study(design)
+    mc = None
+    if args.draws:
+        update, close = progress_bar(args.draws, None if not args.no_progress else False)
+        try:
+            mc = monte_carlo(study, args.draws, args.random_state, args.workers, update)
+        finally:
+            close()
+    sens = sensitivity(study, mc)
+    wc = worst_case(study) if args.worst_case else None
+    print(study_text(study, mc, sens, wc, args.file))
+    if args.csv and mc is not None:
+        _write_text(args.csv, draws_csv(mc))
+    if args.json:
+        _write_text(args.json, study_json(study, mc, sens, wc))
+    if mc is not None and mc.cancelled:
+        return 130
+    if min_yield is not None and mc is not None and mc.yield_fraction < min_yield:
+        print(f"loopkit tolerance: {args.file}: yield {100 * mc.yield_fraction:.1f} % is below"
+              f" {100 * min_yield:g} %", file=sys.stderr)
+        return EXIT_NOT_MET
+    return 0
+
+
 def _cmd_gui(args) -> int:
     """Start the desktop app (package ``app``) as its own process: the library never imports it."""
     import importlib.util
@@ -946,6 +992,18 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--corner", type=int, help="show one corner only (index in the step's corners)")
     p.add_argument("--csv", metavar="OUT", help="write the waveforms as CSV")
     p.set_defaults(run=_cmd_step)
+
+    p = sub.add_parser("tolerance", help="tolerance study: Monte Carlo yield, sensitivity, worst case")
+    p.add_argument("file", metavar="FILE", help="design file (TOML) with a [tolerances] table")
+    p.add_argument("--draws", type=int, default=1000, help="Monte Carlo draws (default 1000; 0: none)")
+    p.add_argument("--random-state", type=int, default=0, help="random state of the draws (default 0)")
+    p.add_argument("--workers", type=int, default=1, help="processes (default 1)")
+    p.add_argument("--worst-case", action="store_true", help="also the extreme-value worst case")
+    p.add_argument("--min-yield", metavar="PERCENT", help="exit 1 when the yield is below this, e.g. 99%%")
+    p.add_argument("--csv", metavar="OUT", help="write the draws (values, worst-corner margins, passed) as CSV")
+    p.add_argument("--json", metavar="OUT", help="write the whole study as JSON")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.set_defaults(run=_cmd_tolerance)
 
     p = sub.add_parser("gui", help="open the desktop app")
     p.add_argument("file", metavar="FILE", nargs="?", help="design file to open")

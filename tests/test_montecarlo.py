@@ -208,3 +208,34 @@ def test_sensitivity_ranks_the_output_filter_first(buck_study):
     by_key = {s.key: s for s in ranked}
     assert by_key["inductance"].rank_correlation > 0.3  # more L: lower f0, more phase at fc here
     assert ranked[0].effect_deg >= ranked[-1].effect_deg
+
+
+def test_cli_tolerance_prints_the_library_values(tmp_path, capsys):
+    """``loopkit tolerance``: the yield and interval the library computes, the CSV and JSON of the same run."""
+    import json
+
+    from loopkit.cli import main
+
+    text = open(SAMPLES + "buck_24v_3v3.toml").read() + '\n[tolerances]\ninductance = "20%"\n'
+    path = tmp_path / "d.toml"
+    path.write_text(text)
+    out_csv, out_json = tmp_path / "draws.csv", tmp_path / "study.json"
+    status = main(["tolerance", str(path), "--draws", "120", "--random-state", "3", "--no-progress",
+                   "--csv", str(out_csv), "--json", str(out_json)])
+    printed = capsys.readouterr().out
+    from loopkit.designfile import load_design as load
+
+    study = prepare_study(load(path))
+    mc = monte_carlo(study, 120, random_state=3)
+    assert status == 0
+    assert f"yield {100 * mc.yield_fraction:.1f} %" in printed
+    assert f"Wilson score {100 * mc.wilson[0]:.1f} .. {100 * mc.wilson[1]:.1f} %" in printed
+    assert printed.rstrip().endswith("licensed practice.")
+    lines = out_csv.read_text().splitlines()
+    assert lines[0].startswith("draw,inductance,") and len(lines) == 121
+    doc = json.loads(out_json.read_text())
+    assert doc["monte_carlo"]["yield"] == pytest.approx(mc.yield_fraction)
+    assert doc["monte_carlo"]["values"][5][0] == pytest.approx(mc.values[5, 0])
+    assert "caution" in doc
+    assert main(["tolerance", str(path), "--draws", "10", "--min-yield", "101%"]) == 2
+    assert "--min-yield" in capsys.readouterr().err
