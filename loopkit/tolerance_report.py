@@ -52,8 +52,8 @@ def study_text(study: Study, mc: MonteCarloResult | None, sens: list[Sensitivity
         lines += ["", f"Monte Carlo: {mc.n} draws (random state {mc.random_state})"
                   + (f", cancelled after {mc.n} of {mc.requested}" if mc.cancelled else ""),
                   f"yield {100 * mc.yield_fraction:.1f} % ({passed} of {mc.n} meet every target at every corner)",
-                  f"  {100 * mc.confidence:g} % interval: Wilson score {100 * lo:.1f} .. {100 * hi:.1f} %,"
-                  f" Clopper-Pearson {100 * cl:.1f} .. {100 * ch:.1f} %"]
+                  (f"  {100 * mc.confidence:g} % interval: Wilson score {100 * lo:.1f} .. {100 * hi:.1f} %,"
+                   f" Clopper-Pearson {100 * cl:.1f} .. {100 * ch:.1f} %")]
         w = mc.worst
         rows = []
         for name, key, unit in (("worst PM", "pm_deg", "deg"), ("worst GM", "gm_db", "dB"),

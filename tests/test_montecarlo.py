@@ -213,10 +213,11 @@ def test_sensitivity_ranks_the_output_filter_first(buck_study):
 def test_cli_tolerance_prints_the_library_values(tmp_path, capsys):
     """``loopkit tolerance``: the yield and interval the library computes, the CSV and JSON of the same run."""
     import json
+    from pathlib import Path
 
     from loopkit.cli import main
 
-    text = open(SAMPLES + "buck_24v_3v3.toml").read() + '\n[tolerances]\ninductance = "20%"\n'
+    text = Path(SAMPLES + "buck_24v_3v3.toml").read_text() + '\n[tolerances]\ninductance = "20%"\n'
     path = tmp_path / "d.toml"
     path.write_text(text)
     out_csv, out_json = tmp_path / "draws.csv", tmp_path / "study.json"

@@ -12,7 +12,9 @@ BUCK = "sample_designs/buck_24v_3v3.toml"
 
 
 def _with(section: str) -> str:
-    return open(BUCK).read() + "\n" + section
+    from pathlib import Path
+
+    return Path(BUCK).read_text() + "\n" + section
 
 
 def test_round_trip_and_resolution():
