@@ -29,3 +29,20 @@ def test_sweep_cancel_keeps_finished_blocks():
     s = vin_sweep(d, r, np.linspace(18, 32, 40), progress=lambda done, total: calls.append(done),
                   cancelled=lambda: len(calls) >= 2, budget_bytes=2**20)
     assert s.cancelled and s.vin.size == calls[-1] * len(d.operating.load) < 40 * len(d.operating.load)
+
+
+def test_cli_sweep_prints_the_library_values(tmp_path, capsys):
+    from loopkit.cli import main
+
+    out = tmp_path / "s.csv"
+    assert main(["sweep", "sample_designs/buck_24v_3v3.toml", "--points", "30", "--csv", str(out),
+                 "--no-progress"]) == 0
+    printed = capsys.readouterr().out
+    d = load_design("sample_designs/buck_24v_3v3.toml")
+    s = vin_sweep(d, design_loop(d), np.linspace(min(d.operating.vin), max(d.operating.vin), 30))
+    k = s.load == d.operating.load[0]
+    assert f"{np.min(s.pm_deg[k]):.1f}" in printed.splitlines()[4]
+    lines = out.read_text().splitlines()
+    assert lines[0] == "vin_v,load_a,fc_hz,pm_deg,gm_db,stable" and len(lines) == 1 + 30 * len(d.operating.load)
+    assert all(len(line) <= 80 for line in printed.splitlines())
+    assert main(["sweep", "sample_designs/buck_24v_3v3.toml", "--points", "1"]) == 2
