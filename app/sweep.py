@@ -1,9 +1,8 @@
 """Dense input-voltage sweep of the current parts, off the UI thread, with progress and cancel.
 
-The sweep takes the parts the app shows (snapped), fixes them in a copy of the
-design (:func:`loopkit.loop.apply_parts`) and analyses that design over many
-input voltages in chunks with :func:`loopkit.loop.design_loop`, so the curves
-are the same numbers the corner table shows at the design's own corners.
+The sweep itself is the library's (:func:`loopkit.sweep.vin_sweep`: the parts the
+app shows, fixed, over many input voltages in blocks that fit a memory budget),
+so the curves are the same numbers the corner table and ``loopkit sweep`` show.
 """
 
 from __future__ import annotations
@@ -11,7 +10,6 @@ from __future__ import annotations
 import sys
 import threading
 import traceback
-from dataclasses import replace
 
 import numpy as np
 import pyqtgraph as pg
@@ -28,22 +26,12 @@ from PySide6.QtWidgets import (
 )
 
 from loopkit import DesignError, format_value
-from loopkit.bounds import MAX_CORNERS
-from loopkit.loop import apply_parts, design_loop
+from loopkit.sweep import sweep_design, vin_sweep
 
 from .plots import load_styles, vin_colour_map
 
 __all__ = ["SweepDialog", "SweepWorker", "sweep_design"]
 
-_CHUNK = 25
-
-
-def sweep_design(design, result, vin_values) -> object:
-    """The design with the result's parts fixed and the input voltages replaced by ``vin_values``."""
-    fixed = apply_parts(design, result)
-    comp = replace(fixed.compensator, design_corner=None)  # parts are given: no design corner needed
-    return replace(fixed, compensator=comp,
-                   operating=replace(fixed.operating, vin=tuple(float(v) for v in vin_values)))
 
 
 class SweepWorker(QObject):
@@ -64,23 +52,11 @@ class SweepWorker(QObject):
         self._cancel.set()
 
     def run(self) -> None:
-        out = {"vin": [], "load": [], "fc_hz": [], "pm_deg": [], "gm_db": [], "stable": []}
-        size = max(1, min(_CHUNK, MAX_CORNERS // max(1, len(self._design.operating.load))))  # the corner cap
-        chunks = [self._vin[i:i + size] for i in range(0, len(self._vin), size)]
+        def progress(done, total):
+            self.progress.emit(int(100 * done / total))
+
         try:
-            for i, chunk in enumerate(chunks):
-                if self._cancel.is_set():
-                    self.failed.emit("cancelled")
-                    return
-                r = design_loop(sweep_design(self._design, self._result, chunk))
-                if not r.feasible:
-                    self.failed.emit(next((f.message for f in r.findings if f.code == "infeasible"), "no parts"))
-                    return
-                out["vin"].append(r.stage.vin)
-                out["load"].append(r.stage.load)
-                for key in ("fc_hz", "pm_deg", "gm_db", "stable"):
-                    out[key].append(getattr(r.margins, key))
-                self.progress.emit(int(100 * (i + 1) / len(chunks)))
+            swept = vin_sweep(self._design, self._result, self._vin, progress, self._cancel.is_set)
         except DesignError as exc:
             self.failed.emit(str(exc))
             return
@@ -89,7 +65,10 @@ class SweepWorker(QObject):
             self.failed.emit(f"loopkit could not compute this sweep ({type(exc).__name__}: {exc}); please report it"
                              f" with the design file.")
             return
-        self.finished.emit({k: np.concatenate(v) for k, v in out.items()})
+        if swept.cancelled:
+            self.failed.emit("cancelled")
+            return
+        self.finished.emit(swept.as_dict())
 
 
 class SweepDialog(QDialog):

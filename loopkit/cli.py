@@ -8,6 +8,8 @@ Subcommands::
     loopkit export FILE [--bom OUT.csv] [--spice OUT.cir] [--json OUT.json] [--svg OUT.svg]
     loopkit measured FILE MEASUREMENT.csv [--kind loop|plant] [--corner N] [--columns ...] [--fit] [--csv OUT]
     loopkit step FILE --load 0.5:3 [--rise 1u] [--vin-step 18:24] [--ref-step 1%] [--band 1%] [--csv OUT]
+    loopkit sweep FILE [--points 400] [--csv OUT]
+    loopkit tolerance FILE [--draws 1000] [--random-state 0] [--workers 2] [--worst-case] [--csv OUT] [--json OUT]
     loopkit gui [FILE]
 
 Every command calls the same library path as the app and the tests
@@ -762,6 +764,100 @@ def _cmd_stage(args) -> int:
     return 0
 
 
+def _cmd_sweep(args) -> int:
+    """Dense input-voltage sweep (:func:`loopkit.sweep.vin_sweep`): per load, the lowest PM and the fc range."""
+    from .sweep import vin_sweep
+    from .tolerance_report import progress_bar
+
+    design = load_design(args.file)
+    if not 2 <= args.points <= 1_000_000:
+        raise DesignError("--points", args.points, "must be a whole number from 2 to 1000000")
+    if args.csv and args.csv != "-":
+        check_writable(args.csv)
+    result = _loop_result(design, args)
+    if not result.feasible:
+        print(design_text(result, args.file))
+        return _verdict_status(result, "sweep", args.file)
+    lo, hi = min(design.operating.vin), max(design.operating.vin)
+    vin = np.linspace(lo, hi, args.points) if hi > lo else np.array([lo])
+    update, close = progress_bar(vin.size, None if not args.no_progress else False)
+    try:
+        s = vin_sweep(design, result, vin, update)
+    finally:
+        close()
+    rows = []
+    for load in design.operating.load:
+        k = np.nonzero(s.load == load)[0]
+        usable = k[s.stable[k] & np.isfinite(s.pm_deg[k])]
+        worst = usable[np.argmin(s.pm_deg[usable])] if usable.size else None
+        gm = s.gm_db[k][np.isfinite(s.gm_db[k])]
+        rows.append([format_value(load, "A"), f"{s.pm_deg[worst]:.1f}" if worst is not None else "-",
+                     format_value(s.vin[worst], "V") if worst is not None else "-",
+                     format_value(np.nanmin(s.fc_hz[k]), "Hz"), format_value(np.nanmax(s.fc_hz[k]), "Hz"),
+                     f"{gm.min():.1f}" if gm.size else "none", str(int(np.sum(~s.stable[k])))])
+    lines = [wrap_note(f"input-voltage sweep of {args.file}: {vin.size} input voltages x"
+                       f" {len(design.operating.load)} loads, parts as built"), "",
+             format_table([Column("load"), Column("lowest PM", "deg"), Column("at vin"), Column("fc min"),
+                           Column("fc max"), Column("lowest GM", "dB"), Column("unstable")], rows), ""]
+    if args.csv:
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        w.writerow(["vin_v", "load_a", "fc_hz", "pm_deg", "gm_db", "stable"])
+        for i in range(s.vin.size):
+            w.writerow([f"{s.vin[i]:.10g}", f"{s.load[i]:.10g}", f"{s.fc_hz[i]:.10g}", f"{s.pm_deg[i]:.6g}",
+                        f"{s.gm_db[i]:.6g}", int(s.stable[i])])
+        _write_text(args.csv, buf.getvalue())
+        lines.append(wrap_note(f"wrote {args.csv}: {s.vin.size} swept corners"))
+    lines.append(wrap_note(CAUTION))
+    print("\n".join(lines))
+    return 0
+
+
+def _cmd_tolerance(args) -> int:
+    """Tolerance study (:mod:`loopkit.montecarlo`); Ctrl-C keeps the draws finished and reports them."""
+    from .montecarlo import monte_carlo, prepare_study, sensitivity, worst_case
+    from .tolerance_report import draws_csv, progress_bar, study_json, study_text
+
+    design = load_design(args.file)
+    if args.draws < 0:
+        raise DesignError("--draws", args.draws, "must be a whole number >= 0")
+    if args.workers < 1:
+        raise DesignError("--workers", args.workers, "must be a whole number >= 1")
+    min_yield = None
+    if args.min_yield is not None:
+        try:
+            min_yield = float(args.min_yield.strip().rstrip("%")) / 100.0
+        except ValueError:
+            min_yield = -1.0
+        if not 0.0 <= min_yield <= 1.0:
+            raise DesignError("--min-yield", args.min_yield, "must be a percentage from 0 to 100, e.g. 99%")
+    for out in (args.csv, args.json):
+        if out and out != "-":
+            check_writable(out)
+    study = prepare_study(design)
+    mc = None
+    if args.draws:
+        update, close = progress_bar(args.draws, None if not args.no_progress else False)
+        try:
+            mc = monte_carlo(study, args.draws, args.random_state, args.workers, update)
+        finally:
+            close()
+    sens = sensitivity(study, mc)
+    wc = worst_case(study) if args.worst_case else None
+    print(study_text(study, mc, sens, wc, args.file))
+    if args.csv and mc is not None:
+        _write_text(args.csv, draws_csv(mc))
+    if args.json:
+        _write_text(args.json, study_json(study, mc, sens, wc))
+    if mc is not None and mc.cancelled:
+        return 130
+    if min_yield is not None and mc is not None and mc.yield_fraction < min_yield:
+        print(f"loopkit tolerance: {args.file}: yield {100 * mc.yield_fraction:.1f} % is below"
+              f" {100 * min_yield:g} %", file=sys.stderr)
+        return EXIT_NOT_MET
+    return 0
+
+
 def _cmd_gui(args) -> int:
     """Start the desktop app (package ``app``) as its own process: the library never imports it."""
     import importlib.util
@@ -946,6 +1042,26 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--corner", type=int, help="show one corner only (index in the step's corners)")
     p.add_argument("--csv", metavar="OUT", help="write the waveforms as CSV")
     p.set_defaults(run=_cmd_step)
+
+    p = sub.add_parser("sweep", help="margins at many input voltages with the parts to build (every load)")
+    p.add_argument("file", metavar="FILE", help="design file (TOML)")
+    p.add_argument("--points", type=int, default=400, help="input voltages from vin min to max (default 400)")
+    p.add_argument("--csv", metavar="OUT", help="write vin, load, fc, PM, GM, stable per swept corner")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    _add_target_options(p)
+    p.set_defaults(run=_cmd_sweep)
+
+    p = sub.add_parser("tolerance", help="tolerance study: Monte Carlo yield, sensitivity, worst case")
+    p.add_argument("file", metavar="FILE", help="design file (TOML) with a [tolerances] table")
+    p.add_argument("--draws", type=int, default=1000, help="Monte Carlo draws (default 1000; 0: none)")
+    p.add_argument("--random-state", type=int, default=0, help="random state of the draws (default 0)")
+    p.add_argument("--workers", type=int, default=1, help="processes (default 1)")
+    p.add_argument("--worst-case", action="store_true", help="also the extreme-value worst case")
+    p.add_argument("--min-yield", metavar="PERCENT", help="exit 1 when the yield is below this, e.g. 99%%")
+    p.add_argument("--csv", metavar="OUT", help="write the draws (values, worst-corner margins, passed) as CSV")
+    p.add_argument("--json", metavar="OUT", help="write the whole study as JSON")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.set_defaults(run=_cmd_tolerance)
 
     p = sub.add_parser("gui", help="open the desktop app")
     p.add_argument("file", metavar="FILE", nargs="?", help="design file to open")

@@ -18,6 +18,7 @@ from . import bounds
 from .errors import DesignError
 from .eseries import SERIES_NAMES
 from .networks import NETWORKS
+from .tolerances import Tolerances
 from .units import format_value
 
 __all__ = [
@@ -442,6 +443,7 @@ class Design:
     compensator: Compensator = field(default_factory=Compensator)
     title: str = ""
     control: Control = field(default_factory=Control)
+    tolerances: Tolerances = field(default_factory=Tolerances)
 
     def __post_init__(self):
         vout = self.operating.vout
@@ -457,6 +459,9 @@ class Design:
         if vout < 0 and self.sensing.kind != "differential":
             raise DesignError("sensing.kind", self.sensing.kind, "a negative output needs differential sensing")
         self._check_where_fields_meet()
+        if len(self.tolerances.banks) > len(self.stage.output_caps):  # [tolerances] (loopkit.tolerances)
+            raise DesignError("tolerances.output_caps", f"({len(self.tolerances.banks)} tables)",
+                              f"at most one per capacitor bank of the stage ({len(self.stage.output_caps)})")
 
     def _check_where_fields_meet(self) -> None:
         """Consistency where fields meet: divider current and R1, turns ratio and duty.

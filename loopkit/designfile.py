@@ -77,6 +77,7 @@ from .errors import DesignError, DesignFileError, shorten
 from .eseries import is_capacitor, is_resistor
 from .networks import network_module
 from .networks.opto_type2 import OPTO_KEYS
+from .tolerances import Tolerances, parse_tolerances, tolerances_to_dict, tolerances_toml
 from .units import format_value, parse_value
 
 __all__ = ["design_from_dict", "design_to_dict", "dumps_design", "load_design", "loads_design", "save_design"]
@@ -216,7 +217,8 @@ def _list_or_range(table: dict, key: str, where: str, log: bool) -> tuple[float,
 
 def design_from_dict(data: dict) -> Design:
     """Validate a parsed TOML document and build the :class:`Design`."""
-    top = {"format", "version", "title", "stage", "operating", "sensing", "modulator", "compensator", "control"}
+    top = {"format", "version", "title", "stage", "operating", "sensing", "modulator", "compensator", "control",
+           "tolerances"}
     _check_keys(data, top, "")
     if data.get("format", FORMAT) != FORMAT:
         raise DesignError("format", data["format"], f"must be {FORMAT!r}")
@@ -291,7 +293,8 @@ def design_from_dict(data: dict) -> Design:
     title = data.get("title", "")
     if not isinstance(title, str):
         raise DesignError("title", title, "must be text")
-    return Design(stage, operating, sensing, modulator, compensator, title, control)
+    tol = parse_tolerances(data.get("tolerances", {}), len(banks))  # [tolerances]: loopkit.tolerances
+    return Design(stage, operating, sensing, modulator, compensator, title, control, tol)
 
 
 def _part_unit(designator: str) -> str | None:
@@ -587,6 +590,7 @@ def design_to_dict(design: Design, ranges: bool = True) -> dict:
         **({} if design.control == Control() else {"control": {
             f.name: getattr(design.control, f.name) for f in fields(Control)
             if getattr(design.control, f.name) is not None}}),
+        **({} if design.tolerances == Tolerances() else {"tolerances": tolerances_to_dict(design.tolerances)}),
     }
 
 
@@ -635,6 +639,8 @@ def _dumps(data: dict) -> str:
     for key in ("stage", "operating", "sensing", "modulator", "compensator", "control"):
         if key in data:
             table(key, data[key])
+    if "tolerances" in data:
+        lines.append(tolerances_toml(data["tolerances"]))
     return "\n".join(lines).rstrip() + "\n"
 
 

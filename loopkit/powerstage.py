@@ -196,12 +196,47 @@ def _double_pole(poles_hz: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return f0, q
 
 
-def analyse_stage(design: Design) -> StageResult:
+def _rows_of(st, k: np.ndarray):
+    """The stage with part values that are arrays over the rows (a tolerance study) cut to rows ``k``.
+
+    A stage of scalar values is returned as it is.
+    """
+    from dataclasses import fields, replace
+
+    def cut(x):
+        return np.asarray(x)[k] if np.ndim(x) == 1 else x
+
+    changes = {f.name: cut(getattr(st, f.name)) for f in fields(st) if np.ndim(getattr(st, f.name)) == 1
+               and f.name != "output_caps"}
+    banks = tuple(replace(b, capacitance=cut(b.capacitance), esr=cut(b.esr)) for b in st.output_caps)
+    if not changes and all(np.ndim(b.capacitance) == 0 and np.ndim(b.esr) == 0 for b in st.output_caps):
+        return st
+    return replace(st, output_caps=banks, **changes)
+
+
+def _slope_sensitivity(module, st) -> np.ndarray:
+    """The topology's slope sensitivities; with the inductance an array over rows, each row's own.
+
+    Every topology's sensitivities are a fixed matrix over the inductance (see their
+    ``slope_sensitivity``), so a row array divides that matrix row by row.
+    """
+    lh = np.asarray(st.inductance)
+    if lh.ndim == 0:
+        return module.slope_sensitivity(st)
+    from dataclasses import replace
+
+    return module.slope_sensitivity(replace(st, inductance=1.0))[None, :, :] / lh[:, None, None]
+
+
+def analyse_stage(design: Design, findings: bool = True) -> StageResult:
     """Operating point and small-signal model of the power stage at every corner.
 
     Parameters
     ----------
     design : Design
+
+    findings : bool
+        False leaves out the per-corner findings (a tolerance study's many rows).
 
     Returns
     -------
@@ -248,6 +283,7 @@ def analyse_stage(design: Design) -> StageResult:
     dcm_mask = np.zeros(n, bool)
     submode = np.full(n, "", dtype=object)
     parts_vd, parts_vg, parts_zo, order = [], [], [], []
+    want_findings = findings
     findings: list[Finding] = []
     for idx, st, module, label in groups(stage, vin, load, vout):
         submode[idx] = label
@@ -263,7 +299,9 @@ def analyse_stage(design: Design) -> StageResult:
         in_dcm = (st.light_load_mode == "dcm") & (cp.ripple / 2.0 > cp.i_l)
         out["load_boundary"][idx] = cp.out_per_il * cp.ripple / 2.0
         ccm_idx, dcm_idx = np.nonzero(~in_dcm)[0], np.nonzero(in_dcm)[0]
+        full = st
         if ccm_idx.size:
+            st = _rows_of(full, idx[ccm_idx])
             sel = _select(cp, ccm_idx)
             with _numerics(design, vin[idx][ccm_idx], load[idx][ccm_idx], "CCM"):
                 gvd, gvg, zo = ccm_transfer_functions(st, sel, r_load[idx][ccm_idx])
@@ -281,9 +319,10 @@ def analyse_stage(design: Design) -> StageResult:
             gig, gii = ccm_gig_gii(st, sel, r_load[idx][ccm_idx])
             parts_ig.append(gig), parts_ii.append(gii)
             out["sn"][k], out["sf"][k] = ccm_slopes(sel, st.fsw)
-            sens[k] = module.slope_sensitivity(st)
+            sens[k] = _slope_sensitivity(module, st)
         if dcm_idx.size:
             k = idx[dcm_idx]
+            st = _rows_of(full, k)
             with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
                 dp = module.dcm(st, vin[k], load[k], vout)
             _check_dcm_point(design, dp, vin[k], load[k])
@@ -300,7 +339,7 @@ def analyse_stage(design: Design) -> StageResult:
             dcm_mask[k] = True
             parts_vd.append(gvd), parts_vg.append(gvg), parts_zo.append(zo), order.append(k)
             out["sn"][k], out["sf"][k] = dcm_slopes(dp, st.fsw)
-            sens[k] = module.slope_sensitivity(st)
+            sens[k] = _slope_sensitivity(module, st)
             parts_id.append(dcm_gid(st, dp, gvd, sens[k], out["i_l"][k]))
             gig, gii = dcm_gig_gii(st, dp, gvg, zo, sens[k], out["i_l"][k])
             parts_ig.append(gig), parts_ii.append(gii)
@@ -308,8 +347,11 @@ def analyse_stage(design: Design) -> StageResult:
     gvd = Rational.stack(parts_vd, order_all)
     gvg = Rational.stack(parts_vg, order_all)
     zout = Rational.stack(parts_zo, order_all)
-    f_esr = np.array([1.0 / (TWO_PI * b.esr_total * b.c_total) if b.esr > 0 else np.nan for b in stage.output_caps])
-    findings.extend(_stage_findings(design, vin, load, out, dcm_mask, submode))
+    with np.errstate(divide="ignore"):  # a bank's values may be arrays over the rows
+        f_esr = np.stack([np.broadcast_to(np.where(np.asarray(b.esr) > 0, 1.0 / (TWO_PI * np.asarray(b.esr_total * b.c_total, float)),
+                                                   np.nan), (n,)) for b in stage.output_caps], axis=1)
+    if want_findings:
+        findings.extend(_stage_findings(design, vin, load, out, dcm_mask, submode))
     return StageResult(
         vin=vin,
         load=load,
@@ -326,7 +368,7 @@ def analyse_stage(design: Design) -> StageResult:
         q=out["q"],
         fp_hz=out["fp_hz"],
         f_hf_hz=out["f_hf_hz"],
-        f_esr_hz=np.broadcast_to(f_esr, (n, f_esr.size)).copy(),
+        f_esr_hz=f_esr.copy(),
         f_rhp_hz=out["f_rhp_hz"],
         gvd=gvd,
         gvg=gvg,

@@ -64,19 +64,22 @@ class OpenLoop:
     zout: Rational
     figures: dict = field(default_factory=dict)
 
-    def with_network(self, gc: Rational, f_hz: np.ndarray, corner: int | None = None):
+    def with_network(self, gc: Rational, f_hz: np.ndarray, corner: int | None = None,
+                     gc_on_grid: tuple[np.ndarray, np.ndarray] | None = None):
         """(T, Gc on the grid, T on the grid, continuous phase of T) with the network ``gc``, every corner or one.
 
         T = -Tu Gc; its continuous phase is the sum of the parts' factor angles, corrected for the
-        signs of the parts' gains and of the product's.
+        signs of the parts' gains and of the product's.  ``gc_on_grid``: Gc's response and continuous
+        phase on ``f_hz`` when already known (a tolerance study evaluates each draw's network once
+        for all its corners).
         """
         tu = self.tu if corner is None else self.tu.take(corner)
         tu_resp = self.resp if corner is None else self.resp[corner:corner + 1]
         tu_phase = self.phase_deg if corner is None else self.phase_deg[corner:corner + 1]
         loop = -(tu * gc)
-        comp_resp = gc.response(f_hz)
+        comp_resp = gc.response(f_hz) if gc_on_grid is None else gc_on_grid[0]
         resp = -tu_resp * comp_resp
-        phase = (tu_phase + gc.phase_deg(f_hz)
+        phase = (tu_phase + (gc.phase_deg(f_hz) if gc_on_grid is None else gc_on_grid[1])
                  - np.where(tu.gain < 0, -180.0, 0.0)[:, None]
                  - np.where(gc.gain < 0, -180.0, 0.0)[:, None]
                  + np.where(loop.gain < 0, -180.0, 0.0)[:, None])

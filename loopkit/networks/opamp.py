@@ -47,6 +47,7 @@ __all__ = [
     "check_targets",
     "dc_limit_hz",
     "divider_parts",
+    "factor_rows",
     "fixed_r1",
     "gain_checks",
     "gain_need",
@@ -70,27 +71,61 @@ _NONE: Admittance = (np.array([0.0]), np.array([1.0]))
 
 
 # ---------------------------------------------------------------------- admittances
+def _coeffs(*values) -> Poly:
+    """Ascending coefficients from values that are scalars (shape (k,)) or arrays over rows ((rows, k))."""
+    return np.stack(np.broadcast_arrays(*(np.asarray(v, dtype=float) for v in values)), axis=-1)
+
+
+def _pmul(a: Poly, b: Poly) -> Poly:
+    """Product of ascending polynomials, (k,) or (rows, k) each (numpy's polymul, row by row)."""
+    a, b = np.asarray(a, float), np.asarray(b, float)
+    if a.ndim == 1 and b.ndim == 1:
+        return P.polymul(a, b)
+    a, b = np.atleast_2d(a), np.atleast_2d(b)
+    out = np.zeros((max(a.shape[0], b.shape[0]), a.shape[1] + b.shape[1] - 1))
+    for i in range(a.shape[1]):
+        out[:, i : i + b.shape[1]] += a[:, i : i + 1] * b
+    return out
+
+
+def _padd(a: Poly, b: Poly) -> Poly:
+    """Sum of ascending polynomials, (k,) or (rows, k) each."""
+    a, b = np.asarray(a, float), np.asarray(b, float)
+    if a.ndim == 1 and b.ndim == 1:
+        return P.polyadd(a, b)
+    a, b = np.atleast_2d(a), np.atleast_2d(b)
+    k = max(a.shape[1], b.shape[1])
+    return np.pad(a, ((0, 0), (0, k - a.shape[1]))) + np.pad(b, ((0, 0), (0, k - b.shape[1])))
+
+
+def factor_rows(pairs) -> np.ndarray:
+    """Factors ``[(a0, a1), ...]`` whose values are scalars or arrays over rows, as (k, 2) or (rows, k, 2)."""
+    cols = [np.stack(np.broadcast_arrays(np.asarray(a0, float), np.asarray(a1, float)), axis=-1) for a0, a1 in pairs]
+    return np.stack(np.broadcast_arrays(*cols), axis=-2)
+
+
 def y_resistor(r_ohm: float) -> Admittance:
-    """Admittance of a resistor, ``1 / R``."""
-    return np.array([1.0]), np.array([float(r_ohm)])
+    """Admittance of a resistor, ``1 / R`` (values may be arrays over rows, as everywhere here)."""
+    return _coeffs(np.ones_like(np.asarray(r_ohm, float))), _coeffs(r_ohm)
 
 
 def y_capacitor(c_f: float) -> Admittance:
     """Admittance of a capacitor, ``s C``."""
-    return np.array([0.0, float(c_f)]), np.array([1.0])
+    return _coeffs(0.0 * np.asarray(c_f, float), c_f), np.array([1.0])
 
 
 def y_series_rc(r_ohm: float, c_f: float) -> Admittance:
     """Admittance of R in series with C, ``s C / (1 + s R C)``."""
-    return np.array([0.0, float(c_f)]), np.array([1.0, float(r_ohm) * float(c_f)])
+    rc = np.asarray(r_ohm, float) * np.asarray(c_f, float)
+    return _coeffs(0.0 * rc, c_f), _coeffs(np.ones_like(rc), rc)
 
 
 def y_sum(*ys: Admittance) -> Admittance:
     """Parallel connection: the sum of admittances, over a common denominator."""
     num, den = np.array([0.0]), np.array([1.0])
     for n, d in ys:
-        num = P.polyadd(P.polymul(num, d), P.polymul(n, den))
-        den = P.polymul(den, d)
+        num = _padd(_pmul(num, d), _pmul(n, den))
+        den = _pmul(den, d)
     return num, den
 
 
@@ -137,13 +172,13 @@ def open_loop_gain_polys(opamp: OpAmp | None) -> tuple[Poly, Poly] | None:
     """
     if opamp is None or opamp.ideal:
         return None
-    wt = TWO_PI * opamp.gbw
+    wt = TWO_PI * np.asarray(opamp.gbw, float)  # gbw may be an array over rows (a tolerance study)
     if opamp.gain_db > 0:
         a0 = 10.0 ** (opamp.gain_db / 20.0)
-        if opamp.gbw > 0:
-            return np.array([a0]), np.array([1.0, a0 / wt])
+        if np.all(wt > 0):
+            return np.array([a0]), _coeffs(np.ones_like(wt), a0 / wt)
         return np.array([a0]), np.array([1.0])
-    return np.array([wt]), np.array([0.0, 1.0])
+    return _coeffs(wt), np.array([0.0, 1.0])
 
 
 def open_loop_gain(opamp: OpAmp | None, f_hz) -> np.ndarray:
@@ -184,20 +219,22 @@ def inverting_transfer(net: InvertingNetwork, opamp: OpAmp | None = None) -> Rat
     (ni, di), (nf, df), (ng, dg) = net.yi, net.yf, net.yg
     polys = open_loop_gain_polys(opamp)
     if polys is None:
-        return Rational.from_polys(-P.polymul(ni, df), P.polymul(di, nf))
+        return Rational.from_polys(-_pmul(ni, df), _pmul(di, nf))
     an, ad = polys
-    num = -P.polymul(an, P.polymul(ni, P.polymul(df, dg)))
-    total = P.polyadd(
-        P.polyadd(P.polymul(ni, P.polymul(df, dg)), P.polymul(nf, P.polymul(di, dg))), P.polymul(ng, P.polymul(di, df))
-    )
-    den = P.polyadd(P.polymul(an, P.polymul(nf, P.polymul(di, dg))), P.polymul(ad, total))
+    num = -_pmul(an, _pmul(ni, _pmul(df, dg)))
+    total = _padd(_padd(_pmul(ni, _pmul(df, dg)), _pmul(nf, _pmul(di, dg))), _pmul(ng, _pmul(di, df)))
+    den = _padd(_pmul(an, _pmul(nf, _pmul(di, dg))), _pmul(ad, total))
     return Rational.from_polys(_trim(num), _trim(den))
 
 
 def _trim(p: Poly) -> Poly:
-    """Drop exactly-zero highest-order coefficients (keep at least one)."""
-    p = np.trim_zeros(np.asarray(p, dtype=float), "b")
-    return p if p.size else np.array([0.0])
+    """Drop highest-order coefficients that are exactly zero (in every row; keep at least one)."""
+    p = np.asarray(p, dtype=float)
+    if p.ndim == 1:
+        p = np.trim_zeros(p, "b")
+        return p if p.size else np.array([0.0])
+    nonzero = np.nonzero(np.any(p != 0, axis=0))[0]
+    return p[:, : nonzero[-1] + 1] if nonzero.size else p[:, :1]
 
 
 def noise_gain(net: InvertingNetwork, f_hz) -> np.ndarray:
@@ -343,6 +380,12 @@ def check_parts(parts: dict, needed: tuple[str, ...], network: str) -> dict:
         if name not in parts:
             raise DesignError(f"compensator.parts.{name}", "missing", f"{network} needs {', '.join(needed)}")
         value = parts[name]
+        if isinstance(value, np.ndarray) and value.ndim == 1:  # values over rows (a tolerance study)
+            if not np.all(np.isfinite(value) & (value > 0)):
+                raise DesignError(f"compensator.parts.{name}", format_value(float(np.min(value))),
+                                  "must be a finite value > 0 in every row")
+            out[name] = value.astype(float)
+            continue
         try:
             v = float(value)
         except (TypeError, ValueError):
@@ -386,7 +429,7 @@ def shunt_of(parts: dict, ctx) -> Admittance:
     """``Yg`` of the network: Rb from ``parts``, else computed from the context."""
     if "Rb" in parts:
         return y_resistor(check_parts(parts, ("Rb",), "the divider")["Rb"])
-    rb = bottom_resistor(float(parts["R1"]), ctx.vref, ctx.v_sensed)
+    rb = bottom_resistor(check_parts(parts, ("R1",), "the divider")["R1"], ctx.vref, ctx.v_sensed)
     return _NONE if rb is None else y_resistor(rb)
 
 

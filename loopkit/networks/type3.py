@@ -57,6 +57,7 @@ from .opamp import (
     check_parts,
     check_targets,
     divider_parts,
+    factor_rows,
     fixed_r1,
     gain_checks,
     inverting_netlist,
@@ -131,8 +132,8 @@ def transfer(parts: dict, ctx) -> Rational:
         c_series = p["C1"] * p["C2"] / c_sum
         return Rational.from_factors(
             -1.0 / (p["R1"] * c_sum),
-            num=[(1.0, p["R2"] * p["C1"]), (1.0, (p["R1"] + p["R3"]) * p["C3"])],
-            den=[(0.0, 1.0), (1.0, p["R2"] * c_series), (1.0, p["R3"] * p["C3"])],
+            num=factor_rows([(1.0, p["R2"] * p["C1"]), (1.0, (p["R1"] + p["R3"]) * p["C3"])]),
+            den=factor_rows([(0.0, 1.0), (1.0, p["R2"] * c_series), (1.0, p["R3"] * p["C3"])]),
         )
     return inverting_transfer(inverting_network(parts, ctx), ctx.opamp)
 

@@ -544,18 +544,23 @@ def slope_of(design, stage: StageResult) -> float:
     return auto_slope(stage, ri)
 
 
-def uncompensated(design, stage: StageResult):
+def uncompensated(design, stage: StageResult, loop_only: bool = False):
     """The loop from the error amplifier's output to its input without the network: H x vo/vc.
 
     The error amplifier's output is the comparator's control voltage ``vc`` (the current-sense
     gain and the ramp are referred to it), so ``Tu = H vo/vc`` with ``H`` the sensing; the
-    line-to-output and output impedance have the current loop closed.
+    line-to-output and output impedance have the current loop closed.  ``loop_only`` (a
+    tolerance study's many rows): Tu alone, with the plant's own Gvg and Zout, no figures or
+    findings.
     """
     from ..networks.sensing import sensing_transfer
     from .base import SchemeLoop
 
     ri = design.control.sense_gain
     se = slope_of(design, stage)
+    if loop_only:
+        return SchemeLoop(tu=sensing_transfer(design) * control_to_output(stage, ri, se), gvg=stage.gvg,
+                          zout=stage.zout, figures={}, findings=())
     limit = design.control.current_limit or None
     fig = figures(stage, ri, se)
     fig["se_v_per_s"] = np.full(stage.n_corners, se)

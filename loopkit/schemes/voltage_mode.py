@@ -35,8 +35,8 @@ def modulator_transfer(design, vin: np.ndarray) -> Rational:
     return Rational.constant(1.0 / ramp)
 
 
-def uncompensated(design, stage) -> SchemeLoop:
-    """Tu = H Fm Gvd at every corner."""
+def uncompensated(design, stage, loop_only: bool = False) -> SchemeLoop:
+    """Tu = H Fm Gvd at every corner (``loop_only``: the same; the contract of every scheme)."""
     fm = modulator_transfer(design, stage.vin)
     return SchemeLoop(tu=sensing_transfer(design) * fm * stage.gvd, gvg=stage.gvg, zout=stage.zout,
                       figures={"fm": fm.gain.copy()}, findings=())

@@ -133,10 +133,11 @@ def pulsed_esr_resistance(stage: Stage, r_load: np.ndarray) -> np.ndarray:
     capacitor ESR; derived in the notes of this module).
     """
     r_load = np.asarray(r_load, float)
-    if any(b.esr_total == 0 for b in stage.output_caps):
-        return np.zeros_like(r_load)
-    g = 1.0 / r_load + sum(1.0 / b.esr_total for b in stage.output_caps)
-    return 1.0 / g
+    # part values may be scalars or arrays over the rows (corner x draw): a bank without ESR
+    # gives 1/0 = inf in the sum, hence Rp = 0 row by row
+    with np.errstate(divide="ignore"):
+        g = 1.0 / r_load + sum(1.0 / np.asarray(b.esr_total, float) for b in stage.output_caps)
+        return np.zeros_like(r_load) + 1.0 / g
 
 
 def output_admittance(stage: Stage, r_load: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -145,25 +146,37 @@ def output_admittance(stage: Stage, r_load: np.ndarray) -> tuple[np.ndarray, np.
     Returns ascending coefficients ``(num, den)`` in s (rad/s): ``num`` is
     (corners, nb+1), ``den`` (1, nb+1), nb the number of banks.
     """
-    taus = [b.esr_total * b.c_total for b in stage.output_caps]
-    den = np.array([1.0])
+    # part values may be scalars or arrays over the rows: polynomials are (1 or rows, k)
+    taus = [np.atleast_1d(np.asarray(b.esr_total * b.c_total, float))[:, None] for b in stage.output_caps]
+
+    def times_linear(p, tau):  # p (1 + s tau), row by row
+        out = np.zeros(np.broadcast_shapes(p.shape[:-1], tau.shape[:-1]) + (p.shape[-1] + 1,))
+        out[:, :-1] += p
+        out[:, 1:] += p * tau
+        return out
+
+    den = np.ones((1, 1))
     for tau in taus:
-        den = np.convolve(den, [1.0, tau])
-    caps = np.zeros_like(den)
+        den = times_linear(den, tau)
+    caps = np.zeros((1, len(taus) + 1))
     for k, bank in enumerate(stage.output_caps):
-        term = np.array([0.0, bank.c_total])
+        c = np.atleast_1d(np.asarray(bank.c_total, float))[:, None]
+        term = np.concatenate([np.zeros_like(c), c], axis=1)
         for j, tau in enumerate(taus):
             if j != k:
-                term = np.convolve(term, [1.0, tau])
-        caps[: term.size] += term
-    num = den[None, :] / np.asarray(r_load, float)[:, None] + caps[None, :]
-    return num, den[None, :]
+                term = times_linear(term, tau)
+        caps = caps + np.pad(term, ((0, 0), (0, caps.shape[1] - term.shape[1])))
+    num = den / np.asarray(r_load, float)[:, None] + caps
+    return num, den
 
 
 def _bank_factors(stage: Stage, n: int) -> np.ndarray:
     """ESR-zero factors ``1 + s ESR C`` of every bank, (n, nb, 2)."""
-    f = np.array([[1.0, b.esr_total * b.c_total] for b in stage.output_caps], dtype=complex)
-    return np.broadcast_to(f, (n,) + f.shape)
+    f = np.zeros((n, len(stage.output_caps), 2), dtype=complex)
+    f[..., 0] = 1.0
+    for k, b in enumerate(stage.output_caps):  # a bank's values may be arrays over the rows
+        f[:, k, 1] = b.esr_total * b.c_total
+    return f
 
 
 def _over_char(gain: np.ndarray, num_factors: np.ndarray, char: np.ndarray) -> Rational:
