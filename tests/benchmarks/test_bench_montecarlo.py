@@ -107,7 +107,7 @@ def _scaling(study, sizes):
         n = rows // study.n_corners
         v = draw_values(study.quantities, n, np.random.default_rng(0))
         _, t = _timed(lambda v=v: row_margins(study.design, study.quantities, v, study.f_hz))
-        peak = _peak(lambda v=v: row_margins(study.design, study.quantities, v[: max(1, n // 10)], study.f_hz))
+        peak = _peak(lambda v=v, n=n: row_margins(study.design, study.quantities, v[: max(1, n // 10)], study.f_hz))
         out.append((rows, t, peak))
     return out
 
