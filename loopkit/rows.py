@@ -48,8 +48,9 @@ __all__ = [
 MEMORY_BUDGET_BYTES = 128 * 2**20
 
 #: Bytes one row takes per grid frequency while its loop is evaluated and its margins found
-#: (complex responses and phases of the plant, network and loop plus the margins' temporaries;
-#: measured with tracemalloc on the sample designs, rounded up).
+#: (complex responses and phases of the plant, network and loop plus the margins' temporaries).
+#: tracemalloc's peak over one chunk, December, 112-141 points: 125 B (voltage-mode buck), 157 B
+#: (inverting buck-boost), 224 B (peak current mode boost); rounded up with room to spare.
 BYTES_PER_ROW_POINT = 400
 
 _STAGE_KEYS = ("inductance", "dcr", "r_switch", "r_rectifier")

@@ -41,7 +41,7 @@ def test_cli_sweep_prints_the_library_values(tmp_path, capsys):
     d = load_design("sample_designs/buck_24v_3v3.toml")
     s = vin_sweep(d, design_loop(d), np.linspace(min(d.operating.vin), max(d.operating.vin), 30))
     k = s.load == d.operating.load[0]
-    assert f"{np.min(s.pm_deg[k]):.1f}" in printed.splitlines()[4]
+    assert f"{np.min(s.pm_deg[k]):.1f}" in printed.splitlines()[5]
     lines = out.read_text().splitlines()
     assert lines[0] == "vin_v,load_a,fc_hz,pm_deg,gm_db,stable" and len(lines) == 1 + 30 * len(d.operating.load)
     assert all(len(line) <= 80 for line in printed.splitlines())
