@@ -17,6 +17,7 @@ import numpy as np
 from . import bounds
 from .errors import DesignError
 from .eseries import SERIES_NAMES
+from .losses import Losses
 from .networks import NETWORKS
 from .units import format_value
 
@@ -442,6 +443,8 @@ class Design:
     compensator: Compensator = field(default_factory=Compensator)
     title: str = ""
     control: Control = field(default_factory=Control)
+    #: Loss figures beyond conduction (``[losses]``, :mod:`loopkit.losses`); all optional.
+    losses: Losses = field(default_factory=Losses)
 
     def __post_init__(self):
         vout = self.operating.vout
@@ -457,6 +460,7 @@ class Design:
         if vout < 0 and self.sensing.kind != "differential":
             raise DesignError("sensing.kind", self.sensing.kind, "a negative output needs differential sensing")
         self._check_where_fields_meet()
+        self.losses.check_stage(self.stage)
 
     def _check_where_fields_meet(self) -> None:
         """Consistency where fields meet: divider current and R1, turns ratio and duty.

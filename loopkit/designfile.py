@@ -75,6 +75,7 @@ from .design import (
 )
 from .errors import DesignError, DesignFileError, shorten
 from .eseries import is_capacitor, is_resistor
+from .losses import Losses, losses_from_table, losses_to_table
 from .networks import network_module
 from .networks.opto_type2 import OPTO_KEYS
 from .units import format_value, parse_value
@@ -217,6 +218,7 @@ def _list_or_range(table: dict, key: str, where: str, log: bool) -> tuple[float,
 def design_from_dict(data: dict) -> Design:
     """Validate a parsed TOML document and build the :class:`Design`."""
     top = {"format", "version", "title", "stage", "operating", "sensing", "modulator", "compensator", "control"}
+    top.add("losses")  # [losses]: loopkit.losses
     _check_keys(data, top, "")
     if data.get("format", FORMAT) != FORMAT:
         raise DesignError("format", data["format"], f"must be {FORMAT!r}")
@@ -291,7 +293,8 @@ def design_from_dict(data: dict) -> Design:
     title = data.get("title", "")
     if not isinstance(title, str):
         raise DesignError("title", title, "must be text")
-    return Design(stage, operating, sensing, modulator, compensator, title, control)
+    losses = losses_from_table(data.get("losses", {}))
+    return Design(stage, operating, sensing, modulator, compensator, title, control, losses)
 
 
 def _part_unit(designator: str) -> str | None:
@@ -587,6 +590,7 @@ def design_to_dict(design: Design, ranges: bool = True) -> dict:
         **({} if design.control == Control() else {"control": {
             f.name: getattr(design.control, f.name) for f in fields(Control)
             if getattr(design.control, f.name) is not None}}),
+        **({} if design.losses == Losses() else {"losses": losses_to_table(design.losses)}),
     }
 
 
@@ -632,7 +636,7 @@ def _dumps(data: dict) -> str:
     for key in ("format", "version", "title"):
         lines.append(f"{key} = {_toml_value(data[key])}")
     lines.append("")
-    for key in ("stage", "operating", "sensing", "modulator", "compensator", "control"):
+    for key in ("stage", "operating", "sensing", "modulator", "compensator", "control", "losses"):
         if key in data:
             table(key, data[key])
     return "\n".join(lines).rstrip() + "\n"
