@@ -53,19 +53,33 @@ flux (the triangular flux of a converter is not corrected for here).
 
 Operating point with these losses
 ---------------------------------
-The topology modules solve the duty from the averaged inductor loop, which
-is the input power balance with the conduction losses in it.  The other
-losses of the power path (overlap, Coss, recovery, dead time, core) enter
-the same balance as an extra input power Px: in CCM the module is run at the
-input voltage ``Vg - Px / Iin`` (Iin the mean current the power path draws),
-which adds exactly Px to the input power at the same output; in DCM, whose
-equations are the energy balance of each current pulse, at the load
-``Io + Px / |V|``.  A few fixed-point steps settle it (Px depends on the point).
-The inductor's ripple is then taken at the real input voltage.  The gate
-drive, the controller and the input capacitor's ESR take power from the input
-but not through the inductor: they lower the efficiency and not the duty.
-Neither does the ripple's own conduction loss (the ``dI^2/12`` terms), which
-the stage modules leave out of the duty.
+The topology modules solve the duty from the averaged inductor loop (CCM)
+or the energy balance of each current pulse (DCM), with the conduction
+losses in it.  Of the other losses only those the inductor's loop itself
+supplies change the duty:
+
+* the dead time: the body diode's drop replaces the rectifier's during the
+  two dead times, a drop on the switch node that the duty must make up (CCM
+  and DCM);
+* in DCM the core loss too: it takes part of the energy each pulse stores.
+
+Overlap, output capacitances, reverse recovery (the charge flows from the
+input through the switch into the rectifier), the gate drive and the
+controller draw their power from the input without changing the inductor's
+volt-second balance at the mid-transition duty: to first order they raise
+the input current, not the duty (Erickson & Maksimovic, 2nd ed., section
+4.6: the switching loss is supplied by the source during the transitions;
+from memory).  Neither does the core loss in CCM (its current averages to
+zero over the volt-second balanced period), nor the ripple's own conduction
+loss (the ``dI^2/12`` terms, left out of the duty by the stage modules too).
+
+The duty-changing loss Px enters the power balance the stage modules solve:
+in CCM the module runs at the input voltage ``Vg - Px / Iin`` (Iin the mean
+current the power path draws), which is a drop of ``Px / I`` in the inductor
+loop over the whole period and adds exactly Px to the input power at the
+same output; in DCM at the load ``Io + Px / |V|``.  A few fixed-point steps
+settle it (Px depends on the point).  The inductor's ripple is then taken at
+the real input voltage.
 """
 
 from __future__ import annotations
@@ -88,7 +102,7 @@ __all__ = [
     "losses_operating_inputs",
 ]
 
-#: Fixed-point steps of the operating point with the power path's losses (each step moves
+#: Fixed-point steps of the operating point with the duty-changing losses (each step moves
 #: the duty by about the losses' share of the power times the previous step's error).
 FEEDBACK_ITERATIONS = 6
 
@@ -110,8 +124,9 @@ LOSS_FIELDS = (
     "quiescent_w",
 )
 
-#: Terms that the power path carries (they feed back into the duty).
-PATH_FIELDS = ("overlap_w", "coss_w", "recovery_w", "dead_time_w", "core_w")
+#: Terms that change the duty (see the module notes): in CCM, and in DCM.
+DUTY_FIELDS_CCM = ("dead_time_w",)
+DUTY_FIELDS_DCM = ("dead_time_w", "core_w")
 
 
 @dataclass(frozen=True)
@@ -380,7 +395,7 @@ def _input_current(p: CornerPoint) -> np.ndarray:
 
 
 def corner_points(design, vin, load, parts=None) -> tuple[CornerPoint, dict[str, np.ndarray]]:
-    """Operating points with the power path's losses fed back, and every loss term.
+    """Operating points with the duty-changing losses fed back, and every loss term.
 
     Parameters
     ----------
@@ -412,7 +427,7 @@ def _solve(design, vin, load, parts=None):
         return p, terms, vin_op, load_op
     v = abs(design.operating.vout)
     for _ in range(FEEDBACK_ITERATIONS):
-        px = sum(terms[k] for k in PATH_FIELDS)
+        px = _duty_losses(p, terms)
         with np.errstate(invalid="ignore", divide="ignore"):
             vin_op = np.where(p.dcm, vin, vin - px / _input_current(p))
         load_op = np.where(p.dcm, load + px / v, load)
@@ -422,16 +437,22 @@ def _solve(design, vin, load, parts=None):
     return p, terms, vin_op, load_op
 
 
+def _duty_losses(p: CornerPoint, terms) -> np.ndarray:
+    """The losses that change the duty at each corner, W."""
+    ccm = sum(terms[k] for k in DUTY_FIELDS_CCM)
+    dcm = sum(terms[k] for k in DUTY_FIELDS_DCM)
+    return np.where(p.dcm, dcm, ccm)
+
+
 def _feeds_back(design) -> bool:
     lo = design.losses
-    return any(x is not None for x in (lo.transition_times(), lo.coss_switch_f, lo.coss_rectifier_f,
-                                        lo.recovery_charge_c, lo.dead_time_s, lo.core_k))
+    return lo.dead_time_s is not None or lo.core_k is not None
 
 
 def losses_operating_inputs(design, vin, load) -> tuple[np.ndarray, np.ndarray]:
     """(input voltage, load) at which the topology modules run each corner so that the duty carries
-    the power path's losses (CCM: ``Vg - Px/Iin``; DCM: ``Io + Px/|V|``); the corners' own values
-    when ``[losses]`` gives none of those figures.  :func:`loopkit.powerstage.analyse_stage` uses it,
+    the losses that change it (CCM: ``Vg - Px/Iin``; DCM: ``Io + Px/|V|``); the corners' own values
+    when ``[losses]`` gives none of those figures (dead time, core).  :func:`loopkit.powerstage.analyse_stage` uses it,
     so its duty is the one :func:`corner_points` reports.
     """
     vin, load = np.asarray(vin, float), np.asarray(load, float)

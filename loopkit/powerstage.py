@@ -250,7 +250,7 @@ def analyse_stage(design: Design) -> StageResult:
     submode = np.full(n, "", dtype=object)
     parts_vd, parts_vg, parts_zo, order = [], [], [], []
     findings: list[Finding] = []
-    # [losses]: the power path's switching and core losses in the duty (loopkit.loss_model)
+    # [losses]: the losses that change the duty (dead time; core in DCM), see loopkit.loss_model
     vin_op, load_op = losses_operating_inputs(design, vin, load)
     for idx, st, module, label in groups(stage, vin, load, vout):
         submode[idx] = label
