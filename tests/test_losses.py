@@ -47,8 +47,8 @@ from loopkit.cli import main
 from loopkit.designfile import dumps_design, loads_design
 from loopkit.efficiency import efficiency, efficiency_curves, mode_efficiency
 from loopkit.errors import DesignError, DesignFileError
-from loopkit.losses import Losses
 from loopkit.loss_model import steinmetz_w
+from loopkit.losses import Losses
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLES = ROOT / "sample_designs"
@@ -95,8 +95,8 @@ def test_conduction_losses_match_switching_power_balance(name, k, mode):
 
 
 # ------------------------------------------------------------------ switching losses (Erickson 4.6)
-LOSS_FIGURES = dict(turn_on_s=10e-9, turn_off_s=6e-9, coss_switch_f=300e-12, coss_rectifier_f=500e-12,
-                    recovery_charge_c=20e-9, gate_charge_c=8e-9, gate_voltage_v=5.0)
+LOSS_FIGURES = {"turn_on_s": 10e-9, "turn_off_s": 6e-9, "coss_switch_f": 300e-12, "coss_rectifier_f": 500e-12,
+                    "recovery_charge_c": 20e-9, "gate_charge_c": 8e-9, "gate_voltage_v": 5.0}
 
 
 @pytest.mark.parametrize("name", ["buck_24v_3v3", "buck_diode_12v_5v", "boost_liion_5v", "inverting_minus15v",
@@ -163,7 +163,7 @@ def test_steinmetz_formula_values():
 
 
 def test_core_loss_from_the_ripple_flux():
-    core = dict(core_k=4.0, core_alpha=1.4, core_beta=2.6, core_volume_m3=0.5e-6, core_area_m2=15e-6, core_turns=8)
+    core = {"core_k": 4.0, "core_alpha": 1.4, "core_beta": 2.6, "core_volume_m3": 0.5e-6, "core_area_m2": 15e-6, "core_turns": 8}
     design = _design("buck_24v_3v3", **core)
     stage = loopkit.analyse_stage(design)
     eff = efficiency(design, stage)
@@ -175,7 +175,7 @@ def test_core_loss_from_the_ripple_flux():
 
 def test_core_loss_raises_the_dcm_duty_by_the_energy_balance():
     """DCM (diode buck at light load): each pulse must also store the core's loss."""
-    core = dict(core_k=4.0, core_alpha=1.4, core_beta=2.6, core_volume_m3=2e-6, core_area_m2=15e-6, core_turns=6)
+    core = {"core_k": 4.0, "core_alpha": 1.4, "core_beta": 2.6, "core_volume_m3": 2e-6, "core_area_m2": 15e-6, "core_turns": 6}
     base = loopkit.analyse_stage(_design("buck_diode_12v_5v"))
     design = _design("buck_diode_12v_5v", **core)
     stage = loopkit.analyse_stage(design)
