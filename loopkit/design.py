@@ -460,7 +460,6 @@ class Design:
         if vout < 0 and self.sensing.kind != "differential":
             raise DesignError("sensing.kind", self.sensing.kind, "a negative output needs differential sensing")
         self._check_where_fields_meet()
-        self.losses.check_stage(self.stage)
 
     def _check_where_fields_meet(self) -> None:
         """Consistency where fields meet: divider current and R1, turns ratio and duty.

@@ -149,6 +149,8 @@ def _omitted(design) -> tuple[str, ...]:
             if names == ("dead_time_s",) and not st.synchronous:
                 continue
             out.append(text)
+    if lo.dead_time_s is not None and not st.synchronous:
+        out.append("dead time: given, but the rectifier is a diode (not counted)")
     return tuple(out)
 
 

@@ -352,7 +352,7 @@ def loss_terms(design, p: CornerPoint) -> dict[str, np.ndarray]:
             out["coss_w"] += 0.5 * (c_sw * v_leg**2 + c_r * (v_leg / nt) ** 2) * f
         if lo.recovery_charge_c is not None:
             out["recovery_w"] += np.where(ccm_on, lo.recovery_charge_c * v_leg / nt * f, 0.0)
-        if lo.dead_time_s is not None:
+        if lo.dead_time_s is not None and st.synchronous:
             edges = np.abs(p.i_peak) + np.where(p.dcm, 0.0, np.abs(i_valley))
             out["dead_time_w"] += np.where(active, lo.body_diode_v * lo.dead_time_s * nt * edges * f, 0.0)
         if lo.gate_charge_c is not None:
@@ -446,7 +446,7 @@ def _duty_losses(p: CornerPoint, terms) -> np.ndarray:
 
 def _feeds_back(design) -> bool:
     lo = design.losses
-    return lo.dead_time_s is not None or lo.core_k is not None
+    return (lo.dead_time_s is not None and design.stage.synchronous) or lo.core_k is not None
 
 
 def losses_operating_inputs(design, vin, load) -> tuple[np.ndarray, np.ndarray]:

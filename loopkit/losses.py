@@ -30,8 +30,10 @@ corner needs beyond them (:mod:`loopkit.efficiency` turns them into watts)::
 A figure left out counts as zero and the efficiency report says which ones it
 omits.  Groups must be complete: the two overlap times together (or the
 switching charge with the gate current, not both), the gate charge with its
-voltage, the dead time with the body-diode drop (synchronous rectifiers
-only), and all six core figures.  The Steinmetz coefficients are the user's
+voltage, the dead time with the body-diode drop, and all six core figures.
+The dead time applies to a synchronous rectifier only: with a diode it is
+not counted (the efficiency report says so), so switching a design's
+rectifier keeps it valid.  The Steinmetz coefficients are the user's
 own fit to a datasheet's loss curves; loopkit ships no vendor data.
 
 Ranges are in :data:`loopkit.bounds.BOUNDS` (``losses.*``).
@@ -164,13 +166,6 @@ class Losses:
             t = self.switching_charge_c / self.gate_current_a
             return t, t
         return None
-
-    def check_stage(self, stage) -> None:
-        """Refuse figures that do not apply to the stage (dead time with a diode rectifier)."""
-        if self.dead_time_s is not None and not stage.synchronous:
-            raise DesignError("losses.dead_time", self.dead_time_s,
-                              "applies to a synchronous rectifier only (this stage has a diode rectifier)")
-
 
 def losses_from_table(table: dict, where: str = "losses") -> Losses:
     """Build :class:`Losses` from the ``[losses]`` TOML table (numbers or engineering text).

@@ -79,7 +79,7 @@ NGSPICE_CASES = [
 @pytest.mark.ngspice
 @pytest.mark.parametrize(("name", "k", "mode"), NGSPICE_CASES)
 def test_conduction_losses_match_switching_power_balance(name, k, mode):
-    from tests.reference.switching import simulate
+    from reference.switching import simulate  # tests/ is on sys.path (pytest rootdir conftest)
 
     design = _design(name)  # conduction only: the simulated circuit has no switching losses
     stage = loopkit.analyse_stage(design)
@@ -277,12 +277,13 @@ def test_bad_losses_refused_with_field_value_and_allowed(table, field, allowed):
     assert str(err).startswith("x.toml: " + field + " = ")
 
 
-def test_dead_time_refused_for_a_diode_rectifier():
-    with pytest.raises(DesignFileError) as info:
-        loads_design(DIODE + "\n[losses]\ndead_time = \"20n\"\nbody_diode_drop = \"0.7\"\n", "d.toml")
-    assert info.value.field == "losses.dead_time"
-    assert "synchronous rectifier only" in info.value.allowed
-    assert "20n" in str(info.value)
+def test_dead_time_not_counted_with_a_diode_rectifier():
+    """A diode rectifier has no dead time: given, it is not counted and the report says so."""
+    design = loads_design(DIODE + "\n[losses]\ndead_time = \"20n\"\nbody_diode_drop = \"0.7\"\n", "d.toml")
+    eff = efficiency(design)
+    assert np.all(eff.dead_time_w == 0)
+    assert any("diode (not counted)" in o for o in eff.omitted)
+    assert_allclose(eff.duty, loopkit.analyse_stage(_design("buck_diode_12v_5v")).duty, rtol=1e-12)
 
 
 def test_losses_not_a_table():
