@@ -179,6 +179,27 @@ BOUNDS: dict[str, Bound] = {
     "compensator.parts.R*": _R_PART,
     "compensator.parts.C*": _C_PART,
     "compensator.placement.*": _F_PLACE,
+    # --- [losses] (loopkit.losses; every figure optional)
+    "losses.turn_on_time": Bound(10e-12, 10e-6, "s", "overlap times: GaN switches in picoseconds to slow IGBTs"),
+    "losses.turn_off_time": Bound(10e-12, 10e-6, "s", "as turn_on_time"),
+    "losses.switching_charge": Bound(10e-12, 10e-6, "C", "gate charge over the plateau: small GaN to large IGBTs"),
+    "losses.gate_current": Bound(1e-3, 100.0, "A", "gate drivers source and sink milliamps to tens of amps"),
+    "losses.gate_charge": Bound(10e-12, 100e-6, "C", "total gate charge: small GaN to paralleled IGBT modules"),
+    "losses.gate_voltage": Bound(1.0, 30.0, "V", "gate drives are 5 V to 20 V"),
+    "losses.coss_switch": Bound(0.0, 1e-6, "F", "switch output capacitance: picofarads to nanofarads", zero="none"),
+    "losses.coss_rectifier": Bound(0.0, 1e-6, "F", "as coss_switch", zero="none"),
+    "losses.recovery_charge": Bound(0.0, 100e-6, "C", "Schottky diodes have none; slow rectifiers microcoulombs",
+                                    zero="none"),
+    "losses.dead_time": Bound(0.0, 10e-6, "s", "dead times are nanoseconds to a microsecond", zero="none"),
+    "losses.body_diode_drop": Bound(0.0, 10.0, "V", "body diodes drop 0.5 V to 3 V (GaN reverse conduction)"),
+    "losses.core_k": Bound(1e-9, 1e9, "", "Steinmetz k in SI (W/m^3, Hz, T): spans many decades with alpha, beta"),
+    "losses.core_alpha": Bound(0.5, 4.0, "", "Steinmetz frequency exponent, typically 1 to 2"),
+    "losses.core_beta": Bound(1.0, 5.0, "", "Steinmetz flux exponent, typically 2 to 3"),
+    "losses.core_volume": Bound(1e-12, 1e-2, "", "effective core volume, m^3: 1 mm^3 chip cores to 10 dm^3"),
+    "losses.core_area": Bound(1e-9, 1e-1, "", "effective core cross-section, m^2: 1 mm^2 to 0.1 m^2"),
+    "losses.core_turns": Bound(1, 10000, "", "turns of the winding that has stage.inductance"),
+    "losses.input_esr": Bound(0.0, 100.0, "Ω", "as an output bank's ESR", zero="ideal"),
+    "losses.quiescent_power": Bound(0.0, 1e3, "W", "controllers draw microwatts to watts", zero="none"),
 }
 
 

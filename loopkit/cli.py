@@ -10,6 +10,7 @@ Subcommands::
     loopkit step FILE --load 0.5:3 [--rise 1u] [--vin-step 18:24] [--ref-step 1%] [--band 1%] [--csv OUT]
     loopkit sweep FILE [--points 400] [--csv OUT]
     loopkit tolerance FILE [--draws 1000] [--random-state 0] [--workers 2] [--worst-case] [--csv OUT] [--json OUT]
+    loopkit efficiency FILE [--csv OUT] [--json] [--points 25] [--load-min A]
     loopkit gui [FILE]
 
 Every command calls the same library path as the app and the tests
@@ -1066,6 +1067,10 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("gui", help="open the desktop app")
     p.add_argument("file", metavar="FILE", nargs="?", help="design file to open")
     p.set_defaults(run=_cmd_gui)
+
+    from .cli_efficiency import add_efficiency_command  # loopkit efficiency (its own module)
+
+    add_efficiency_command(sub)
     return parser
 
 

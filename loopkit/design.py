@@ -17,6 +17,7 @@ import numpy as np
 from . import bounds
 from .errors import DesignError
 from .eseries import SERIES_NAMES
+from .losses import Losses
 from .networks import NETWORKS
 from .tolerances import Tolerances
 from .units import format_value
@@ -444,6 +445,8 @@ class Design:
     title: str = ""
     control: Control = field(default_factory=Control)
     tolerances: Tolerances = field(default_factory=Tolerances)
+    #: Loss figures beyond conduction (``[losses]``, :mod:`loopkit.losses`); all optional.
+    losses: Losses = field(default_factory=Losses)
 
     def __post_init__(self):
         vout = self.operating.vout

@@ -75,6 +75,7 @@ from .design import (
 )
 from .errors import DesignError, DesignFileError, shorten
 from .eseries import is_capacitor, is_resistor
+from .losses import Losses, losses_from_table, losses_to_table
 from .networks import network_module
 from .networks.opto_type2 import OPTO_KEYS
 from .tolerances import Tolerances, parse_tolerances, tolerances_to_dict, tolerances_toml
@@ -219,6 +220,7 @@ def design_from_dict(data: dict) -> Design:
     """Validate a parsed TOML document and build the :class:`Design`."""
     top = {"format", "version", "title", "stage", "operating", "sensing", "modulator", "compensator", "control",
            "tolerances"}
+    top.add("losses")  # [losses]: loopkit.losses
     _check_keys(data, top, "")
     if data.get("format", FORMAT) != FORMAT:
         raise DesignError("format", data["format"], f"must be {FORMAT!r}")
@@ -294,7 +296,8 @@ def design_from_dict(data: dict) -> Design:
     if not isinstance(title, str):
         raise DesignError("title", title, "must be text")
     tol = parse_tolerances(data.get("tolerances", {}), len(banks))  # [tolerances]: loopkit.tolerances
-    return Design(stage, operating, sensing, modulator, compensator, title, control, tol)
+    losses = losses_from_table(data.get("losses", {}))
+    return Design(stage, operating, sensing, modulator, compensator, title, control, tolerances=tol, losses=losses)
 
 
 def _part_unit(designator: str) -> str | None:
@@ -591,6 +594,7 @@ def design_to_dict(design: Design, ranges: bool = True) -> dict:
             f.name: getattr(design.control, f.name) for f in fields(Control)
             if getattr(design.control, f.name) is not None}}),
         **({} if design.tolerances == Tolerances() else {"tolerances": tolerances_to_dict(design.tolerances)}),
+        **({} if design.losses == Losses() else {"losses": losses_to_table(design.losses)}),
     }
 
 
@@ -636,7 +640,7 @@ def _dumps(data: dict) -> str:
     for key in ("format", "version", "title"):
         lines.append(f"{key} = {_toml_value(data[key])}")
     lines.append("")
-    for key in ("stage", "operating", "sensing", "modulator", "compensator", "control"):
+    for key in ("stage", "operating", "sensing", "modulator", "compensator", "control", "losses"):
         if key in data:
             table(key, data[key])
     if "tolerances" in data:

@@ -18,6 +18,7 @@ import numpy as np
 
 from .design import Design
 from .errors import DesignError, Finding
+from .loss_model import ccm_point, losses_operating_inputs
 from .rational import TWO_PI, Rational
 from .stages import groups, topology_module
 from .stages.base import (
@@ -285,9 +286,11 @@ def analyse_stage(design: Design, findings: bool = True) -> StageResult:
     parts_vd, parts_vg, parts_zo, order = [], [], [], []
     want_findings = findings
     findings: list[Finding] = []
+    # [losses]: the losses that change the duty (dead time; core in DCM), see loopkit.loss_model
+    vin_op, load_op = losses_operating_inputs(design, vin, load)
     for idx, st, module, label in groups(stage, vin, load, vout):
         submode[idx] = label
-        cp = module.ccm(st, vin[idx], load[idx], vout)
+        cp = ccm_point(module, st, vin[idx], vin_op[idx], load[idx], vout)
         if np.any(~np.isfinite(cp.duty) | (cp.duty >= 1.0) | (cp.duty <= 0.0)):
             k = idx[np.nonzero(~np.isfinite(cp.duty) | (cp.duty >= 1.0) | (cp.duty <= 0.0))[0][0]]
             raise DesignError(
@@ -324,7 +327,7 @@ def analyse_stage(design: Design, findings: bool = True) -> StageResult:
             k = idx[dcm_idx]
             st = _rows_of(full, k)
             with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-                dp = module.dcm(st, vin[k], load[k], vout)
+                dp = module.dcm(st, vin[k], load_op[k], vout)
             _check_dcm_point(design, dp, vin[k], load[k])
             with _numerics(design, vin[k], load[k], "DCM"):
                 gvd, gvg, zo = dcm_transfer_functions(st, dp, r_load[k])

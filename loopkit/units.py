@@ -23,7 +23,7 @@ PREFIXES = {
 # Unit words accepted after the number/prefix (lower case) and the unit each means.
 _UNIT_WORDS = {
     "ohm": "ohm", "ohms": "ohm", "ω": "ohm", "\u2126": "ohm", "r": "ohm", "hz": "hz", "h": "h", "f": "f",
-    "v": "v", "a": "a", "s": "s", "w": "w", "%": "%", "deg": "deg", "db": "db",
+    "v": "v", "a": "a", "s": "s", "w": "w", "c": "c", "%": "%", "deg": "deg", "db": "db",
 }
 
 _NUMBER = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"

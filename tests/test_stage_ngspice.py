@@ -91,6 +91,7 @@ import pytest
 from reference import switching  # tests/ is on sys.path (pytest rootdir conftest)
 
 import loopkit
+from loopkit.losses import Losses
 
 pytestmark = pytest.mark.ngspice
 
@@ -107,11 +108,12 @@ def _diode_buck():
     """
     d = loopkit.load_design(SAMPLES / "buck_24v_3v3.toml")
     st = dataclasses.replace(d.stage, rectifier="diode", diode_drop=0.45, r_rectifier=0.02, light_load="")
-    return dataclasses.replace(d, stage=st)
+    return dataclasses.replace(d, stage=st, losses=Losses())
 
 
 def _sample(name):
-    return lambda: loopkit.load_design(SAMPLES / f"{name}.toml")
+    # the simulated circuit has no dead time and no core loss: the stage without [losses]
+    return lambda: dataclasses.replace(loopkit.load_design(SAMPLES / f"{name}.toml"), losses=Losses())
 
 
 # (case id, design, vin, load, expected mode, four-switch mode or None)
