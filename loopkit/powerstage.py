@@ -20,17 +20,14 @@ from .design import Design
 from .errors import DesignError, Finding
 from .loss_model import ccm_point, losses_operating_inputs
 from .rational import TWO_PI, Rational
-from .stages import groups, topology_module
+from .stages import dcm_full, groups, topology_module
 from .stages.base import (
     ccm_gid,
     ccm_gig_gii,
     ccm_slopes,
     ccm_transfer_functions,
-    dcm_gid,
-    dcm_gig_gii,
     dcm_slopes,
     dcm_transfer_functions,
-    hf_pole_hz,
 )
 from .units import format_value
 
@@ -61,11 +58,13 @@ class StageResult:
     f0_hz, q : ndarray
         Double-pole frequency and quality factor (CCM; NaN in DCM).
     fp_hz, f_hf_hz : ndarray
-        DCM: dominant output pole and high-frequency pole (NaN in CCM).
+        DCM: dominant output pole and high-frequency pole (NaN in CCM), the
+        poles of the full-order model (:mod:`loopkit.stages.dcm_full`).
     f_esr_hz : ndarray (corners, banks)
         ESR zero of each capacitor bank (NaN where ESR = 0).
     f_rhp_hz : ndarray
-        Right-half-plane zero of Gvd (NaN where there is none).
+        Right-half-plane zero of Gvd (NaN where there is none; in DCM the
+        boost-type stages' zero at fsw/(pi D)).
     gvd, gvg, zout : Rational
         Control-to-output, line-to-output and output impedance (load included).
     findings : tuple of Finding
@@ -73,7 +72,7 @@ class StageResult:
         Control-to-inductor-current (vg = 0), A per unit duty (flyback: the
         magnetising current seen from the primary, which the primary switch
         carries while on).  CCM from the averaged equations; DCM from the
-        reduced-order model (see :func:`loopkit.stages.base.dcm_gid`).
+        full-order model (see :mod:`loopkit.stages.dcm_full`).
     gig, gii : Rational
         Line-to-inductor-current (A/V) and output-current-injection-to-inductor-
         current (A/A), d = 0: what current mode needs for its closed-loop
@@ -88,6 +87,12 @@ class StageResult:
         current-mode control are made of.
     fsw_hz : float
         Switching frequency (:attr:`ts_s` is its period).
+    zout_static : Rational
+        DCM corners: the output impedance of the reduced-order averaged switch
+        model (Erickson & Maksimovic, 2nd ed., ch. 11), ``1/(Y_o + 1/r2)``, whose
+        switch-network conductance 1/r2 has no inductor lag: the plant the
+        current-programmed DCM model builds on (the inductor holds no energy
+        from one period to the next).  CCM corners: ``zout``.
     """
 
     vin: np.ndarray
@@ -118,6 +123,7 @@ class StageResult:
     sf_a_per_s: np.ndarray
     slope_sensitivity_per_h: np.ndarray
     fsw_hz: float
+    zout_static: Rational | None = None
 
     @property
     def n_corners(self) -> int:
@@ -254,7 +260,8 @@ def analyse_stage(design: Design, findings: bool = True) -> StageResult:
     A corner is in DCM when the stage may run so (``stage.light_load = "dcm"``)
     and half the CCM ripple exceeds the average inductor current, which is the
     condition K < Kcrit of Erickson & Maksimovic ch. 5 written with losses.
-    DCM corners use the DCM model, never the CCM one.
+    DCM corners use the full-order DCM model of Sun et al. (2001)
+    (:mod:`loopkit.stages.dcm_full`), never the CCM one.
     """
     stage, op = design.stage, design.operating
     vin, load = op.corners()
@@ -285,6 +292,7 @@ def analyse_stage(design: Design, findings: bool = True) -> StageResult:
     submode = np.full(n, "", dtype=object)
     parts_vd, parts_vg, parts_zo, order = [], [], [], []
     want_findings = findings
+    parts_zs = []
     findings: list[Finding] = []
     # [losses]: the losses that change the duty (dead time; core in DCM), see loopkit.loss_model
     vin_op, load_op = losses_operating_inputs(design, vin, load)
@@ -318,6 +326,7 @@ def analyse_stage(design: Design, findings: bool = True) -> StageResult:
                 rhp = -(sel.b_i * sel.e + sel.b_d * sel.r_series) / (sel.b_d * sel.l_h) / TWO_PI
                 out["f_rhp_hz"][k] = np.where((sel.b_d != 0) & (rhp > 0), rhp, np.nan)
             parts_vd.append(gvd), parts_vg.append(gvg), parts_zo.append(zo), order.append(k)
+            parts_zs.append(zo)
             parts_id.append(ccm_gid(st, sel, r_load[idx][ccm_idx]))
             gig, gii = ccm_gig_gii(st, sel, r_load[idx][ccm_idx])
             parts_ig.append(gig), parts_ii.append(gii)
@@ -329,23 +338,25 @@ def analyse_stage(design: Design, findings: bool = True) -> StageResult:
             with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
                 dp = module.dcm(st, vin[k], load_op[k], vout)
             _check_dcm_point(design, dp, vin[k], load[k])
+            sens[k] = _slope_sensitivity(module, st)
             with _numerics(design, vin[k], load[k], "DCM"):
-                gvd, gvg, zo = dcm_transfer_functions(st, dp, r_load[k])
+                gvd, gvg, zo = dcm_full.transfer_functions(st, dp, r_load[k], sens[k])
+                gid, gig, gii = dcm_full.current_transfer_functions(st, dp, r_load[k], sens[k])
+                zo_static = dcm_transfer_functions(st, dp, r_load[k])[2]
             out["duty"][k] = dp.duty
             out["i_l"][k] = dp.i_peak * (dp.duty + dp.d2) / 2.0
             out["ripple_pp"][k] = dp.i_peak
             out["i_peak"][k] = dp.i_peak
-            out["f_hf_hz"][k] = hf_pole_hz(st, dp)
+            out["f_hf_hz"][k] = dcm_full.hf_pole_hz(gvd, dp, st.fsw)
+            out["f_rhp_hz"][k] = dcm_full.rhp_zero_hz(gvd)
             poles = zo.poles_hz()
             finite = np.where(np.isfinite(poles), np.abs(poles), np.inf)
             out["fp_hz"][k] = np.min(finite, axis=1)
             dcm_mask[k] = True
             parts_vd.append(gvd), parts_vg.append(gvg), parts_zo.append(zo), order.append(k)
+            parts_zs.append(zo_static)
             out["sn"][k], out["sf"][k] = dcm_slopes(dp, st.fsw)
-            sens[k] = _slope_sensitivity(module, st)
-            parts_id.append(dcm_gid(st, dp, gvd, sens[k], out["i_l"][k]))
-            gig, gii = dcm_gig_gii(st, dp, gvg, zo, sens[k], out["i_l"][k])
-            parts_ig.append(gig), parts_ii.append(gii)
+            parts_id.append(gid), parts_ig.append(gig), parts_ii.append(gii)
     order_all = np.concatenate(order)
     gvd = Rational.stack(parts_vd, order_all)
     gvg = Rational.stack(parts_vg, order_all)
@@ -384,6 +395,7 @@ def analyse_stage(design: Design, findings: bool = True) -> StageResult:
         sf_a_per_s=out["sf"],
         slope_sensitivity_per_h=sens,
         fsw_hz=float(stage.fsw),
+        zout_static=Rational.stack(parts_zs, order_all),
     )
 
 

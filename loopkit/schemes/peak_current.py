@@ -71,7 +71,8 @@ and into the stage's reduced-order averaged switch model (``i2 = j2 d + g2 vg
 
     vo/vc = k1 Zout / (1 + k2 Zout),  k1 = sign j2 D/(mc Ri Ipk),  k2 = sign j2 D sn_v/(mc sn)
 
-``Zout = 1/(Y_o + 1/r2)`` is the stage's DCM output impedance.  Only the buck
+``Zout = 1/(Y_o + 1/r2)`` is the stage's DCM output impedance of that reduced-order
+model (``StageResult.zout_static``; voltage mode uses the full-order model).  Only the buck
 (and the four-switch stage in buck mode) has ``sn_v != 0``: without ramp its
 switch network's output conductance is negative above M = 1/2, and above
 M = 2/3 it outweighs the load's 1/R, so the model has a right-half-plane pole
@@ -246,8 +247,8 @@ def control_to_output(
 
 
 def _dcm_control_to_output(stage: StageResult, ri: float, se: np.ndarray, idx: np.ndarray) -> Rational:
-    zout, gvd = stage.zout.take(idx), stage.gvd.take(idx)
-    sign_j2 = gvd.dc_gain() / zout.dc_gain()  # the DCM Gvd is sign j2 Zout times the HF pole (dc gain 1)
+    zout, gvd = stage.zout_static.take(idx), stage.gvd.take(idx)
+    sign_j2 = gvd.dc_gain() / zout.dc_gain()  # at dc the DCM Gvd is sign j2 times Zout
     d, ipk, sn = stage.duty[idx], stage.i_peak[idx], stage.sn_a_per_s[idx]
     sn_v = stage.slope_sensitivity_per_h[idx, 0, 1]
     mc = 1.0 + se[idx] / (ri * sn)
@@ -259,7 +260,7 @@ def _dcm_control_to_output(stage: StageResult, ri: float, se: np.ndarray, idx: n
     # turn-off: at low frequency a delay of (D + D2) Ts / 2 (charge-packet analysis of the DCM period, derived
     # in tests/test_pcm_ngspice.py and checked there against ngspice).  Buck-type stages feed the output
     # through the whole triangle; no delay is added for them.
-    d2 = 2.0 * stage.fsw_hz / (TWO_PI * stage.f_hf_hz[idx])
+    d2 = stage.i_peak[idx] * stage.fsw_hz / stage.sf_a_per_s[idx]  # the fall lasts D2 Ts
     delay = np.where(sn_v == 0, 0.5 * (d + d2) * stage.ts_s, 0.0)
     return out * _delay_pade(delay)
 
@@ -308,7 +309,7 @@ def _closed_current_loop(stage, sense_gain_ohm, slope_v_per_s, sampling, which):
         parts.append(_dcm_control_to_output(stage, ri, se, dcm))
         order.append(dcm)
     elif dcm.size:
-        zout, gvd, gvg = stage.zout.take(dcm), stage.gvd.take(dcm), stage.gvg.take(dcm)
+        zout, gvd, gvg = stage.zout_static.take(dcm), stage.gvd.take(dcm), stage.gvg.take(dcm)
         sign_j2 = gvd.dc_gain() / zout.dc_gain()
         sign_g2 = gvg.dc_gain() / zout.dc_gain()
         d, sn = stage.duty[dcm], stage.sn_a_per_s[dcm]

@@ -100,7 +100,11 @@ class DcmPoint:
 
     ``sign`` is -1 for an inverting output (the switch network's current leaves
     the output node).  ``d2`` is the rectifier conduction interval as a fraction
-    of the period; ``i_peak`` the inductor peak current.
+    of the period; ``i_peak`` the inductor peak current.  ``turns`` is the
+    output current per inductor current while the rectifier conducts (the
+    flyback's n), ``fed_while_on`` True where the inductor feeds the output in
+    both intervals (buck-type); both used by the full-order model
+    (:mod:`.dcm_full`).
     """
 
     duty: np.ndarray
@@ -110,6 +114,8 @@ class DcmPoint:
     g2: np.ndarray
     r2: np.ndarray
     sign: float
+    turns: float = 1.0
+    fed_while_on: bool = False
 
 
 def solve_quadratic_dprime(a: np.ndarray, b: np.ndarray, c: np.ndarray) -> np.ndarray:
@@ -207,7 +213,11 @@ def ccm_transfer_functions(stage: Stage, op: CcmPoint, r_load: np.ndarray) -> tu
 
 
 def dcm_transfer_functions(stage: Stage, op: DcmPoint, r_load: np.ndarray) -> tuple[Rational, Rational, Rational]:
-    """Gvd, Gvg and Zout of DCM corners (averaged switch model plus HF pole)."""
+    """Gvd, Gvg and Zout of DCM corners, reduced order (averaged switch model plus HF pole).
+
+    Kept for comparison only: :func:`loopkit.powerstage.analyse_stage` uses the
+    full-order model of :mod:`.dcm_full`, whose low-frequency limit this is.
+    """
     n = op.duty.shape[0]
     ny, dy = output_admittance(stage, r_load)
     char = ny + dy / op.r2[:, None]

@@ -86,6 +86,7 @@ def dcm(stage: Stage, vin, load, vout: float) -> DcmPoint:
         g2=(2.0 * vg1 - v1) / (re * v1),
         r2=re * (v1 / vg1) ** 2,
         sign=1.0,
+        fed_while_on=True,
     )
 
 

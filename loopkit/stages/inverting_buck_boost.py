@@ -87,6 +87,7 @@ def energy_dcm(vg, v1, io, lh, ts, r_on, r_off, turns=1.0, r_pulse=0.0) -> DcmPo
         g2=2.0 * a / (re * b),
         r2=re * (b / a) ** 2,
         sign=1.0,
+        turns=turns,
     )
 
 
