@@ -64,7 +64,7 @@ class StageResult:
         ESR zero of each capacitor bank (NaN where ESR = 0).
     f_rhp_hz : ndarray
         Right-half-plane zero of Gvd (NaN where there is none; in DCM the
-        boost-type stages' zero at fsw/(pi D)).
+        boost-type stages' zero derived in :mod:`loopkit.stages.dcm_full`).
     gvd, gvg, zout : Rational
         Control-to-output, line-to-output and output impedance (load included).
     findings : tuple of Finding
