@@ -59,7 +59,7 @@ def test_low_frequency_limit_is_the_reduced_order_model(row):
     design = _lossy_design(row)
     res = analyse_stage(design)
     assert res.dcm[0]
-    (_idx, st, module, _label), = groups(design.stage, res.vin, res.load, design.operating.vout)
+    ((_idx, st, module, _label),) = groups(design.stage, res.vin, res.load, design.operating.vout)
     dp = module.dcm(st, res.vin, res.load, design.operating.vout)
     r_par = 1.0 / (1.0 / row[3] + 1.0 / dp.r2[0])
     assert res.gvd.dc_gain()[0] == pytest.approx(dp.sign * dp.j2[0] * r_par, rel=1e-6)
