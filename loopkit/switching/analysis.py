@@ -29,8 +29,18 @@ from ..errors import DesignError
 from .engine import Record
 from .setup import Setup
 
-__all__ = ["LIMIT_DB", "LIMIT_DEG", "LoopGain", "SteadyState", "SwitchingStep", "load_step", "loop_gain", "snap_frequencies",
-           "model_limit_hz", "steady_state"]
+__all__ = [
+    "LIMIT_DB",
+    "LIMIT_DEG",
+    "LoopGain",
+    "SteadyState",
+    "SwitchingStep",
+    "load_step",
+    "loop_gain",
+    "model_limit_hz",
+    "snap_frequencies",
+    "steady_state",
+]
 
 #: Where the averaged model and the switching loop gain are said to part.
 LIMIT_DB, LIMIT_DEG = 1.0, 5.0

@@ -45,7 +45,7 @@ from .circuit import IDLE, OFF, ON, PlantCircuit
 _GATHERED = ("lam", "inv", "inv_lam", "zero_lam", "vec", "r_g", "r_il", "d_g", "d_g_ix", "c_vo", "d_vo",
              "d_vo_ix", "g_inj_coef")
 
-__all__ = ["Cancelled", "Controller", "Engine", "Law", "Lanes", "Record"]
+__all__ = ["Cancelled", "Controller", "Engine", "Lanes", "Law", "Record"]
 
 #: Points of the scan for the first comparator crossing in an interval.
 SCAN_POINTS = 8
@@ -250,7 +250,6 @@ class Engine:
     # ------------------------------------------------------------------ exact solution
     def _modal(self, lanes, s, z0, t0_abs, t):
         """Modal state q at relative times ``t`` (lanes, m) of an interval in state ``s`` started at ``z0``."""
-        c = lanes.corner
         lam = lanes.g["lam"][:, s][:, None, :]
         q0 = np.einsum("kij,kj->ki", lanes.g["inv"][:, s], z0)[:, None, :]
         tt = t[:, :, None]
@@ -266,7 +265,6 @@ class Engine:
         return q
 
     def _dmodal(self, lanes, s, q, t0_abs, t):
-        c = lanes.corner
         lam = lanes.g["lam"][:, s][:, None, :]
         dq = lam * q + lanes.beta0[s][:, None, :]
         if lanes.inj:
@@ -285,7 +283,6 @@ class Engine:
 
     def _event_fn(self, lanes, s, kind, q, t0_abs, t, t_in_cycle):
         """The event function (and its modal row) at ``t``: ``"g"`` the comparator, ``"il"`` the current."""
-        c = lanes.corner
         if kind == "il":
             return np.einsum("kj,kmj->km", lanes.g["r_il"][:, s], q).real
         val = np.einsum("kj,kmj->km", lanes.g["r_g"][:, s], q).real + (lanes.g["d_g"][:, s] + lanes.g["d_g_ix"][:, s] * lanes.i_x)[:, None]
@@ -295,7 +292,6 @@ class Engine:
         return val
 
     def _event_slope(self, lanes, s, kind, q, dq, t0_abs, t):
-        c = lanes.corner
         row = lanes.g["r_il"][:, s] if kind == "il" else lanes.g["r_g"][:, s]
         val = np.einsum("kj,kmj->km", row, dq).real
         if kind == "g":
@@ -395,7 +391,6 @@ class Engine:
         return z3
 
     def _record(self, lanes, rec, starts, durs, t0_abs, waveform):
-        c = lanes.corner
         panels = self.panels
         u = np.linspace(0.0, 1.0, panels + 1)
         wts = np.ones(panels + 1)
