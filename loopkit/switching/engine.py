@@ -261,7 +261,7 @@ class Engine:
             w = lanes.inj_w[:, None, None]
             amp = (lanes.inj_amp * np.exp(1j * lanes.inj_w * t0_abs) / 2j)[:, None, None]
             bi = lanes.beta_inj[s][:, None, :]
-            q = q + bi * amp * _e(lam, 1j * w, tt) - bi * np.conj(amp) * _e(lam, -1j * w, tt)
+            q = q + bi * amp * _e(lam, 1j * w, tt) + bi * np.conj(amp) * _e(lam, -1j * w, tt)
         return q
 
     def _dmodal(self, lanes, s, q, t0_abs, t):
@@ -272,7 +272,7 @@ class Engine:
             amp = (lanes.inj_amp * np.exp(1j * lanes.inj_w * t0_abs) / 2j)[:, None, None]
             bi = lanes.beta_inj[s][:, None, :]
             tt = t[:, :, None]
-            dq = dq + bi * (amp * np.exp(1j * w * tt) - np.conj(amp) * np.exp(-1j * w * tt))
+            dq = dq + bi * (amp * np.exp(1j * w * tt) + np.conj(amp) * np.exp(-1j * w * tt))
         return dq
 
     def _inj(self, lanes, t_abs):

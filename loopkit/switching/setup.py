@@ -37,7 +37,7 @@ from ..rational import Rational
 from .circuit import plant_circuits
 from .engine import Controller, Engine, Law
 
-__all__ = ["SCHEMES_SIMULATED", "Setup", "closed_loop_setup", "controller_of", "open_loop_setup"]
+__all__ = ["SCHEMES_SIMULATED", "Setup", "closed_loop_setup", "controller_of", "open_loop_setup", "regulated_output"]
 
 #: Control schemes the simulator runs in closed loop.
 SCHEMES_SIMULATED = ("voltage-mode", "peak-current")
@@ -106,7 +106,16 @@ def controller_of(result) -> Controller:
         raise DesignError("compensator", "no parts", "the targets are infeasible: no loop to simulate")
     path = (result.compensator.take(0) * sensing_transfer(result.design)).cancel()
     ss = realise(_split_repeated(path))
-    return Controller(ss.a[0], ss.b[0], ss.c[0], float(ss.d[0]), float(result.design.operating.vout))
+    return Controller(ss.a[0], ss.b[0], ss.c[0], float(ss.d[0]), regulated_output(result))
+
+
+def regulated_output(result) -> float:
+    """The output the built parts regulate to, V: ``vref (R1 + Rb)/Rb`` with a divider's parts (after
+    E-series snapping the divider sets the output, not the design's ``vout``), else ``vout``."""
+    design, parts = result.design, result.parts
+    if design.sensing.kind == "divider" and "R1" in parts and "Rb" in parts:
+        return float(design.sensing.reference * (parts["R1"] + parts["Rb"]) / parts["Rb"])
+    return float(design.operating.vout)
 
 
 def _start_plant(engine: Engine, stage: StageResult, vout_v: np.ndarray) -> np.ndarray:
@@ -168,5 +177,5 @@ def closed_loop_setup(result) -> Setup:
         sol = np.linalg.lstsq(block, rhs, rcond=None)[0]
         z0[k, engine.m:] = sol[:nc]
         errs[k] = sol[-1]
-    z0[:, :engine.m] = _start_plant(engine, stage, design.operating.vout + errs)[:, :engine.m]
+    z0[:, :engine.m] = _start_plant(engine, stage, ctrl.v_target + errs)[:, :engine.m]
     return Setup(design, stage, engine, z0, vc0, result, per_duty)
