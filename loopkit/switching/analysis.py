@@ -186,7 +186,9 @@ def load_step(setup: Setup, amplitude_a: float, periods: int | None = None, band
     """A load step of ``amplitude_a`` (A, a rise of the load's magnitude; negative for a fall).
 
     The step lands on a clock edge after the periodic steady state; ``periods`` after it
-    (default: the span the averaged response needs).  Needs a closed-loop setup.
+    (default: the span the averaged response uses, at most 60 periods of the lowest crossover
+    and 5000 switching periods).  ``band_v``: settling band (default 1 % of |vout|).  Needs a
+    closed-loop setup.
     """
     from ..timeresponse import step_response
 
@@ -198,8 +200,10 @@ def load_step(setup: Setup, amplitude_a: float, periods: int | None = None, band
     corners = np.arange(setup.n_corners) if corners is None else np.atleast_1d(np.asarray(corners, int))
     avg = step_response(setup.result, "load", amplitude_a, band_v=band_v)
     ts = eng.ts
-    if periods is None:
-        periods = int(min(math.ceil(avg.t_s[-1] / ts), 20000))
+    if periods is None:  # the averaged span, at most 60 crossover periods of the slowest corner (and 5000)
+        fc = setup.result.margins.fc_hz[corners] if setup.result.margins is not None else np.array([np.nan])
+        fc_min = np.nanmin(fc) if np.any(np.isfinite(fc)) else 1.0 / avg.t_s[-1]
+        periods = int(min(math.ceil(avg.t_s[-1] / ts), math.ceil(60.0 / (fc_min * ts)), 5000))
     before = 2
     ss = steady_state(setup, corners, check_periods=2)
     lanes = eng.lanes(corners)
