@@ -947,6 +947,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--csv", metavar="OUT", help="write the waveforms as CSV")
     p.set_defaults(run=_cmd_step)
 
+    from .switching.command import add_parser as add_simulate_parser
+
+    add_simulate_parser(sub, _add_target_options)
+
     p = sub.add_parser("gui", help="open the desktop app")
     p.add_argument("file", metavar="FILE", nargs="?", help="design file to open")
     p.set_defaults(run=_cmd_gui)

@@ -106,7 +106,7 @@ def buck_loop():
 
 def test_engine_matches_expm_and_brentq(buck_loop):
     """The on-time and the state at its end: modal solution vs expm of the augmented matrix and brentq."""
-    result, setup = buck_loop
+    _result, setup = buck_loop
     eng, k = setup.engine, 4
     ss = sw.steady_state(setup, [k])
     z0 = ss.z[0]

@@ -115,7 +115,7 @@ def open_runs():
 
 @pytest.mark.parametrize("case", OPEN_CASES, ids=OPEN_IDS)
 def test_open_loop_against_ngspice(open_runs, case):
-    design, setup, k, duty, ref, mine = open_runs[case[0]]
+    _design, _setup, _k, duty, ref, mine = open_runs[case[0]]
     timing = EDGE / min(duty, 1.0 - duty)
     vout = abs(ref.vout_v)
     assert mine.settled[0]
@@ -198,7 +198,7 @@ def test_closed_loop_load_step(closed):
     # a band a quarter of the averaged peak, so that the settling time is a real figure here
     band = 0.25 * abs(float(step_response(c["result"], "load", amp).peak_v[k]))
     mine = sw.load_step(c["setup"], amp, corners=[k], band_v=band)
-    after = int(math.ceil(mine.t_s[-1] / ts))
+    after = math.ceil(mine.t_s[-1] / ts)
     res = closed_loop_spice.run(c["case"], c["deck"], c["vc0"], c["state0"], SETTLE + after,
                                 t_keep_s=(SETTLE - 3) * ts, step=(SETTLE * ts, amp), max_step_frac=0.05)
     t, v = res["t"], res["v"]
