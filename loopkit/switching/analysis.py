@@ -44,7 +44,7 @@ __all__ = [
 
 #: Where the averaged model and the switching loop gain are said to part.
 LIMIT_DB, LIMIT_DEG = 1.0, 5.0
-_NEWTON = 15
+_NEWTON = 30
 _WARM = 3
 
 
@@ -77,44 +77,63 @@ def _scales(setup: Setup, corners) -> np.ndarray:
     s = np.ones((corners.size, n))
     s[:, 0] = np.maximum(np.abs(st.i_peak[corners]), 1e-3)
     s[:, 1:m] = abs(setup.design.operating.vout)
-    if n > m:
-        s[:, m:] = np.maximum(np.abs(setup.z0[corners, m:]), 1e-3 * np.nan_to_num(np.abs(setup.vc0[corners]), nan=1.0)[:, None])
-        s[:, m:] = np.maximum(s[:, m:], 1e-6)
+    if n > m:  # controller states: their own size, at least 1 % of the largest (rounding in the modal
+        # transforms is relative to the largest state) and 1e-3 of the control voltage
+        zc = np.abs(setup.z0[corners, m:])
+        floor = np.maximum(1e-2 * zc.max(axis=1), 1e-3 * np.nan_to_num(np.abs(setup.vc0[corners]), nan=1.0))
+        s[:, m:] = np.maximum(np.maximum(zc, floor[:, None]), 1e-9)
     return s
 
 
 def periodic_state(setup: Setup, corners=None, progress=None) -> tuple[np.ndarray, np.ndarray]:
-    """The state at a clock edge that repeats one period later (shooting), and its relative residual."""
+    """The state at a clock edge that repeats one period later (shooting), and its relative residual.
+
+    Newton's method on ``P(z) - z`` (``P`` one period), the Jacobian by finite differences
+    (one lane per state, all corners together); a step that does not lower a corner's
+    residual is shortened (quartered) from the last accepted point, so a step that would
+    change the switching pattern (duty at a limit, DCM) and more than doubles a corner's
+    residual is walked back.
+    """
     eng = setup.engine
     corners = np.arange(setup.n_corners) if corners is None else np.atleast_1d(np.asarray(corners, int))
     k, n = corners.size, eng.n
     lanes = eng.lanes(corners)
-    z = eng.run(lanes, setup.z0[corners].copy(), _WARM)
+    z_try = eng.run(lanes, setup.z0[corners].copy(), _WARM)
     scale = _scales(setup, corners)
     rep = eng.lanes(np.repeat(corners, n + 1))
     t0 = np.zeros(rep.n)
-    resid = np.full(k, np.inf)
     eye = np.eye(n)
+    z_best, z_acc = z_try.copy(), z_try.copy()
+    r_best, r_acc = np.full(k, np.inf), np.full(k, np.inf)
+    step = np.zeros((k, n))
+    lam = np.ones(k)
     for it in range(_NEWTON):
         delta = 1e-7 * scale
-        zz = np.repeat(z, n + 1, axis=0).reshape(k, n + 1, n)
+        zz = np.repeat(z_try, n + 1, axis=0).reshape(k, n + 1, n)
         zz[:, 1:, :] += delta[:, None, :] * eye[None, :, :]
         out = eng.period(rep, zz.reshape(-1, n), t0).reshape(k, n + 1, n)
         base = out[:, 0, :]
-        jac = (out[:, 1:, :] - base[:, None, :]) / delta[:, :, None]  # [k, j, i] = d out_i / d z_j
-        jac = np.transpose(jac, (0, 2, 1))
-        f = base - z
-        resid = np.max(np.abs(f) / scale, axis=1)
+        jac = np.transpose((out[:, 1:, :] - base[:, None, :]) / delta[:, :, None], (0, 2, 1))
+        f = base - z_try
+        r_try = np.max(np.abs(f) / scale, axis=1)
+        r_try = np.where(np.isfinite(r_try), r_try, np.inf)
+        better = r_try <= 2.0 * r_acc  # Newton may raise the residual a little on its way; not by much
+        for i in np.nonzero(better)[0]:
+            z_acc[i], r_acc[i] = z_try[i], r_try[i]
+            s_i = np.linalg.lstsq(jac[i] - eye, f[i], rcond=None)[0]
+            step[i] = np.where(np.isfinite(s_i), s_i, 0.0)
+        keep = r_try < r_best
+        z_best[keep], r_best[keep] = z_try[keep], r_try[keep]
+        lam = np.where(better, 1.0, lam / 4.0)
         if progress is not None and progress(it + 1, _NEWTON) is False:
             from .engine import Cancelled
 
             raise Cancelled()
-        if np.all(resid < 1e-10):
+        done = r_best < 1e-10
+        if np.all(done | (lam < 1e-6)):
             break
-        step = np.stack([np.linalg.lstsq(jac[i] - eye, f[i], rcond=None)[0] for i in range(k)])
-        step = np.where(np.isfinite(step), step, 0.0)
-        z = z - np.where((resid < 1e-10)[:, None], 0.0, step)
-    return z, resid
+        z_try = np.where(done[:, None], z_best, z_acc - lam[:, None] * step)
+    return z_best, r_best
 
 
 def steady_state(setup: Setup, corners=None, check_periods: int = 20, progress=None) -> SteadyState:

@@ -30,6 +30,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.linalg
 
 from ..errors import DesignError
 from ..powerstage import StageResult, analyse_stage
@@ -106,7 +107,13 @@ def controller_of(result) -> Controller:
         raise DesignError("compensator", "no parts", "the targets are infeasible: no loop to simulate")
     path = (result.compensator.take(0) * sensing_transfer(result.design)).cancel()
     ss = realise(_split_repeated(path))
-    return Controller(ss.a[0], ss.b[0], ss.c[0], float(ss.d[0]), regulated_output(result))
+    a, b, c, d = ss.a[0], ss.b[0], ss.c[0], float(ss.d[0])
+    # balance states against the input and output too (as a state-space balancing with B and C does), so
+    # the states have comparable sizes: the shooting method's finite differences need that
+    block = np.block([[a, b[:, None]], [c[None, :], np.array([[d]])]])
+    _, (scale, _) = scipy.linalg.matrix_balance(block, permute=False, separate=True)
+    sx = scale[:-1] / scale[-1]
+    return Controller(a * sx[None, :] / sx[:, None], b / sx, c * sx, d, regulated_output(result))
 
 
 def regulated_output(result) -> float:
@@ -174,7 +181,10 @@ def closed_loop_setup(result) -> Setup:
     for k in range(n):
         rhs = np.zeros(nc + 1)
         rhs[-1] = vc0[k]
-        sol = np.linalg.lstsq(block, rhs, rcond=None)[0]
+        try:  # exact: the realisation's states can differ by decades in scale (lstsq would drop some)
+            sol = np.linalg.solve(block, rhs)
+        except np.linalg.LinAlgError:
+            sol = np.linalg.lstsq(block, rhs, rcond=None)[0]
         z0[k, engine.m:] = sol[:nc]
         errs[k] = sol[-1]
     z0[:, :engine.m] = _start_plant(engine, stage, ctrl.v_target + errs)[:, :engine.m]
