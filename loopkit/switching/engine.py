@@ -450,6 +450,8 @@ class Engine:
 
 
 def _take(lanes: Lanes, idx) -> Lanes:
+    if idx.size == lanes.n:  # every lane, in order (np.nonzero gives sorted indices)
+        return lanes
     return Lanes(lanes.corner[idx], lanes.i_x[idx], lanes.inj_amp[idx], lanes.inj_w[idx],
                  [b[idx] for b in lanes.beta0], [b[idx] for b in lanes.beta_inj],
                  {k: v[idx] for k, v in lanes.g.items()})
