@@ -1063,6 +1063,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", metavar="OUT", help="write the whole study as JSON")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     p.set_defaults(run=_cmd_tolerance)
+    from .switching.command import add_parser as add_simulate_parser
+
+    add_simulate_parser(sub, _add_target_options)
 
     p = sub.add_parser("gui", help="open the desktop app")
     p.add_argument("file", metavar="FILE", nargs="?", help="design file to open")

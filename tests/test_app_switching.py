@@ -1,0 +1,54 @@
+"""The switching check in the app: off the UI thread, with progress and cancel, drawing the library's numbers.
+
+Reference values: loopkit.switching called directly on the same loop result (the app must show
+those numbers, computed by the same code).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+pytest.importorskip("pytestqt")
+pytestmark = [pytest.mark.gui, pytest.mark.slow]
+
+from app.viewmodel import DesignModel
+from app.window import MainWindow
+from loopkit import switching as sw
+
+SAMPLES = __import__("conftest").SAMPLES
+BUCK24 = next(p for p in SAMPLES if p.stem == "buck_24v_3v3")
+
+
+@pytest.fixture
+def window(qtbot, tmp_path, monkeypatch):
+    monkeypatch.setenv("LOOPKIT_APP_DIR", str(tmp_path / "appdata"))
+    w = MainWindow(DesignModel(), data_dir=tmp_path / "appdata")
+    w.show()
+    qtbot.waitExposed(w)
+    yield w
+    w.model.undo_stack.setClean()
+    w._autosave_timer.stop()
+    w.close()
+    w.deleteLater()
+
+
+def test_switching_check_runs_off_thread_and_shows_the_library_values(window, qtbot):
+    assert window.open_path(BUCK24, ask=False)
+    qtbot.waitUntil(lambda: window.model.result is not None and not window.model.pending, timeout=30000)
+    dialog = window.open_switching()
+    qtbot.addWidget(dialog)
+    assert dialog.is_running() or dialog.data is not None  # the UI thread is free while it runs
+    qtbot.waitUntil(lambda: dialog.data is not None, timeout=240000)
+    assert dialog.progress.value() == 100
+    k = dialog.data["corner"]
+    ss = sw.steady_state(sw.closed_loop_setup(window.model.result), [k])
+    np.testing.assert_allclose(dialog.data["steady"].vout_v, ss.vout_v, rtol=1e-9)
+    lg = dialog.data["loop_gain"]
+    points = [item for item in dialog.mag_plot.listDataItems() if item.opts.get("symbol") == "o"]
+    np.testing.assert_allclose(points[0].yData, 20 * np.log10(np.abs(lg.t_switching[0])))
+    dialog.start()
+    dialog.cancel()
+    qtbot.waitUntil(lambda: not dialog.is_running(), timeout=60000)
+    assert "cancelled" in dialog.status.text() or dialog.progress.value() == 100
+    dialog.close()
