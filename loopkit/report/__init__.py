@@ -162,7 +162,7 @@ def report_html(result, *, path: str = "", overlays=(), load_step=None, extra_se
             text = paragraphs(ov.summary_lines())
             src = f" File: {ov.source}." if ov.source else ""
             body.append(section(f"measured-{i}", f"Measured {ov.kind} against the prediction",
-                                text + figure(figures.overlay_svg(ov), "Measured points over the predicted curve of"
+                                text + figure(figures.overlay_svg(ov, f"overlay{i}"), "Measured points over the predicted curve of"
                                               f" the same corner; below, measured / predicted.{src}")))
         body.append(section("corners", "Margins at every corner", table_html(corner_table(result))))
         step = _load_step(result, load_step)

@@ -9,6 +9,7 @@ kept as text, their element ids fixed, so the same design gives the same SVG.
 from __future__ import annotations
 
 import io
+import re
 
 import numpy as np
 
@@ -50,11 +51,16 @@ def _figure(width_in: float, height_in: float, rows: int, height_ratios=None):
     return fig, np.atleast_1d(axes)
 
 
-def _svg(fig) -> str:
+def _svg(fig, prefix: str) -> str:
+    """The figure as inline SVG: no prolog or metadata, element ids prefixed (several SVGs share one page)."""
     buf = io.StringIO()
     fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": "loopkit"})
     text = buf.getvalue()
-    return text[text.index("<svg"):]  # no XML prolog or doctype: the SVG goes inline into HTML
+    text = text[text.index("<svg"):]
+    text = re.sub(r"<metadata>.*?</metadata>", "", text, flags=re.DOTALL)
+    text = re.sub(r'\bid="([^"]+)"', rf'id="{prefix}-\1"', text)
+    text = re.sub(r'href="#([^"]+)"', rf'href="#{prefix}-\1"', text)
+    return re.sub(r"url\(#([^)]+)\)", rf"url(#{prefix}-\1)", text)
 
 
 def _hz_ticks(ax) -> None:
@@ -110,10 +116,10 @@ def bode_svg(result) -> str:
         mag.text(result.targets.fc_hz, mag.get_ylim()[1], " target fc", color=_ACCENT, va="top", fontsize=7.5)
         mag.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), ncols=1 if result.stage.n_corners <= 14 else 2,
                    title="corner (Vin, load)", title_fontsize=7.5)
-        return _svg(fig)
+        return _svg(fig, "bode")
 
 
-def overlay_svg(ov) -> str:
+def overlay_svg(ov, prefix: str = "overlay") -> str:
     """A measurement (points) on the prediction of its corner (line), and their difference below."""
     from ..measured_overlay import KIND_TITLES
 
@@ -143,7 +149,7 @@ def overlay_svg(ov) -> str:
         tl = twin.get_legend_handles_labels()
         diff.legend(lines[0] + tl[0], lines[1] + tl[1], loc="best", ncols=2)
         mag.legend(loc="best")
-        return _svg(fig)
+        return _svg(fig, prefix)
 
 
 def _visible_range(v, t, t_end, band_v) -> tuple[float, float]:
@@ -181,4 +187,4 @@ def step_svg(step, result, title: str) -> str:
         ax.set_ylabel("output deviation (mV)")
         ax.set_title(title + " (shaded: the settling band)", fontsize=8.5, loc="left")
         ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), title="corner (Vin, load)", title_fontsize=7.5)
-        return _svg(fig)
+        return _svg(fig, "step")

@@ -42,6 +42,7 @@ th, td { padding: 0.2rem 0.55rem; border-bottom: 1px solid var(--rule); vertical
 th { text-align: left; font-weight: 600; background: var(--band); border-bottom: 1px solid var(--muted); }
 thead tr.groups th { background: #fff; color: var(--muted); font-weight: 500; text-align: center;
                      border-bottom: 1px solid var(--rule); }
+th, td:first-child { white-space: nowrap; }
 td.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 tr { break-inside: avoid; }
 table.kv td { text-align: left; }
