@@ -287,3 +287,19 @@ def test_pdf_text_has_every_table_number_of_the_cli_json(name, tmp_path):
     for shot in shots:
         im = np.asarray(Image.open(shot).convert("L"))
         assert np.mean(im < 128) > 0.002, shot.name  # no blank page
+
+
+def test_infeasible_targets_still_give_a_report_that_says_why():
+    from dataclasses import replace
+
+    from loopkit.loop import Targets
+
+    design = load_design(BY_NAME["boost_liion_5v"])
+    result = design_loop(design, replace(Targets.from_design(design), fc_hz=400e3, pm_deg=80.0))
+    assert not result.feasible
+    text = report_html(result, path="boost.toml", date="2026-12-03")
+    assert "Does not meet its targets: the targets cannot be met" in text and "No parts" in text
+    assert re.findall(r'<section id="([^"]+)"', text) == ["design", "network", "findings", "limits"]
+    why = next(f for f in result.findings if f.severity == "error")
+    assert why.message.split(":")[0].replace("'", "&#x27;") in text
+    assert text.count("licensed practice") == 2 and check_self_contained(text) == []

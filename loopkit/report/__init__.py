@@ -86,6 +86,17 @@ def _load_step(result, load_step):
     return title, step_response(step_result, "load", b - a), step_result
 
 
+def _dcm_step_notes(step_result) -> list[str]:
+    """A sentence for the step's corners that start in DCM (linearised there, the answer is only indicative)."""
+    st = step_result.stage
+    dcm = [k for k in range(st.n_corners) if st.dcm[k]]
+    if not dcm:
+        return []
+    return [(f"Corner{'s' if len(dcm) > 1 else ''} {', '.join(f'#{k}' for k in dcm)} start{'' if len(dcm) > 1 else 's'}"
+            " the step in DCM, where the loop gain is far lower: the small-signal answer there is only indicative"
+            " (a step that takes the stage into CCM is a large-signal event; check it in simulation or on the bench).")]
+
+
 def _verdict(result) -> str:
     if result.met:
         return '<span class="verdict met">Meets every target at every corner</span>'
@@ -164,13 +175,13 @@ def report_html(result, *, path: str = "", overlays=(), load_step=None, extra_se
             body.append(section(f"measured-{i}", f"Measured {ov.kind} against the prediction",
                                 text + figure(figures.overlay_svg(ov, f"overlay{i}"), "Measured points over the predicted curve of"
                                               f" the same corner; below, measured / predicted.{src}")))
-        body.append(section("corners", "Margins at every corner", table_html(corner_table(result))))
+        body.append(section("corners", "Margins at every corner", table_html(corner_table(result), "corners")))
         step = _load_step(result, load_step)
         if step is not None:
             st_title, sr, st_result = step
             body.append(section("step", "Load step", figure(figures.step_svg(sr, st_result, st_title), st_title)
                                 + table_html(step_table(sr, "Step figures per corner"))
-                                + paragraphs(f"{f.message}" for f in sr.findings)))
+                                + paragraphs([f.message for f in sr.findings] + _dcm_step_notes(st_result))))
     else:
         body.append(section("network", "Compensator network and parts",
                             "<p>No parts: the targets cannot be met with this network (see Findings).</p>"))

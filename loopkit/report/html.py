@@ -46,6 +46,7 @@ th, td:first-child { white-space: nowrap; }
 td.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 tr { break-inside: avoid; }
 table.kv td { text-align: left; }
+table.corners td { white-space: nowrap; }
 table.kv td:first-child { color: var(--muted); width: 14rem; }
 .pair { display: grid; grid-template-columns: 1fr 1fr; gap: 0 1.5rem; }
 .note { color: var(--muted); font-size: 0.82rem; margin-top: 0.1rem; max-width: 52rem; }
