@@ -9,6 +9,7 @@ from pathlib import Path
 from PySide6.QtCore import Qt, QTimer
 from PySide6.QtGui import QAction, QKeySequence
 from PySide6.QtWidgets import (
+    QApplication,
     QFileDialog,
     QFrame,
     QHBoxLayout,
@@ -178,6 +179,8 @@ class MainWindow(QMainWindow):
         for kind, text in (("bom", "Bill of materials (CSV)…"), ("spice", "SPICE netlist…"),
                            ("json", "Results (JSON)…"), ("png", "Plot as PNG…"), ("svg", "Plot as SVG…")):
             self._action(ex, text, lambda _=False, k=kind: self._on_export_requested(k), None, f"export_{kind}")
+        self._action(m, "Export review &report…", self.report_dialog, None, "export_report")
+        self._action(m, "Open &measured data…", self.measured_dialog, None, "open_measured")
         m.addSeparator()
         self._action(m, "&Quit", self.close, QKeySequence("Ctrl+Q"), "quit")
 
@@ -468,6 +471,72 @@ class MainWindow(QMainWindow):
         dialog.show()
         dialog.start()
         return dialog
+
+    # ------------------------------------------------------------------ measured data and the review report
+    def open_measured(self, path: str, kind: str = "loop", corner: int | None = None, columns: dict | None = None):
+        """Open a bench measurement over the prediction of ``corner``; returns its window (None if refused)."""
+        from loopkit.measured import read_measurement
+
+        from .measured_view import MeasuredWindow
+
+        try:
+            measurement = read_measurement(path, kind, columns)
+            window = MeasuredWindow(self.model, measurement, corner, self)
+        except DesignError as exc:
+            QMessageBox.warning(self, "Cannot open the measurement", str(exc))
+            return None
+        except OSError as exc:
+            QMessageBox.warning(self, "Cannot open the measurement", f"{path}: {exc.strerror or exc}")
+            return None
+        self._measured_windows = [w for w in getattr(self, "_measured_windows", []) if w.isVisible()] + [window]
+        window.show()
+        self.statusBar().showMessage(f"Opened {path}", 5000)
+        return window
+
+    def measured_dialog(self) -> None:
+        from PySide6.QtWidgets import QInputDialog
+
+        from loopkit.measured_overlay import KIND_TITLES
+
+        start = str(Path(self.model.path).parent) if self.model.path else str(Path.home())
+        path, _ = QFileDialog.getOpenFileName(self, "Open measured data", start,
+                                              "Measurements (*.csv *.txt *.tsv *.dat);;All files (*)")
+        if not path:
+            return
+        titles = [f"{title} ({kind})" for kind, title in KIND_TITLES.items()]
+        choice, ok = QInputDialog.getItem(self, "Measured data", "What was measured?", titles, 0, False)
+        if ok:
+            self.open_measured(path, list(KIND_TITLES)[titles.index(choice)])
+
+    def export_report(self, path: str) -> None:
+        """Write the design-review report (``.pdf``: through headless Chromium; else HTML), with the
+        overlays of the measurement windows that are open."""
+        from loopkit.report import write_report
+
+        overlays = [w.overlay for w in getattr(self, "_measured_windows", []) if w.isVisible() and w.overlay]
+        pdf = path.lower().endswith(".pdf")
+        write_report(self.model.result, None if pdf else path, path if pdf else None,
+                     path=self.model.path or "", overlays=overlays)
+
+    def report_dialog(self) -> None:
+        stem = Path(self.model.path).stem if self.model.path else "design"
+        start = str((Path(self.model.path).parent if self.model.path else Path.home()) / f"{stem}-review.html")
+        path, chosen = QFileDialog.getSaveFileName(self, "Export review report", start,
+                                                   "Report page (*.html);;Report as PDF (*.pdf)")
+        if not path:
+            return
+        if not path.lower().endswith((".html", ".htm", ".pdf")):
+            path += ".pdf" if "pdf" in chosen.lower() else ".html"
+        self.statusBar().showMessage("Writing the review report…")
+        QApplication.setOverrideCursor(Qt.WaitCursor)
+        try:
+            self.export_report(path)
+        except (DesignError, OSError) as exc:
+            QApplication.restoreOverrideCursor()
+            QMessageBox.warning(self, "Cannot write the report", str(exc))
+            return
+        QApplication.restoreOverrideCursor()
+        self.statusBar().showMessage(f"Wrote {path}", 5000)
 
     # ------------------------------------------------------------------ closing
     def closeEvent(self, event) -> None:

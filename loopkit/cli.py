@@ -11,6 +11,7 @@ Subcommands::
     loopkit sweep FILE [--points 400] [--csv OUT]
     loopkit tolerance FILE [--draws 1000] [--random-state 0] [--workers 2] [--worst-case] [--csv OUT] [--json OUT]
     loopkit efficiency FILE [--csv OUT] [--json] [--points 25] [--load-min A]
+    loopkit report FILE -o OUT.html [--pdf OUT.pdf] [--measured MEASUREMENT.csv] [--load-step 0.5:3]
     loopkit gui [FILE]
 
 Every command calls the same library path as the app and the tests
@@ -970,6 +971,45 @@ def _cmd_measured(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------------- report
+def _cmd_report(args) -> int:
+    """The design-review report: HTML (and a PDF of it), with measurements laid over their corner."""
+    from .loop import design_loop
+    from .measured import parse_columns, read_measurement
+    from .measured_overlay import measured_overlay
+    from .report import find_chromium, write_report
+
+    if not (args.output or args.pdf):
+        raise DesignError("--output/--pdf", "(none given)", "give the HTML file (-o) or the PDF file (--pdf), or both")
+    outputs = [(o, p, None) for o, p in (("-o", args.output), ("--pdf", args.pdf)) if p]
+    _check_outputs(args.file, outputs)
+    if args.pdf:
+        find_chromium()  # a missing Chromium is said before the work
+    load_step = _step_pair(args.load_step, "--load-step", "A") if args.load_step else None
+    design = load_design(args.file)
+    result = design_loop(design)
+    overlays = []
+    if args.measured:
+        columns = parse_columns(args.columns) if args.columns else None
+        m = read_measurement(args.measured, args.kind, columns)
+        if args.invert:
+            m = replace(m, response=-m.response)
+        n = result.stage.n_corners
+        corner = max(result.design_corner, 0)
+        if args.corner is not None:
+            if not (args.corner.isdigit() and int(args.corner) < n):
+                raise DesignError("--corner", args.corner, f"must be a corner index from 0 to {n - 1}")
+            corner = int(args.corner)
+        if args.kind != "plant" and not result.feasible:
+            raise DesignError("", args.file, f"no parts to compare a {args.kind} measurement with (loopkit design"
+                              f" {args.file} says why)")
+        overlays.append(measured_overlay(result, m, corner))
+    write_report(result, args.output, args.pdf, path=args.file, overlays=overlays, load_step=load_step)
+    print(wrap_note(f"wrote {', '.join(p for _, p, _ in outputs)}"))
+    print(wrap_note(CAUTION))
+    return _verdict_status(result, "report", args.file)
+
+
 # ---------------------------------------------------------------------- parser
 def build_parser() -> argparse.ArgumentParser:
     """The argparse parser of the ``loopkit`` command."""
@@ -1066,6 +1106,18 @@ def build_parser() -> argparse.ArgumentParser:
     from .switching.command import add_parser as add_simulate_parser
 
     add_simulate_parser(sub, _add_target_options)
+    p = sub.add_parser("report", help="design-review report: HTML page (and PDF) with plots, tables, findings")
+    p.add_argument("file", metavar="FILE", help="design file (TOML)")
+    p.add_argument("-o", "--output", metavar="OUT.html", help="the report as one self-contained HTML file")
+    p.add_argument("--pdf", metavar="OUT.pdf", help="the report as PDF (needs headless Chromium)")
+    p.add_argument("--measured", metavar="MEASUREMENT.csv", help="a bench measurement to lay over its corner")
+    p.add_argument("--kind", choices=("loop", "plant", "compensator"), default="loop",
+                   help="what was measured: loop gain T (default), plant (control voltage to output), compensator")
+    p.add_argument("--corner", help="corner index the measurement was taken at (default: the design corner)")
+    p.add_argument("--columns", help="column mapping where the header is ambiguous, e.g. f_khz=0,gain_db=2,phase_deg=3")
+    p.add_argument("--invert", action="store_true", help="negate the measurement (an analyser that shows -T)")
+    p.add_argument("--load-step", metavar="FROM:TO", help="load step shown, A (default: half the largest load to it)")
+    p.set_defaults(run=_cmd_report)
 
     p = sub.add_parser("gui", help="open the desktop app")
     p.add_argument("file", metavar="FILE", nargs="?", help="design file to open")
