@@ -48,6 +48,7 @@ class EfficiencyDialog(QDialog):
         split.setOrientation(pg.QtCore.Qt.Orientation.Vertical)
         split.addWidget(self.table)
         split.addWidget(self.plot)
+        split.setSizes([300, 400])
         layout = QVBoxLayout(self)
         layout.addWidget(split)
         layout.addWidget(self.notes)
