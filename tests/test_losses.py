@@ -361,3 +361,4 @@ def test_every_sample_reports(capsys, sample_path):
     code, out, err = _run(capsys, "efficiency", sample_path)
     assert code == 0, err
     assert "Eff" in out
+    assert max(len(line) for line in out.splitlines()) <= 80
