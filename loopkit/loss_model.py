@@ -36,7 +36,11 @@ the leg commutates):
   turn-on overlap where the current is zero (DCM) or negative (forced CCM);
 * output capacitances charged and discharged each period:
   ``P = (Coss_switch + Coss_rectifier) V^2 fsw / 2`` (section 4.6.3, from memory;
-  an energy-equivalent capacitance, because Coss depends on voltage);
+  an energy-equivalent capacitance, because Coss depends on voltage); none
+  where a synchronous stage's valley current is negative (forced CCM at light
+  load): the reverse current swings the switch node before the switch turns
+  on, so the energy is returned (soft switching; assumed to complete within
+  the dead time, common practice, no source);
 * diode reverse recovery, where the rectifier still conducts when the switch
   turns on (CCM with a positive valley): ``P = Qrr V fsw`` (section 4.6.2,
   from memory; the extra overlap the recovery current causes is left out);
@@ -361,7 +365,8 @@ def loss_terms(design, p: CornerPoint, esr: bool = True) -> dict[str, np.ndarray
         if lo.coss_switch_f is not None or lo.coss_rectifier_f is not None:
             c_sw = lo.coss_switch_f or 0.0
             c_r = lo.coss_rectifier_f or 0.0
-            out["coss_w"] += 0.5 * (c_sw * v_leg**2 + c_r * (v_leg / nt) ** 2) * f
+            hard = ~(st.synchronous & ~p.dcm & (i_valley < 0))
+            out["coss_w"] += np.where(hard, 0.5 * (c_sw * v_leg**2 + c_r * (v_leg / nt) ** 2) * f, 0.0)
         if lo.recovery_charge_c is not None:
             out["recovery_w"] += np.where(ccm_on, lo.recovery_charge_c * v_leg / nt * f, 0.0)
         if lo.dead_time_s is not None and st.synchronous:
