@@ -107,6 +107,8 @@ def _targets_only(a: Design, b: Design) -> bool:
     if (a.stage, a.operating, a.sensing, a.modulator, a.control, a.title) != (
             b.stage, b.operating, b.sensing, b.modulator, b.control, b.title):
         return False
+    if a.losses != b.losses:  # [losses] can change the duty (dead time), so the plant
+        return False
     ca, cb = a.compensator, b.compensator
     return all(getattr(ca, f.name) == getattr(cb, f.name) for f in fields(Compensator) if f.name not in TARGET_FIELDS)
 

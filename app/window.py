@@ -29,6 +29,7 @@ from loopkit.atomicfile import atomic_path
 from loopkit.atomicfile import write_text_atomic as write_export
 
 from .corners_view import CornersView
+from .efficiency_view import open_efficiency
 from .files import RecentFiles, Recovery, app_dir, write_text_atomic
 from .forms import DesignForm
 from .parts_view import PartsView
@@ -213,6 +214,7 @@ class MainWindow(QMainWindow):
         m = bar.addMenu("&Tools")
         self._action(m, "Dense &input-voltage sweep…", self.open_sweep, QKeySequence("Ctrl+Shift+W"), "sweep")
         self._action(m, "&Switching check…", self.open_switching, None, "switching")
+        self._action(m, "&Efficiency per corner…", lambda: open_efficiency(self), None, "efficiency")
 
         m = bar.addMenu("&Help")
         self._action(m, "&Cautions…", self.show_cautions, None, "cautions")

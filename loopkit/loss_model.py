@@ -21,7 +21,7 @@ Conduction losses are these times each element's resistance, plus a diode's
 drop times its mean current.  Capacitor ESR losses: the ripple part of the
 current into the output node (the inductor current for a buck, the
 rectifier's pulses otherwise) splits between the banks and the load by their
-admittances at each harmonic of fsw (the shares from a 512-point FFT of the
+admittances at each harmonic of fsw (the shares from a 256-point FFT of the
 waveform, the total from the exact mean square above); the input capacitor
 carries the ripple part of the input current (the source gives the mean,
 common practice, no source).
@@ -36,7 +36,11 @@ the leg commutates):
   turn-on overlap where the current is zero (DCM) or negative (forced CCM);
 * output capacitances charged and discharged each period:
   ``P = (Coss_switch + Coss_rectifier) V^2 fsw / 2`` (section 4.6.3, from memory;
-  an energy-equivalent capacitance, because Coss depends on voltage);
+  an energy-equivalent capacitance, because Coss depends on voltage); none
+  where a synchronous stage's valley current is negative (forced CCM at light
+  load): the reverse current swings the switch node before the switch turns
+  on, so the energy is returned (soft switching; assumed to complete within
+  the dead time, common practice, no source);
 * diode reverse recovery, where the rectifier still conducts when the switch
   turns on (CCM with a positive valley): ``P = Qrr V fsw`` (section 4.6.2,
   from memory; the extra overlap the recovery current causes is left out);
@@ -240,19 +244,24 @@ def _output_pulsed(kind: np.ndarray) -> np.ndarray:
     return ~np.isin(kind, ("buck", "fs-buck"))
 
 
-def _node_waveform(p: CornerPoint, on: bool, off: bool, n_samples: int = 512) -> np.ndarray:
-    """The inductor current over one period (corners, samples) where ``on``/``off`` say it flows."""
+def _node_waveform(p: CornerPoint, pulsed: np.ndarray, n_samples: int) -> np.ndarray:
+    """The output node's current over one period (corners, samples): the inductor current, or
+    (``pulsed``) only its falling part, while the rectifier conducts."""
     t = (np.arange(n_samples) + 0.5) / n_samples
     d, d2 = p.duty[:, None], p.d2[:, None]
     lo = np.where(p.dcm, 0.0, p.i_l - p.ripple / 2.0)[:, None]
     hi = p.i_peak[:, None]
-    rise = lo + (hi - lo) * t / d
-    fall = hi - (hi - lo) * (t - d) / d2
-    wave = np.where(t < d, rise if on else 0.0, np.where(t < d + d2, fall if off else 0.0, 0.0))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        wave = np.where(t < d, np.where(pulsed[:, None], 0.0, lo + (hi - lo) * t / d),
+                        np.where(t < d + d2, hi - (hi - lo) * (t - d) / d2, 0.0))
     return np.where(np.isfinite(wave), wave, 0.0)
 
 
-def _esr_share(design, p: CornerPoint, pulsed: np.ndarray, n_samples: int = 512) -> np.ndarray:
+#: Samples per period of the output node's current for the ESR split (harmonics up to 128 fsw).
+ESR_SAMPLES = 256
+
+
+def _esr_share(design, p: CornerPoint, pulsed: np.ndarray, n_samples: int = ESR_SAMPLES) -> np.ndarray:
     """Each bank's share (corners, banks) of the ripple's mean square as ESR loss per ohm of ESR.
 
     Returns ``esr_k * (mean square of bank k's current)`` divided by the total ac mean square of
@@ -261,27 +270,30 @@ def _esr_share(design, p: CornerPoint, pulsed: np.ndarray, n_samples: int = 512)
     """
     st = design.stage
     n = p.duty.shape[0]
+    banks = [(b.esr_total, b.c_total) for b in st.output_caps]
+    out = np.zeros((n, len(banks)))
+    if all(esr == 0 for esr, _ in banks):
+        return out
     f = st.fsw * np.arange(1, n_samples // 2 + 1)
     w = 2 * np.pi * f
-    banks = [(b.esr_total, b.c_total) for b in st.output_caps]
     ys = np.stack([1.0 / (esr + 1.0 / (1j * w * c)) for esr, c in banks])  # (banks, harmonics)
     r_load = abs(design.operating.vout) / p.load
     y_tot = ys.sum(axis=0)[None, :] + 1.0 / r_load[:, None]  # (corners, harmonics)
-    waves = np.where(pulsed[:, None], _node_waveform(p, False, True, n_samples), _node_waveform(p, True, True, n_samples))
-    spec = np.fft.rfft(waves, axis=1)[:, 1:] / n_samples
+    spec = np.fft.rfft(_node_waveform(p, pulsed, n_samples), axis=1)[:, 1:] / n_samples
     power = 2.0 * np.abs(spec) ** 2  # mean square of each harmonic
     if n_samples % 2 == 0:
         power[:, -1] /= 2.0
     total = power.sum(axis=1)
-    out = np.zeros((n, len(banks)))
     for k, (esr, _) in enumerate(banks):
+        if esr == 0:
+            continue
         share = np.abs(ys[k][None, :] / y_tot) ** 2
         with np.errstate(invalid="ignore", divide="ignore"):
             out[:, k] = esr * np.sum(power * share, axis=1) / total
     return np.where(np.isfinite(out), out, 0.0)
 
 
-def loss_terms(design, p: CornerPoint) -> dict[str, np.ndarray]:
+def loss_terms(design, p: CornerPoint, esr: bool = True) -> dict[str, np.ndarray]:
     """Every loss term (:data:`LOSS_FIELDS`) at every corner, W, from the operating point ``p``.
 
     Parameters
@@ -289,6 +301,9 @@ def loss_terms(design, p: CornerPoint) -> dict[str, np.ndarray]:
     design : Design
         The stage's resistances and drops, and ``design.losses``.
     p : CornerPoint
+    esr : bool
+        False: leave the output capacitors' ESR loss at zero (it does not change the duty, and its
+        harmonic split is the costly part; the fixed point skips it).
 
     Returns
     -------
@@ -322,7 +337,8 @@ def loss_terms(design, p: CornerPoint) -> dict[str, np.ndarray]:
     ms_node = np.where(pulsed, nt**2 * ms_off, ms_all)
     mean_node = np.where(pulsed, nt * avg_off, avg_on + avg_off)
     ac_node = np.maximum(ms_node - mean_node**2, 0.0)
-    out["output_esr_w"] = ac_node * _esr_share(design, p, pulsed).sum(axis=1)
+    if esr:
+        out["output_esr_w"] = ac_node * _esr_share(design, p, pulsed).sum(axis=1)
     on_only = _input_draws_on_only(kind)
     ms_in = np.where(on_only, ms_on, ms_all)
     mean_in = np.where(on_only, avg_on, avg_on + avg_off)
@@ -349,7 +365,8 @@ def loss_terms(design, p: CornerPoint) -> dict[str, np.ndarray]:
         if lo.coss_switch_f is not None or lo.coss_rectifier_f is not None:
             c_sw = lo.coss_switch_f or 0.0
             c_r = lo.coss_rectifier_f or 0.0
-            out["coss_w"] += 0.5 * (c_sw * v_leg**2 + c_r * (v_leg / nt) ** 2) * f
+            hard = ~(st.synchronous & ~p.dcm & (i_valley < 0))
+            out["coss_w"] += np.where(hard, 0.5 * (c_sw * v_leg**2 + c_r * (v_leg / nt) ** 2) * f, 0.0)
         if lo.recovery_charge_c is not None:
             out["recovery_w"] += np.where(ccm_on, lo.recovery_charge_c * v_leg / nt * f, 0.0)
         if lo.dead_time_s is not None and st.synchronous:
@@ -415,16 +432,16 @@ def corner_points(design, vin, load, parts=None) -> tuple[CornerPoint, dict[str,
     return p, terms
 
 
-def _solve(design, vin, load, parts=None):
+def _solve(design, vin, load, parts=None, esr: bool = True):
     """The fixed point: (point, terms, input voltage and load the modules ran at)."""
     vin, load = np.asarray(vin, float), np.asarray(load, float)
     if parts is None:
         parts = groups(design.stage, vin, load, design.operating.vout)
     vin_op, load_op = vin, load
     p = _points(design, parts, vin, load, vin_op, load_op)
-    terms = loss_terms(design, p)
     if not _feeds_back(design):
-        return p, terms, vin_op, load_op
+        return p, loss_terms(design, p, esr), vin_op, load_op
+    terms = loss_terms(design, p, esr=False)
     v = abs(design.operating.vout)
     for _ in range(FEEDBACK_ITERATIONS):
         px = _duty_losses(p, terms)
@@ -433,8 +450,8 @@ def _solve(design, vin, load, parts=None):
         load_op = np.where(p.dcm, load + px / v, load)
         vin_op = np.where(np.isfinite(vin_op), vin_op, vin)
         p = _points(design, parts, vin, load, vin_op, load_op)
-        terms = loss_terms(design, p)
-    return p, terms, vin_op, load_op
+        terms = loss_terms(design, p, esr=False)
+    return p, loss_terms(design, p, esr), vin_op, load_op
 
 
 def _duty_losses(p: CornerPoint, terms) -> np.ndarray:
@@ -458,5 +475,5 @@ def losses_operating_inputs(design, vin, load) -> tuple[np.ndarray, np.ndarray]:
     vin, load = np.asarray(vin, float), np.asarray(load, float)
     if not _feeds_back(design):
         return vin, load
-    _, _, vin_op, load_op = _solve(design, vin, load)
+    _, _, vin_op, load_op = _solve(design, vin, load, esr=False)
     return vin_op, load_op
