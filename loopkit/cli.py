@@ -9,7 +9,8 @@ Subcommands::
     loopkit measured FILE MEASUREMENT.csv [--kind loop|plant] [--corner N] [--columns ...] [--fit] [--csv OUT]
     loopkit step FILE --load 0.5:3 [--rise 1u] [--vin-step 18:24] [--ref-step 1%] [--band 1%] [--csv OUT]
     loopkit sweep FILE [--points 400] [--csv OUT]
-    loopkit tolerance FILE [--draws 1000] [--random-state 0] [--workers 2] [--worst-case] [--csv OUT] [--json OUT]
+    loopkit tolerance FILE [--draws 1000] [--random-state 0] [--workers 2] [--worst-case] [--robust]
+                      [--csv OUT] [--json OUT]
     loopkit gui [FILE]
 
 Every command calls the same library path as the app and the tests
@@ -844,11 +845,20 @@ def _cmd_tolerance(args) -> int:
             close()
     sens = sensitivity(study, mc)
     wc = worst_case(study) if args.worst_case else None
-    print(study_text(study, mc, sens, wc, args.file))
+    text = study_text(study, mc, sens, wc, args.file)
+    robust = None
+    if args.robust:
+        from .robust import robust_synthesis
+        from .tolerance_report import robust_text
+
+        robust = robust_synthesis(study)
+        head, _, tail = text.rpartition("\n\nCaution")
+        text = head + "\n\n" + robust_text(robust) + "\n\nCaution" + tail
+    print(text)
     if args.csv and mc is not None:
         _write_text(args.csv, draws_csv(mc))
     if args.json:
-        _write_text(args.json, study_json(study, mc, sens, wc))
+        _write_text(args.json, study_json(study, mc, sens, wc, robust))
     if mc is not None and mc.cancelled:
         return 130
     if min_yield is not None and mc is not None and mc.yield_fraction < min_yield:
@@ -1057,6 +1067,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--random-state", type=int, default=0, help="random state of the draws (default 0)")
     p.add_argument("--workers", type=int, default=1, help="processes (default 1)")
     p.add_argument("--worst-case", action="store_true", help="also the extreme-value worst case")
+    p.add_argument("--robust", action="store_true",
+                   help="also the network for the best worst-case PM over the plant's tolerance box")
     p.add_argument("--min-yield", metavar="PERCENT", help="exit 1 when the yield is below this, e.g. 99%%")
     p.add_argument("--csv", metavar="OUT", help="write the draws (values, worst-corner margins, passed) as CSV")
     p.add_argument("--json", metavar="OUT", help="write the whole study as JSON")
