@@ -30,7 +30,7 @@ from .design import Design
 from .errors import DesignError
 from .loop import LoopSession
 from .result import Targets
-from .rows import MEMORY_BUDGET_BYTES, RowMargins, chunk_margins, draws_per_chunk, row_margins
+from .rows import MEMORY_BUDGET_BYTES, RowMargins, chunk_margins, draws_per_chunk, row_loop, row_margins
 from .tolerances import Tolerances, draw_values, quantities
 
 __all__ = [
@@ -41,6 +41,7 @@ __all__ = [
     "Study",
     "WorstCase",
     "clopper_pearson_interval",
+    "loop_envelope",
     "meets_targets",
     "monte_carlo",
     "prepare_study",
@@ -310,6 +311,39 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
     margins = RowMargins.concatenate(done) if done else empty
     return MonteCarloResult(qs, values[:n_done], margins, meets_targets(margins, study.targets), int(random_state),
                             int(n_draws), confidence)
+
+
+def loop_envelope(study: Study, values: np.ndarray, f_hz: np.ndarray | None = None,
+                  budget_bytes: int = MEMORY_BUDGET_BYTES) -> dict:
+    """The loop gain's envelope over draws and corners: lowest and highest |T| (dB) and phase (deg).
+
+    Parameters
+    ----------
+    study : Study
+    values : ndarray (draws, quantities)
+        E.g. a Monte Carlo run's ``values`` (or some of them).
+    f_hz : ndarray, optional
+        Frequencies, Hz; default the study's grid.
+
+    Returns
+    -------
+    dict
+        ``f_hz``, ``mag_db_min``, ``mag_db_max``, ``phase_deg_min``, ``phase_deg_max`` (each (nf,)),
+        over every corner of every draw, chunk by chunk (memory stays bounded).  The phase is the
+        loop's continuous phase (:meth:`loopkit.result.OpenLoop.with_network`).
+    """
+    f = study.f_hz if f_hz is None else np.asarray(f_hz, float)
+    values = np.atleast_2d(np.asarray(values, float))
+    step = draws_per_chunk(study.n_corners, f.size, budget_bytes)
+    lo_m = np.full(f.size, np.inf)
+    hi_m = np.full(f.size, -np.inf)
+    lo_p, hi_p = lo_m.copy(), hi_m.copy()
+    for a, b in _chunks(values.shape[0], step):
+        _, resp, phase, _ = row_loop(study.design, study.quantities, values[a:b], f)
+        mag = 20.0 * np.log10(np.abs(resp))
+        lo_m, hi_m = np.minimum(lo_m, mag.min(axis=0)), np.maximum(hi_m, mag.max(axis=0))
+        lo_p, hi_p = np.minimum(lo_p, phase.min(axis=0)), np.maximum(hi_p, phase.max(axis=0))
+    return {"f_hz": f, "mag_db_min": lo_m, "mag_db_max": hi_m, "phase_deg_min": lo_p, "phase_deg_max": hi_p}
 
 
 # ------------------------------------------------------------------ sensitivity

@@ -240,3 +240,23 @@ def test_cli_tolerance_prints_the_library_values(tmp_path, capsys):
     assert "caution" in doc
     assert main(["tolerance", str(path), "--draws", "10", "--min-yield", "101%"]) == 2
     assert "--min-yield" in capsys.readouterr().err
+
+
+def test_loop_envelope_holds_every_draws_own_loop(buck_study):
+    """The envelope (chunked) bounds the loop gain of each draw's one-design run at every corner, and touches
+    it: its ends are some row's values."""
+    from loopkit.montecarlo import loop_envelope
+
+    values = draw_values(buck_study.quantities, 12, np.random.default_rng(9))
+    env = loop_envelope(buck_study, values, budget_bytes=2**20)
+    f = env["f_hz"]
+    mags, phases = [], []
+    for v in values:
+        r = LoopSession(draw_design(buck_study.design, buck_study.quantities, v), f_hz=f).run()
+        mags.append(20 * np.log10(np.abs(r.loop_resp)))
+        phases.append(r.loop_phase_deg)
+    mags, phases = np.concatenate(mags), np.concatenate(phases)
+    np.testing.assert_allclose(env["mag_db_min"], mags.min(axis=0), atol=1e-9)
+    np.testing.assert_allclose(env["mag_db_max"], mags.max(axis=0), atol=1e-9)
+    np.testing.assert_allclose(env["phase_deg_min"], phases.min(axis=0), atol=1e-9)
+    np.testing.assert_allclose(env["phase_deg_max"], phases.max(axis=0), atol=1e-9)
