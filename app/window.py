@@ -209,6 +209,7 @@ class MainWindow(QMainWindow):
 
         m = bar.addMenu("&Tools")
         self._action(m, "Dense &input-voltage sweep…", self.open_sweep, QKeySequence("Ctrl+Shift+W"), "sweep")
+        self._action(m, "&Tolerance study…", self.open_study, None, "study")
 
         m = bar.addMenu("&Help")
         self._action(m, "&Cautions…", self.show_cautions, None, "cautions")
@@ -456,6 +457,14 @@ class MainWindow(QMainWindow):
         from .sweep import SweepDialog
 
         dialog = SweepDialog(self.model, self)
+        dialog.show()
+        dialog.start()
+        return dialog
+
+    def open_study(self):
+        from .study_view import StudyDialog
+
+        dialog = StudyDialog(self.model, self.bode, self)
         dialog.show()
         dialog.start()
         return dialog
