@@ -838,11 +838,20 @@ def _cmd_tolerance(args) -> int:
     study = prepare_study(design)
     mc = None
     if args.draws:
+        client = None
+        if args.dask:
+            try:
+                from distributed import Client
+            except ImportError:
+                raise DesignError("--dask", args.dask, "needs Dask: pip install 'loopkit[dask]'") from None
+            client = Client(args.dask)
         update, close = progress_bar(args.draws, None if not args.no_progress else False)
         try:
-            mc = monte_carlo(study, args.draws, args.random_state, args.workers, update)
+            mc = monte_carlo(study, args.draws, args.random_state, args.workers, update, client=client)
         finally:
             close()
+            if client is not None:
+                client.close()
     sens = sensitivity(study, mc)
     wc = worst_case(study) if args.worst_case else None
     text = study_text(study, mc, sens, wc, args.file)
@@ -1066,6 +1075,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--draws", type=int, default=1000, help="Monte Carlo draws (default 1000; 0: none)")
     p.add_argument("--random-state", type=int, default=0, help="random state of the draws (default 0)")
     p.add_argument("--workers", type=int, default=1, help="processes (default 1)")
+    p.add_argument("--dask", metavar="ADDRESS", help="run the draws on a Dask scheduler (pip install loopkit[dask])")
     p.add_argument("--worst-case", action="store_true", help="also the extreme-value worst case")
     p.add_argument("--robust", action="store_true",
                    help="also the network for the best worst-case PM over the plant's tolerance box")

@@ -16,6 +16,9 @@ from :func:`loopkit.rows.row_margins`, the one path over rows.
   :data:`MAX_VERTEX_QUANTITIES` quantities; beyond, the vertex the one-at-a-time signs point to
   and its one-flip neighbours), then a coordinate search over each quantity's range from the
   worst vertex.
+
+Chunks of draws are a pure function of (design, quantities, draws, grid): :func:`monte_carlo`
+runs them in this process, a process pool (``workers``) or on a Dask cluster (``client``).
 """
 
 from __future__ import annotations
@@ -255,7 +258,7 @@ def _chunks(n: int, step: int) -> list[tuple[int, int]]:
 
 
 def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int = 1, progress=None,
-                budget_bytes: int = MEMORY_BUDGET_BYTES, confidence: float = 0.95) -> MonteCarloResult:
+                budget_bytes: int = MEMORY_BUDGET_BYTES, confidence: float = 0.95, client=None) -> MonteCarloResult:
     """Margins at every corner of ``n_draws`` random draws of the tolerances.
 
     Parameters
@@ -271,6 +274,9 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
         ``progress(done, total)`` after each chunk.
     budget_bytes : int
         Working memory of one chunk.
+    client : dask.distributed.Client, optional
+        Run the chunks on a Dask cluster instead (the optional extra ``loopkit[dask]``); the
+        results are the same as in one process.
 
     Returns
     -------
@@ -282,12 +288,25 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
     qs = study.quantities
     values = draw_values(qs, int(n_draws), np.random.default_rng(random_state))
     step = draws_per_chunk(study.n_corners, study.f_hz.size, budget_bytes)
+    if client is not None:
+        workers = max(workers, len(client.scheduler_info().get("workers", {})) or 1)
     if workers > 1:  # several chunks per worker keep the pool busy
         step = max(1, min(step, -(-n_draws // (4 * workers))))
     spans = _chunks(int(n_draws), step)
     done: list[RowMargins] = []
     try:
-        if workers <= 1:
+        if client is not None:
+            futures = [client.submit(chunk_margins, study.design, qs, values[a:b], study.f_hz, pure=False)
+                       for a, b in spans]
+            try:
+                for (a, b), fut in zip(spans, futures):
+                    done.append(fut.result())
+                    if progress is not None:
+                        progress(b, n_draws)
+            except KeyboardInterrupt:
+                client.cancel(futures)
+                raise
+        elif workers <= 1:
             for a, b in spans:
                 done.append(chunk_margins(study.design, qs, values[a:b], study.f_hz))
                 if progress is not None:
