@@ -772,6 +772,29 @@ class BodeView(QWidget):
         self.marker_released.emit(view_to_hz(line.value()))
 
     # ------------------------------------------------------------------ export
+    def set_envelope(self, envelope: dict | None) -> None:
+        """Shade the loop gain's envelope over a tolerance study's draws (``loopkit.montecarlo.loop_envelope``)
+        behind the curves; None removes it.  It goes when the results change (it belongs to those parts)."""
+        for plot, item in getattr(self, "_envelope_items", ()):
+            plot.removeItem(item)
+        self._envelope_items = []
+        self.envelope = envelope
+        if envelope is None:
+            return
+        if not getattr(self, "_envelope_hooked", False):
+            self._model.results_changed.connect(lambda _result: self.set_envelope(None))
+            self._envelope_hooked = True
+        x = hz_to_view(envelope["f_hz"])
+        pen = _pen("#8a8a8a", Qt.SolidLine, 1.0)
+        for plot, lo, hi in ((self.mag, envelope["mag_db_min"], envelope["mag_db_max"]),
+                             (self.phase, envelope["phase_deg_min"], envelope["phase_deg_max"])):
+            low, high = pg.PlotCurveItem(x, lo, pen=pen), pg.PlotCurveItem(x, hi, pen=pen)
+            fill = pg.FillBetweenItem(low, high, brush=pg.mkBrush(140, 140, 140, 60))
+            for item in (fill, low, high):
+                item.setZValue(-5)
+                plot.addItem(item, ignoreBounds=True)
+                self._envelope_items.append((plot, item))
+
     def export_image(self, path: str) -> None:
         """Write the plot to PNG or SVG (by the file's suffix) with pyqtgraph's exporters."""
         import pyqtgraph.exporters as ex

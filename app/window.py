@@ -215,6 +215,7 @@ class MainWindow(QMainWindow):
         self._action(m, "Dense &input-voltage sweep…", self.open_sweep, QKeySequence("Ctrl+Shift+W"), "sweep")
         self._action(m, "&Switching check…", self.open_switching, None, "switching")
         self._action(m, "&Efficiency per corner…", lambda: open_efficiency(self), None, "efficiency")
+        self._action(m, "&Tolerance study…", self.open_study, None, "study")
 
         m = bar.addMenu("&Help")
         self._action(m, "&Cautions…", self.show_cautions, None, "cautions")
@@ -470,6 +471,14 @@ class MainWindow(QMainWindow):
         from .switching_view import SwitchingDialog
 
         dialog = SwitchingDialog(self.model, self)
+        dialog.show()
+        dialog.start()
+        return dialog
+
+    def open_study(self):
+        from .study_view import StudyDialog
+
+        dialog = StudyDialog(self.model, self.bode, self)
         dialog.show()
         dialog.start()
         return dialog

@@ -9,9 +9,11 @@ Subcommands::
     loopkit measured FILE MEASUREMENT.csv [--kind loop|plant] [--corner N] [--columns ...] [--fit] [--csv OUT]
     loopkit step FILE --load 0.5:3 [--rise 1u] [--vin-step 18:24] [--ref-step 1%] [--band 1%] [--csv OUT]
     loopkit sweep FILE [--points 400] [--csv OUT]
-    loopkit tolerance FILE [--draws 1000] [--random-state 0] [--workers 2] [--worst-case] [--csv OUT] [--json OUT]
+    loopkit simulate FILE [--only K] [--load-step AMPS] [--loop-gain [5k,20k,80k]]
     loopkit efficiency FILE [--csv OUT] [--json] [--points 25] [--load-min A]
     loopkit report FILE -o OUT.html [--pdf OUT.pdf] [--measured MEASUREMENT.csv] [--load-step 0.5:3]
+    loopkit tolerance FILE [--draws 1000] [--random-state 0] [--workers 2] [--worst-case] [--robust]
+                      [--csv OUT] [--json OUT]
     loopkit gui [FILE]
 
 Every command calls the same library path as the app and the tests
@@ -839,18 +841,36 @@ def _cmd_tolerance(args) -> int:
     study = prepare_study(design)
     mc = None
     if args.draws:
+        client = None
+        if args.dask:
+            try:
+                from distributed import Client
+            except ImportError:
+                raise DesignError("--dask", args.dask, "needs Dask: pip install 'loopkit[dask]'") from None
+            client = Client(args.dask)
         update, close = progress_bar(args.draws, None if not args.no_progress else False)
         try:
-            mc = monte_carlo(study, args.draws, args.random_state, args.workers, update)
+            mc = monte_carlo(study, args.draws, args.random_state, args.workers, update, client=client)
         finally:
             close()
+            if client is not None:
+                client.close()
     sens = sensitivity(study, mc)
     wc = worst_case(study) if args.worst_case else None
-    print(study_text(study, mc, sens, wc, args.file))
+    text = study_text(study, mc, sens, wc, args.file)
+    robust = None
+    if args.robust:
+        from .robust import robust_synthesis
+        from .tolerance_report import robust_text
+
+        robust = robust_synthesis(study)
+        head, _, tail = text.rpartition("\n\nCaution")
+        text = head + "\n\n" + robust_text(robust) + "\n\nCaution" + tail
+    print(text)
     if args.csv and mc is not None:
         _write_text(args.csv, draws_csv(mc))
     if args.json:
-        _write_text(args.json, study_json(study, mc, sens, wc))
+        _write_text(args.json, study_json(study, mc, sens, wc, robust))
     if mc is not None and mc.cancelled:
         return 130
     if min_yield is not None and mc is not None and mc.yield_fraction < min_yield:
@@ -1097,7 +1117,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--draws", type=int, default=1000, help="Monte Carlo draws (default 1000; 0: none)")
     p.add_argument("--random-state", type=int, default=0, help="random state of the draws (default 0)")
     p.add_argument("--workers", type=int, default=1, help="processes (default 1)")
+    p.add_argument("--dask", metavar="ADDRESS", help="run the draws on a Dask scheduler (pip install loopkit[dask])")
     p.add_argument("--worst-case", action="store_true", help="also the extreme-value worst case")
+    p.add_argument("--robust", action="store_true",
+                   help="also the network for the best worst-case PM over the plant's tolerance box")
     p.add_argument("--min-yield", metavar="PERCENT", help="exit 1 when the yield is below this, e.g. 99%%")
     p.add_argument("--csv", metavar="OUT", help="write the draws (values, worst-corner margins, passed) as CSV")
     p.add_argument("--json", metavar="OUT", help="write the whole study as JSON")

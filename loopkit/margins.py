@@ -274,7 +274,9 @@ def loop_margins(loop: Rational, f_hz: np.ndarray, resp: np.ndarray | None = Non
         np.minimum.at(out_dm, rows, np.deg2rad(pm) / (2 * np.pi * fc))
     none = n_cross == 0
     out_fc[none], out_pm[none], out_dm[none] = np.nan, np.nan, np.nan
-    crossings = tuple(tuple(float(x) for x in part) for part in np.split(fc, np.cumsum(n_cross)[:-1]))
+    ends = np.cumsum(n_cross).tolist()
+    fc_list = np.asarray(fc, float).tolist()  # Python floats; slicing a list keeps many rows cheap
+    crossings = tuple(tuple(fc_list[a:b]) for a, b in zip([0, *ends[:-1]], ends))
     # gain margin: the phase crossover with the largest |T| below 1 (smallest margin)
     out_gm = np.full(n, np.inf)
     out_f180 = np.full(n, np.nan)

@@ -16,6 +16,9 @@ from :func:`loopkit.rows.row_margins`, the one path over rows.
   :data:`MAX_VERTEX_QUANTITIES` quantities; beyond, the vertex the one-at-a-time signs point to
   and its one-flip neighbours), then a coordinate search over each quantity's range from the
   worst vertex.
+
+Chunks of draws are a pure function of (design, quantities, draws, grid): :func:`monte_carlo`
+runs them in this process, a process pool (``workers``) or on a Dask cluster (``client``).
 """
 
 from __future__ import annotations
@@ -30,7 +33,7 @@ from .design import Design
 from .errors import DesignError
 from .loop import LoopSession
 from .result import Targets
-from .rows import MEMORY_BUDGET_BYTES, RowMargins, chunk_margins, draws_per_chunk, row_margins
+from .rows import MEMORY_BUDGET_BYTES, RowMargins, chunk_margins, draws_per_chunk, row_loop, row_margins
 from .tolerances import Tolerances, draw_values, quantities
 
 __all__ = [
@@ -41,6 +44,7 @@ __all__ = [
     "Study",
     "WorstCase",
     "clopper_pearson_interval",
+    "loop_envelope",
     "meets_targets",
     "monte_carlo",
     "prepare_study",
@@ -254,7 +258,7 @@ def _chunks(n: int, step: int) -> list[tuple[int, int]]:
 
 
 def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int = 1, progress=None,
-                budget_bytes: int = MEMORY_BUDGET_BYTES, confidence: float = 0.95) -> MonteCarloResult:
+                budget_bytes: int = MEMORY_BUDGET_BYTES, confidence: float = 0.95, client=None) -> MonteCarloResult:
     """Margins at every corner of ``n_draws`` random draws of the tolerances.
 
     Parameters
@@ -270,6 +274,9 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
         ``progress(done, total)`` after each chunk.
     budget_bytes : int
         Working memory of one chunk.
+    client : dask.distributed.Client, optional
+        Run the chunks on a Dask cluster instead (the optional extra ``loopkit[dask]``); the
+        results are the same as in one process.
 
     Returns
     -------
@@ -281,12 +288,25 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
     qs = study.quantities
     values = draw_values(qs, int(n_draws), np.random.default_rng(random_state))
     step = draws_per_chunk(study.n_corners, study.f_hz.size, budget_bytes)
+    if client is not None:
+        workers = max(workers, len(client.scheduler_info().get("workers", {})) or 1)
     if workers > 1:  # several chunks per worker keep the pool busy
         step = max(1, min(step, -(-n_draws // (4 * workers))))
     spans = _chunks(int(n_draws), step)
     done: list[RowMargins] = []
     try:
-        if workers <= 1:
+        if client is not None:
+            futures = [client.submit(chunk_margins, study.design, qs, values[a:b], study.f_hz, pure=False)
+                       for a, b in spans]
+            try:
+                for (a, b), fut in zip(spans, futures):
+                    done.append(fut.result())
+                    if progress is not None:
+                        progress(b, n_draws)
+            except KeyboardInterrupt:
+                client.cancel(futures)
+                raise
+        elif workers <= 1:
             for a, b in spans:
                 done.append(chunk_margins(study.design, qs, values[a:b], study.f_hz))
                 if progress is not None:
@@ -310,6 +330,39 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
     margins = RowMargins.concatenate(done) if done else empty
     return MonteCarloResult(qs, values[:n_done], margins, meets_targets(margins, study.targets), int(random_state),
                             int(n_draws), confidence)
+
+
+def loop_envelope(study: Study, values: np.ndarray, f_hz: np.ndarray | None = None,
+                  budget_bytes: int = MEMORY_BUDGET_BYTES) -> dict:
+    """The loop gain's envelope over draws and corners: lowest and highest |T| (dB) and phase (deg).
+
+    Parameters
+    ----------
+    study : Study
+    values : ndarray (draws, quantities)
+        E.g. a Monte Carlo run's ``values`` (or some of them).
+    f_hz : ndarray, optional
+        Frequencies, Hz; default the study's grid.
+
+    Returns
+    -------
+    dict
+        ``f_hz``, ``mag_db_min``, ``mag_db_max``, ``phase_deg_min``, ``phase_deg_max`` (each (nf,)),
+        over every corner of every draw, chunk by chunk (memory stays bounded).  The phase is the
+        loop's continuous phase (:meth:`loopkit.result.OpenLoop.with_network`).
+    """
+    f = study.f_hz if f_hz is None else np.asarray(f_hz, float)
+    values = np.atleast_2d(np.asarray(values, float))
+    step = draws_per_chunk(study.n_corners, f.size, budget_bytes)
+    lo_m = np.full(f.size, np.inf)
+    hi_m = np.full(f.size, -np.inf)
+    lo_p, hi_p = lo_m.copy(), hi_m.copy()
+    for a, b in _chunks(values.shape[0], step):
+        _, resp, phase, _ = row_loop(study.design, study.quantities, values[a:b], f)
+        mag = 20.0 * np.log10(np.abs(resp))
+        lo_m, hi_m = np.minimum(lo_m, mag.min(axis=0)), np.maximum(hi_m, mag.max(axis=0))
+        lo_p, hi_p = np.minimum(lo_p, phase.min(axis=0)), np.maximum(hi_p, phase.max(axis=0))
+    return {"f_hz": f, "mag_db_min": lo_m, "mag_db_max": hi_m, "phase_deg_min": lo_p, "phase_deg_max": hi_p}
 
 
 # ------------------------------------------------------------------ sensitivity

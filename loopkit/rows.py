@@ -40,6 +40,7 @@ __all__ = [
     "draws_per_chunk",
     "row_loop",
     "row_margins",
+    "row_open_loop",
     "row_stage",
     "vectorised",
 ]
@@ -228,6 +229,27 @@ def _loop_one(design: Design, f_hz: np.ndarray):
     open_loop = OpenLoop(tu, tu.response(f_hz), tu.phase_deg(f_hz), stage.gvg, stage.zout)
     loop, _, resp, phase = open_loop.with_network(gc, f_hz)
     return loop, resp, phase, stage.dcm
+
+
+def row_open_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray) -> tuple[OpenLoop, np.ndarray]:
+    """The uncompensated loop Tu of every row (on the grid too) and the rows' DCM flags; the network's
+    quantities in ``qs`` play no part here (robust synthesis varies the plant and searches the network)."""
+    values = np.atleast_2d(np.asarray(values, float))
+    keys = [q.key for q in qs]
+    if vectorised(design, keys) or (design.stage.topology != "four-switch-buck-boost" and "sense_gain" not in keys):
+        row, _ = _row_design(design, qs, values)
+        stage = analyse_stage(row, findings=False)
+        tu = scheme_module(design.control.scheme).uncompensated(row, stage, loop_only=True).tu
+        dcm = stage.dcm
+    else:
+        tus, dcms = [], []
+        for v in values:
+            one = draw_design(design, qs, v)
+            st = analyse_stage(one, findings=False)
+            tus.append(scheme_module(one.control.scheme).uncompensated(one, st, loop_only=True).tu)
+            dcms.append(st.dcm)
+        tu, dcm = Rational.stack(tus), np.concatenate(dcms)
+    return OpenLoop(tu, tu.response(f_hz), tu.phase_deg(f_hz), tu, tu), dcm
 
 
 def row_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray):

@@ -20,7 +20,7 @@ from .montecarlo import MonteCarloResult, Sensitivity, Study, WorstCase, worst_c
 from .tables import Column, format_table, wrap_note
 from .units import format_value
 
-__all__ = ["draws_csv", "progress_bar", "study_document", "study_json", "study_text"]
+__all__ = ["draws_csv", "progress_bar", "robust_text", "study_document", "study_json", "study_text"]
 
 _PERCENTILES = (0.0, 1.0, 5.0, 50.0, 95.0, 100.0)
 
@@ -104,8 +104,9 @@ def _num(x):
 
 
 def study_document(study: Study, mc: MonteCarloResult | None, sens: list[Sensitivity] | None,
-                   wc: WorstCase | None) -> dict:
-    """The study as one JSON-ready document (NaN and inf as null)."""
+                   wc: WorstCase | None, robust=None) -> dict:
+    """The study as one JSON-ready document (NaN and inf as null); ``robust`` a
+    :class:`loopkit.robust.RobustResult` or None."""
     t = study.targets
     doc = {
         "targets": {"pm_deg": t.pm_deg, "gm_db": t.gm_db, "fc_hz": t.fc_hz, "fc_band": t.fc_band},
@@ -135,12 +136,22 @@ def study_document(study: Study, mc: MonteCarloResult | None, sens: list[Sensiti
     if wc is not None:
         doc["worst_case"] = {"pm_deg": _num(wc.pm_deg), "values": _num(wc.values), "vertices": wc.vertices,
                              "evaluations": wc.evaluations}
+    if robust is not None:
+        doc["robust"] = {"parts": {k: float(v) for k, v in robust.parts.items()},
+                         "nominal_parts": {k: float(v) for k, v in robust.nominal_parts.items()},
+                         "zeros_hz": list(robust.zeros_hz), "poles_hz": list(robust.poles_hz),
+                         "scenarios": _num(robust.scenarios), "worst_pm_deg": _num(robust.worst_pm_deg),
+                         "nominal_worst_pm_deg": _num(robust.nominal_worst_pm_deg),
+                         "pm_at_nominal_deg": _num(robust.pm_at_nominal_deg),
+                         "nominal_pm_at_nominal_deg": _num(robust.nominal_pm_at_nominal_deg),
+                         "misses": robust.misses, "nominal_misses": robust.nominal_misses,
+                         "kept_nominal": robust.kept_nominal}
     doc["caution"] = CAUTION
     return doc
 
 
-def study_json(study: Study, mc, sens, wc) -> str:
-    return json.dumps(study_document(study, mc, sens, wc), indent=2, allow_nan=False) + "\n"
+def study_json(study: Study, mc, sens, wc, robust=None) -> str:
+    return json.dumps(study_document(study, mc, sens, wc, robust), indent=2, allow_nan=False) + "\n"
 
 
 def progress_bar(total: int, enabled: bool | None = None):
@@ -158,3 +169,24 @@ def progress_bar(total: int, enabled: bool | None = None):
         bar.update(done - bar.n)
 
     return update, bar.close
+
+
+def robust_text(r) -> str:
+    """Robust synthesis (:class:`loopkit.robust.RobustResult`) beside the nominal network."""
+    names = sorted(set(r.parts) | set(r.nominal_parts))
+
+    def unit(k):
+        return "Ω" if k.startswith("R") else "F"
+
+    rows = [["worst-corner PM at nominal values", f"{r.nominal_pm_at_nominal_deg:.1f}", f"{r.pm_at_nominal_deg:.1f}"],
+            [f"lowest PM over {len(r.scenarios)} plant scenarios", f"{r.nominal_worst_pm_deg:.1f}",
+             f"{r.worst_pm_deg:.1f}"],
+            ["scenario corners missing GM, band or crossover", str(r.nominal_misses), str(r.misses)]]
+    rows += [[k, _value(r.nominal_parts.get(k, np.nan), unit(k)), _value(r.parts.get(k, np.nan), unit(k))]
+             for k in names]
+    lines = [wrap_note("robust synthesis (the best worst-case PM over the plant's tolerance box; scenario 0"
+                       " nominal):"),
+             format_table([Column("", align="<"), Column("nominal"), Column("robust")], rows)]
+    if r.kept_nominal:
+        lines.append(wrap_note("no placement did better on every scenario: the nominal parts are kept"))
+    return "\n".join(lines)

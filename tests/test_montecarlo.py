@@ -240,3 +240,50 @@ def test_cli_tolerance_prints_the_library_values(tmp_path, capsys):
     assert "caution" in doc
     assert main(["tolerance", str(path), "--draws", "10", "--min-yield", "101%"]) == 2
     assert "--min-yield" in capsys.readouterr().err
+
+
+def test_loop_envelope_holds_every_draws_own_loop(buck_study):
+    """The envelope (chunked) bounds the loop gain of each draw's one-design run at every corner, and touches
+    it: its ends are some row's values."""
+    from loopkit.montecarlo import loop_envelope
+
+    values = draw_values(buck_study.quantities, 12, np.random.default_rng(9))
+    env = loop_envelope(buck_study, values, budget_bytes=2**20)
+    f = env["f_hz"]
+    mags, phases = [], []
+    for v in values:
+        r = LoopSession(draw_design(buck_study.design, buck_study.quantities, v), f_hz=f).run()
+        mags.append(20 * np.log10(np.abs(r.loop_resp)))
+        phases.append(r.loop_phase_deg)
+    mags, phases = np.concatenate(mags), np.concatenate(phases)
+    np.testing.assert_allclose(env["mag_db_min"], mags.min(axis=0), atol=1e-9)
+    np.testing.assert_allclose(env["mag_db_max"], mags.max(axis=0), atol=1e-9)
+    np.testing.assert_allclose(env["phase_deg_min"], phases.min(axis=0), atol=1e-9)
+    np.testing.assert_allclose(env["phase_deg_max"], phases.max(axis=0), atol=1e-9)
+
+
+def _dask_run(buck_study, processes: bool):
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=processes,
+                                  dashboard_address=None) as cluster, distributed.Client(cluster) as client:
+        return monte_carlo(buck_study, 240, random_state=6, client=client, budget_bytes=2**20)
+
+
+@pytest.mark.slow
+def test_dask_cluster_gives_the_single_process_results(buck_study):
+    """The same chunks through a local Dask cluster (threads) give exactly the one-process results."""
+    ours = monte_carlo(buck_study, 240, random_state=6)
+    theirs = _dask_run(buck_study, processes=False)
+    np.testing.assert_array_equal(theirs.values, ours.values)
+    np.testing.assert_array_equal(theirs.margins.pm_deg, ours.margins.pm_deg)
+    np.testing.assert_array_equal(theirs.meets, ours.meets)
+
+
+@pytest.mark.slow
+def test_dask_processes_and_process_pool_give_the_single_process_results(buck_study):
+    ours = monte_carlo(buck_study, 240, random_state=6)
+    theirs = _dask_run(buck_study, processes=True)
+    np.testing.assert_array_equal(theirs.margins.pm_deg, ours.margins.pm_deg)
+    pool = monte_carlo(buck_study, 240, random_state=6, workers=2, budget_bytes=2**20)
+    np.testing.assert_array_equal(pool.margins.pm_deg, ours.margins.pm_deg)
+    np.testing.assert_array_equal(pool.margins.fc_hz, ours.margins.fc_hz)

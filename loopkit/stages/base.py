@@ -185,9 +185,26 @@ def _bank_factors(stage: Stage, n: int) -> np.ndarray:
     return f
 
 
+#: The last characteristic polynomial's roots: Gvd, Gvg, Zout, Gid, Gig and Gii of a stage share it,
+#: and a tolerance study's many rows make its eigenvalues the stage's largest cost.  Keyed on the
+#: exact coefficients, so a hit returns exactly what the computation would.
+_LAST_CHAR: list = [None]
+
+
+def _char_roots(char: np.ndarray) -> np.ndarray:
+    key = (char.shape, char.tobytes())
+    last = _LAST_CHAR[0]
+    if last is not None and last[0] == key:
+        return last[1]
+    w = poly_roots_inverse(char)
+    w.flags.writeable = False
+    _LAST_CHAR[0] = (key, w)  # one assignment: safe when several threads compute stages
+    return w
+
+
 def _over_char(gain: np.ndarray, num_factors: np.ndarray, char: np.ndarray) -> Rational:
     """``gain * prod(num factors) / char(s)`` with the characteristic polynomial's roots."""
-    w = poly_roots_inverse(char)
+    w = _char_roots(np.ascontiguousarray(char, dtype=float))
     den = np.stack([np.ones_like(w), -w], axis=-1)
     return Rational.from_factors(gain / char[:, 0], num_factors, den)
 
