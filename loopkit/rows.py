@@ -197,16 +197,13 @@ def _row_design(design: Design, qs, values: np.ndarray, per_row: bool = True) ->
         opamp = _RowOpAmp(gain_db=opamp.gain_db, gbw=v["gbw"], gm=opamp.gm, r_out=opamp.r_out)
     opto = {**comp.opto, **{k: v[k] for k in ("ctr", "c_opto") if k in v}}
     mod = design.modulator
-    row = _RowDesign(
-        stage=_RowStage(**fields),
-        operating=_RowOperating(op.vout, op.vin, op.load, op.vin_nominal, draws=n_d),
-        sensing=design.sensing,
-        modulator=_RowModulator(v.get("ramp", mod.ramp), mod.max_duty, mod.feedforward),
-        compensator=replace(comp, opamp=opamp, opto=opto) if ("gbw" in v or opto != comp.opto) else comp,
-        title=design.title,
-        control=design.control,
-        tolerances=design.tolerances,
-    )
+    row = _RowDesign(**{
+        **{f: getattr(design, f) for f in Design.__dataclass_fields__},  # every table the rows do not vary
+        "stage": _RowStage(**fields),
+        "operating": _RowOperating(op.vout, op.vin, op.load, op.vin_nominal, draws=n_d),
+        "modulator": _RowModulator(v.get("ramp", mod.ramp), mod.max_duty, mod.feedforward),
+        "compensator": replace(comp, opamp=opamp, opto=opto) if ("gbw" in v or opto != comp.opto) else comp,
+    })
     return row, parts
 
 
