@@ -67,6 +67,7 @@ from .design import (
     Compensator,
     Control,
     Design,
+    Digital,
     Modulator,
     OpAmp,
     Operating,
@@ -85,7 +86,7 @@ FORMAT = "loopkit-design"
 VERSION = 1
 
 _TEXT = {"topology", "rectifier", "light_load", "kind", "network", "method", "resistor_series", "capacitor_series",
-         "scheme"}
+         "scheme", "update", "carrier", "form"}
 _UNITS = {
     "fsw": "Hz",
     "inductance": "H",
@@ -110,6 +111,10 @@ _UNITS = {
     "slope": "V/s",
     "slope_amplitude": "V",
     "current_limit": "A",
+    "adc_range": "V",
+    "anti_alias": "Hz",
+    "computation_delay": "s",
+    "pwm_clock": "Hz",
 }
 #: Dimensionless fields written as plain TOML numbers (the rest as engineering text).
 _PLAIN_NUMBERS = {
@@ -216,7 +221,8 @@ def _list_or_range(table: dict, key: str, where: str, log: bool) -> tuple[float,
 
 def design_from_dict(data: dict) -> Design:
     """Validate a parsed TOML document and build the :class:`Design`."""
-    top = {"format", "version", "title", "stage", "operating", "sensing", "modulator", "compensator", "control"}
+    top = {"format", "version", "title", "stage", "operating", "sensing", "modulator", "compensator", "control",
+           "digital"}
     _check_keys(data, top, "")
     if data.get("format", FORMAT) != FORMAT:
         raise DesignError("format", data["format"], f"must be {FORMAT!r}")
@@ -291,7 +297,8 @@ def design_from_dict(data: dict) -> Design:
     title = data.get("title", "")
     if not isinstance(title, str):
         raise DesignError("title", title, "must be text")
-    return Design(stage, operating, sensing, modulator, compensator, title, control)
+    digital = _section(Digital, _table(data.get("digital", {}), "digital"), "digital")
+    return Design(stage, operating, sensing, modulator, compensator, title, control, digital)
 
 
 def _part_unit(designator: str) -> str | None:
@@ -587,6 +594,9 @@ def design_to_dict(design: Design, ranges: bool = True) -> dict:
         **({} if design.control == Control() else {"control": {
             f.name: getattr(design.control, f.name) for f in fields(Control)
             if getattr(design.control, f.name) is not None}}),
+        **({} if design.digital == Digital() and design.control.scheme != "digital" else {"digital": {
+            f.name: getattr(design.digital, f.name) for f in fields(Digital)
+            if getattr(design.digital, f.name) is not None}}),
     }
 
 
@@ -632,7 +642,7 @@ def _dumps(data: dict) -> str:
     for key in ("format", "version", "title"):
         lines.append(f"{key} = {_toml_value(data[key])}")
     lines.append("")
-    for key in ("stage", "operating", "sensing", "modulator", "compensator", "control"):
+    for key in ("stage", "operating", "sensing", "modulator", "compensator", "control", "digital"):
         if key in data:
             table(key, data[key])
     return "\n".join(lines).rstrip() + "\n"
