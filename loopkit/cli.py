@@ -353,6 +353,10 @@ def _margins_table(result) -> str:
 
 def design_text(result, path: str = "") -> str:
     """The ``loopkit design`` text: targets, parts, poles and zeros, margins per corner, warnings."""
+    if result.design.control.scheme == "digital":  # no parts: the controller's coefficients instead
+        from .digital_report import digital_text
+
+        return digital_text(result, _design_header(result.design, path), _findings_text(result.findings))
     out = _design_header(result.design, path) + [""] + _targets_lines(result) + [""]
     if not result.feasible:
         out.append("No parts: the targets cannot be met with this network.")
