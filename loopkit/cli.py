@@ -446,7 +446,12 @@ def _corner_names(stage: StageResult) -> list[str]:
 def _cmd_bode(args) -> int:
     design = load_design(args.file)
     kinds = [k for k in ("plant", "loop", "compensator") if getattr(args, k)] or ["plant"]
-    f_hz = _grid(args, design, design.stage.fsw / 2.0)
+    nyquist = None
+    if design.control.scheme == "digital":  # a sampled loop ends at fs/2 (its response repeats beyond)
+        nyquist = design.stage.fsw * design.digital.sample_ratio / 2.0
+        if args.fmax is not None and parse_value(args.fmax, "--fmax", "Hz") > nyquist * (1 + 1e-12):
+            raise DesignError("--fmax", args.fmax, f"a digital loop ends at the Nyquist frequency fs/2 = {_fmt(nyquist, 'Hz')}")
+    f_hz = _grid(args, design, design.stage.fsw / 2.0 if nyquist is None else nyquist)
     stage = analyse_stage(design)
     names = _corner_names(stage)
     curves = []
@@ -472,6 +477,7 @@ def _cmd_bode(args) -> int:
         wrap_note(
             f"wrote {args.csv}: {what}, {len(curves)} column sets x {f_hz.size} frequencies "
             f"({_fmt(f_hz[0], 'Hz')} to {_fmt(f_hz[-1], 'Hz')})"
+            + (f"; Nyquist frequency fs/2 = {_fmt(nyquist, 'Hz')}" if nyquist is not None else "")
         )
     )
     print(wrap_note(CAUTION))
@@ -600,6 +606,10 @@ def _cmd_export(args) -> int:
     ]
     _check_outputs(args.file, outputs)
     design = load_design(args.file)
+    if design.control.scheme == "digital" and (args.bom or args.spice or args.svg):
+        option = "--bom" if args.bom else "--spice" if args.spice else "--svg"
+        raise DesignError(option, getattr(args, option[2:]), "a digital controller has no parts or network:"
+                          " export --json (the difference equation's coefficients as plain numbers)")
     result = _loop_result(design, args, need_parts="export")
     # every file made in memory, then all written to temporaries and moved: a failure leaves none half-written
     write_files_atomic([(path, writer(result)) for _, path, writer in outputs])
@@ -660,6 +670,10 @@ def _cmd_step(args) -> int:
     from .timeresponse import deviation_rule_of_thumb, sizing, step_response
 
     design = load_design(args.file)
+    if design.control.scheme == "digital":
+        raise DesignError("control.scheme", "digital", "loopkit step works on the averaged analog loop only; for a"
+                          " sampled loop use loopkit.digital_loop.closed_loop_step (the closed loop in z, sample by"
+                          " sample)")
     vout = abs(design.operating.vout)
     if not (args.load or args.vin_step or args.ref_step):
         raise DesignError("--load/--vin-step/--ref-step", "(none given)", "give at least one step")
