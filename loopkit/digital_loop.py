@@ -32,7 +32,7 @@ from .digital_design import analog_design, direct_design
 from .discrete import Discrete, nyquist_grid
 from .discrete_margins import discrete_loop_margins
 from .errors import DesignError, Finding, InfeasibleDesign
-from .findings import loop_findings, target_findings, unique, worst_corner
+from .findings import loop_findings, target_findings, unique, why_not_single_crossover, worst_corner
 from .margins import Margins
 from .rational import Rational
 from .result import LoopResult, OpenLoop, Targets, with_targets
@@ -210,6 +210,11 @@ def run(session, targets: Targets) -> LoopResult:
     if chosen.controller is None:
         return session._infeasible(targets, findings, "compensator.pm", f"{targets.pm_deg:g} deg",
                                    f"no {d.method} {d.form} controller: {chosen.reason}")
+    m_c = chosen.margins
+    if m_c.n_crossovers[corner] != 1 or not m_c.stable[corner]:  # as for analog loops: one stable crossover
+        return session._infeasible(targets, findings, "compensator.fc", format_value(targets.fc_hz, "Hz"),
+                                   why_not_single_crossover(stage, corner, m_c, corner, advice.network,
+                                                            targets.fc_hz))
     c = chosen.controller
     loop = tu * c
     f = session.f_hz
