@@ -193,7 +193,9 @@ def stage_report(design: Design, stage: StageResult, path: str = "") -> str:
     legend.append(f"{EMPTY}: does not apply." + (" !: see warnings." if warned else ""))
     out.append(wrap_note(" ".join(legend)))
     findings = list(stage.findings)
-    if design.control.scheme != "voltage-mode":
+    if design.control.scheme == "digital":  # its delays and coefficients are in loopkit design
+        findings += list(scheme_module("digital").uncompensated(design, stage).findings)
+    elif design.control.scheme != "voltage-mode":
         scheme = scheme_module(design.control.scheme).uncompensated(design, stage)
         out += ["", _current_mode_table(design, stage, scheme.figures)]
         findings += list(scheme.findings)
@@ -447,7 +449,8 @@ def _cmd_bode(args) -> int:
     design = load_design(args.file)
     kinds = [k for k in ("plant", "loop", "compensator") if getattr(args, k)] or ["plant"]
     nyquist = None
-    if design.control.scheme == "digital":  # a sampled loop ends at fs/2 (its response repeats beyond)
+    if design.control.scheme == "digital" and ("loop" in kinds or "compensator" in kinds):
+        # a sampled loop ends at fs/2 (its response repeats beyond); the plant alone is continuous
         nyquist = design.stage.fsw * design.digital.sample_ratio / 2.0
         if args.fmax is not None and parse_value(args.fmax, "--fmax", "Hz") > nyquist * (1 + 1e-12):
             raise DesignError("--fmax", args.fmax, f"a digital loop ends at the Nyquist frequency fs/2 = {_fmt(nyquist, 'Hz')}")
