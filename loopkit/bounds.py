@@ -183,7 +183,7 @@ BOUNDS: dict[str, Bound] = {
     "digital.anti_alias": Bound(100.0, 1e9, "Hz", "an RC pole before the ADC", zero="none"),
     "digital.computation_delay": Bound(0.0, 10e-3, "s", "sample to duty written: below a microsecond to a slow"
                                        " 8-bit loop at kilohertz rates", zero="none"),
-    "digital.pwm_clock": Bound(1e6, 1e12, "Hz", "PWM counter clocks: 16 MHz counters to the sub-100 ps steps of"
+    "digital.pwm_clock": Bound(1e6, 100e9, "Hz", "PWM counter clocks: 16 MHz counters to the sub-100 ps steps of"
                                " high-resolution PWM", zero="not given"),
     "digital.dither_bits": Bound(0, 8, "", "extra duty bits from dithering over a few periods"),
     "digital.word_length": Bound(8, 64, "", "controller arithmetic from 8-bit to 64-bit words"),
