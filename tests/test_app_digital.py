@@ -12,11 +12,11 @@ import pytest
 pytest.importorskip("pytestqt")
 pytestmark = pytest.mark.gui
 
-from app.testing import settle  # noqa: E402
-from app.viewmodel import DesignModel  # noqa: E402
-from app.window import MainWindow  # noqa: E402
-from loopkit import load_design  # noqa: E402
-from loopkit.loop import design_loop  # noqa: E402
+from app.testing import settle
+from app.viewmodel import DesignModel
+from app.window import MainWindow
+from loopkit import load_design
+from loopkit.loop import design_loop
 
 ROOT = __import__("conftest").ROOT
 DSP = ROOT / "sample_designs" / "buck_dsp_5v.toml"
