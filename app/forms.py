@@ -44,6 +44,12 @@ NETWORK_NAMES = {name: network_title(name) for name in NETWORKS}
 #: The sense gain filled in when the user switches to current mode and the design has none: a
 #: starting value to edit (0.1 ohm: a 10 mohm shunt with a gain-of-10 amplifier), not a recommendation.
 DEFAULT_SENSE_GAIN_OHM = 0.1
+#: PWM counts per period a design gets when the digital scheme is chosen (8 bits; common practice, no source).
+DEFAULT_PWM_COUNTS = 256
+#: The [digital] fields in the form, shown with the digital scheme.
+DIGITAL_KEYS = ("digital.pwm_clock", "digital.adc_bits", "digital.adc_range", "digital.anti_alias",
+                "digital.computation_delay", "digital.update", "digital.carrier", "digital.sample_ratio",
+                "digital.dither_bits", "digital.form", "digital.method")
 _NOTATION = "Engineering notation: 4.7u, 400k, 2m2, 0.5 (a unit may follow: 400kHz, 22uF)"
 
 
@@ -211,6 +217,7 @@ class DesignForm(QScrollArea):
                     zero_text="none")
         self._value(f, "control.current_limit", "Peak current limit", "A", "Empty: not checked",
                     zero_text="not checked")
+        self._build_digital(f)
 
         f = self._group("Compensator")
         self._add(f, "Design at", ChoiceBox("compensator.design_corner", [("Worst corner", None)]),
@@ -232,6 +239,28 @@ class DesignForm(QScrollArea):
         self._parts_button.clicked.connect(self._on_parts_mode_clicked)
         f.addRow(self._parts_note)
         f.addRow("", self._parts_button)
+
+    def _build_digital(self, f) -> None:
+        """The [digital] fields, shown with the digital scheme."""
+        self._value(f, "digital.pwm_clock", "PWM clock", "Hz",
+                    "PWM counter clock; counts per period = clock / fsw (high-resolution PWM: its step rate)")
+        self._value(f, "digital.adc_bits", "ADC bits", "", plain=True)
+        self._value(f, "digital.adc_range", "ADC full scale", "V")
+        self._value(f, "digital.anti_alias", "Anti-alias pole", "Hz", "Empty: none", zero_text="none")
+        self._value(f, "digital.computation_delay", "Computation delay", "s", "From the sample to the new duty written")
+        self._add(f, "Duty update", ChoiceBox("digital.update", [("Next period", "next-period"),
+                                                                  ("Immediate", "immediate")]),
+                  "When the PWM takes the new duty: at the next period start, or as soon as it is written")
+        self._add(f, "PWM carrier", ChoiceBox("digital.carrier", [("Trailing edge", "trailing-edge"),
+                                                                   ("Leading edge", "leading-edge"),
+                                                                   ("Symmetric triangle", "symmetric")]))
+        self._value(f, "digital.sample_ratio", "Samples per period", "", plain=True)
+        self._value(f, "digital.dither_bits", "Dither bits", "", plain=True)
+        self._add(f, "Controller", ChoiceBox("digital.form", [("PI", "pi"), ("PID", "pid"), ("Type III", "type3")]))
+        self._add(f, "Design method", ChoiceBox("digital.method", [("Direct in z", "direct"),
+                                                                    ("Tustin, prewarped", "tustin"),
+                                                                    ("Matched pole-zero", "matched")]),
+                  "Direct: designed on the exact sampled loop; the others discretise an analog design")
 
     # ------------------------------------------------------------------ capacitor rows
     def _rebuild_caps(self, n: int) -> None:
@@ -364,8 +393,18 @@ class DesignForm(QScrollArea):
                     w.set_value(value)
         for key in ("control.sense_gain", "control.slope", "control.current_limit"):
             self._set_row_visible(key, current_mode)
+        digital = ctl.scheme == "digital"
         for key in ("modulator.ramp", "modulator.feedforward"):
-            self._set_row_visible(key, not current_mode)
+            self._set_row_visible(key, not current_mode and not digital)
+        for key in DIGITAL_KEYS:
+            w = self._widgets[key]
+            value = getattr(design.digital, key.split(".")[1])
+            with QSignalBlocker(w):
+                if isinstance(w, ChoiceBox):
+                    w.set_choice(value)
+                else:
+                    w.set_value(value)
+            self._set_row_visible(key, digital)
         self._set_row_visible("sensing.diff_bandwidth", se.kind == "differential")
         self._set_row_visible("sensing.divider_current", se.kind == "divider")
         self._targets_key = None
@@ -458,6 +497,8 @@ class DesignForm(QScrollArea):
             changes = {key: value}
             if value == "peak-current" and not self._model.design.control.sense_gain:
                 changes["control.sense_gain"] = DEFAULT_SENSE_GAIN_OHM
+            if value == "digital" and not self._model.design.digital.pwm_clock:
+                changes["digital.pwm_clock"] = DEFAULT_PWM_COUNTS * self._model.design.stage.fsw
             for name in ("slope", "slope_amplitude", "slope_ratio"):  # a new scheme starts from the automatic slope
                 changes[f"control.{name}"] = None
             self._model.edit(changes, "Change control scheme", key)

@@ -246,6 +246,11 @@ class PartsView(QWidget):
             self._schedule_drawing()
             return
         self._stale = False
+        if result.design.control.scheme == "digital":
+            self._show_coefficients(result)
+            self._schedule_drawing()
+            return
+        self.table.setHorizontalHeaderLabels(["Part", "Computed", "Snapped", "Change"])
         names = list(result.parts)  # the network's own order (R1, Rb, R2..., C1...)
         if self.table.rowCount() != len(names):
             self.table.setRowCount(len(names))
@@ -287,6 +292,40 @@ class PartsView(QWidget):
             self.margin_shift.setText("")
         self._schedule_drawing()
 
+    def _show_coefficients(self, result) -> None:
+        """A digital controller: its difference equation's coefficients (exact), z-plane roots, margins."""
+        from loopkit.digital_report import coefficient_rows
+
+        rows = coefficient_rows(result.digital) if result.digital is not None else []
+        self.table.setHorizontalHeaderLabels(["Coefficient", "Exact", "Fixed point", ""])
+        self.table.setRowCount(len(rows))
+        self.table.setFixedHeight(self.table.horizontalHeader().height() + max(len(rows), 3) * 20 + 4)
+        for r, (name, value) in enumerate(rows):
+            for c, text in enumerate((name, f"{value:.10g}", "-", "")):
+                item = self.table.item(r, c)
+                if item is None:
+                    item = QTableWidgetItem()
+                    item.setTextAlignment((Qt.AlignLeft if c == 0 else Qt.AlignRight) | Qt.AlignVCenter)
+                    self.table.setItem(r, c, item)
+                item.setText(text)
+        if result.digital is None:
+            self.roots.setText("No controller: the targets cannot be met (see the warnings).")
+            self.margin_shift.setText("")
+            return
+        dig = result.digital
+        z, p = dig.controller.zeros()[0], dig.controller.poles()[0]
+
+        def roots(r) -> str:
+            return ", ".join(f"{x.real:.6g}" if abs(x.imag) < 1e-12 else f"{x:.6g}" for x in r)
+
+        self.roots.setText(f"<b>Digital {dig.form}</b> ({dig.method}), fs {format_value(dig.fs_hz, 'Hz')}: "
+                           f"u = PWM steps, e = ADC codes<br><b>Zeros (z)</b> {roots(z) or 'none'}<br>"
+                           f"<b>Poles (z)</b> {roots(p)}")
+        w = result.worst_corner
+        m = result.margins
+        self.margin_shift.setText(f"Worst corner: PM {m.pm_deg[w]:.1f}°, GM {gm_text(m.gm_db[w], str(gm_state(m)[w]))};"
+                                  f" the delays cost {max(float(x) for x in dig.delay_phase_deg):.1f}° at fc.")
+
     def _schedule_drawing(self) -> None:
         self._draw_timer.start()  # restarts: draws once the targets stop moving
 
@@ -296,6 +335,11 @@ class PartsView(QWidget):
             return
         result = self._model.result
         if result is None:
+            return
+        if result.design.control.scheme == "digital":
+            self.drawing_area.load(b"")
+            self.drawing_note.setText("A digital controller: no network to draw.")
+            self.enlarge_button.setEnabled(False)
             return
         from loopkit.loop import network_context
 

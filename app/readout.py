@@ -70,7 +70,12 @@ class MarginsReadout(QWidget):
         t = self._model.targets  # what the user set (with given parts the session may hold older ones)
         source = "given parts" if self._model.parts_given else (
             f"{t.resistor_series}/{t.capacitor_series} parts")
-        targets = (f"<span style='color:#555'>Targets: {NETWORK_NAMES.get(result.network, result.network)}, "
+        network = NETWORK_NAMES.get(result.network, result.network) + ", "
+        if result.design.control.scheme == "digital":  # a digital controller: its form and fs, no network or parts
+            d, network = result.design.digital, ""
+            fs = f", fs {format_value(result.digital.fs_hz, 'Hz')}" if result.digital is not None else ""
+            source = f"digital {d.form}, {d.method}{fs}"
+        targets = (f"<span style='color:#555'>Targets: {network}"
                    f"fc {format_value(t.fc_hz, 'Hz')}, PM ≥ {t.pm_deg:g}°, GM ≥ {t.gm_db:g} dB · "
                    f"{source}</span>")
         if not result.feasible:

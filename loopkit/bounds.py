@@ -176,6 +176,18 @@ BOUNDS: dict[str, Bound] = {
     "compensator.opto.r_pull": _R_PART,
     "compensator.opto.r_led": _R_PART,
     "compensator.opto.c_opto": Bound(_C_PART.lo, _C_PART.hi, "F", _C_PART.why, zero="neglected"),
+    # --- [digital] (control.scheme = "digital")
+    "digital.sample_ratio": Bound(1, 16, "", "samples per switching period: once is usual, a few times for multi-sampled PWM"),
+    "digital.adc_bits": Bound(4, 24, "", "ADC resolution: 8-bit microcontrollers to 24-bit converters"),
+    "digital.adc_range": Bound(0.1, 100.0, "V", "ADC full scale: 1 V to 5 V on microcontrollers and DSPs"),
+    "digital.anti_alias": Bound(100.0, 1e9, "Hz", "an RC pole before the ADC", zero="none"),
+    "digital.computation_delay": Bound(0.0, 10e-3, "s", "sample to duty written: below a microsecond to a slow"
+                                       " 8-bit loop at kilohertz rates", zero="none"),
+    "digital.pwm_clock": Bound(1e6, 100e9, "Hz", "PWM counter clocks: 16 MHz counters to the sub-100 ps steps of"
+                               " high-resolution PWM", zero="not given"),
+    "digital.dither_bits": Bound(0, 8, "", "extra duty bits from dithering over a few periods"),
+    "digital.word_length": Bound(8, 64, "", "controller arithmetic from 8-bit to 64-bit words"),
+    "digital.frac_bits": Bound(0, 62, "", "fractional bits of the controller's Q format"),
     "compensator.parts.R*": _R_PART,
     "compensator.parts.C*": _C_PART,
     "compensator.placement.*": _F_PLACE,

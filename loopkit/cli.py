@@ -199,7 +199,9 @@ def stage_report(design: Design, stage: StageResult, path: str = "") -> str:
     legend.append(f"{EMPTY}: does not apply." + (" !: see warnings." if warned else ""))
     out.append(wrap_note(" ".join(legend)))
     findings = list(stage.findings)
-    if design.control.scheme != "voltage-mode":
+    if design.control.scheme == "digital":  # its delays and coefficients are in loopkit design
+        findings += list(scheme_module("digital").uncompensated(design, stage).findings)
+    elif design.control.scheme != "voltage-mode":
         scheme = scheme_module(design.control.scheme).uncompensated(design, stage)
         out += ["", _current_mode_table(design, stage, scheme.figures)]
         findings += list(scheme.findings)
@@ -359,6 +361,10 @@ def _margins_table(result) -> str:
 
 def design_text(result, path: str = "") -> str:
     """The ``loopkit design`` text: targets, parts, poles and zeros, margins per corner, warnings."""
+    if result.design.control.scheme == "digital":  # no parts: the controller's coefficients instead
+        from .digital_report import digital_text
+
+        return digital_text(result, _design_header(result.design, path), _findings_text(result.findings))
     out = _design_header(result.design, path) + [""] + _targets_lines(result) + [""]
     if not result.feasible:
         out.append("No parts: the targets cannot be met with this network.")
@@ -448,7 +454,13 @@ def _corner_names(stage: StageResult) -> list[str]:
 def _cmd_bode(args) -> int:
     design = load_design(args.file)
     kinds = [k for k in ("plant", "loop", "compensator") if getattr(args, k)] or ["plant"]
-    f_hz = _grid(args, design, design.stage.fsw / 2.0)
+    nyquist = None
+    if design.control.scheme == "digital" and ("loop" in kinds or "compensator" in kinds):
+        # a sampled loop ends at fs/2 (its response repeats beyond); the plant alone is continuous
+        nyquist = design.stage.fsw * design.digital.sample_ratio / 2.0
+        if args.fmax is not None and parse_value(args.fmax, "--fmax", "Hz") > nyquist * (1 + 1e-12):
+            raise DesignError("--fmax", args.fmax, f"a digital loop ends at the Nyquist frequency fs/2 = {_fmt(nyquist, 'Hz')}")
+    f_hz = _grid(args, design, design.stage.fsw / 2.0 if nyquist is None else nyquist)
     stage = analyse_stage(design)
     names = _corner_names(stage)
     curves = []
@@ -474,6 +486,7 @@ def _cmd_bode(args) -> int:
         wrap_note(
             f"wrote {args.csv}: {what}, {len(curves)} column sets x {f_hz.size} frequencies "
             f"({_fmt(f_hz[0], 'Hz')} to {_fmt(f_hz[-1], 'Hz')})"
+            + (f"; Nyquist frequency fs/2 = {_fmt(nyquist, 'Hz')}" if nyquist is not None else "")
         )
     )
     print(wrap_note(CAUTION))
@@ -602,6 +615,10 @@ def _cmd_export(args) -> int:
     ]
     _check_outputs(args.file, outputs)
     design = load_design(args.file)
+    if design.control.scheme == "digital" and (args.bom or args.spice or args.svg):
+        option = "--bom" if args.bom else "--spice" if args.spice else "--svg"
+        raise DesignError(option, getattr(args, option[2:]), "a digital controller has no parts or network:"
+                          " export --json (the difference equation's coefficients as plain numbers)")
     result = _loop_result(design, args, need_parts="export")
     # every file made in memory, then all written to temporaries and moved: a failure leaves none half-written
     write_files_atomic([(path, writer(result)) for _, path, writer in outputs])
@@ -662,6 +679,10 @@ def _cmd_step(args) -> int:
     from .timeresponse import deviation_rule_of_thumb, sizing, step_response
 
     design = load_design(args.file)
+    if design.control.scheme == "digital":
+        raise DesignError("control.scheme", "digital", "loopkit step works on the averaged analog loop only; for a"
+                          " sampled loop use loopkit.digital_loop.closed_loop_step (the closed loop in z, sample by"
+                          " sample)")
     vout = abs(design.operating.vout)
     if not (args.load or args.vin_step or args.ref_step):
         raise DesignError("--load/--vin-step/--ref-step", "(none given)", "give at least one step")

@@ -32,6 +32,7 @@ __all__ = [
     "Compensator",
     "Control",
     "Design",
+    "Digital",
     "Modulator",
     "OpAmp",
     "Operating",
@@ -382,7 +383,7 @@ class Compensator:
 
 
 #: Control schemes accepted in ``control.scheme`` (one module each in :mod:`loopkit.schemes`).
-SCHEMES = ("voltage-mode", "peak-current")
+SCHEMES = ("voltage-mode", "peak-current", "digital")
 
 
 @dataclass(frozen=True)
@@ -433,6 +434,106 @@ class Control:
                 bounds.check(f"control.{name}", getattr(self, name))
 
 
+#: Digital controller forms (``digital.form``) and how the controller is designed (``digital.method``).
+DIGITAL_FORMS = ("pi", "pid", "type3")
+DIGITAL_METHODS = ("direct", "tustin", "matched")
+#: PWM carriers (``digital.carrier``), as :data:`loopkit.sampled.MODULATORS`, and duty-update instants.
+DIGITAL_CARRIERS = ("trailing-edge", "leading-edge", "symmetric")
+DIGITAL_UPDATES = ("next-period", "immediate")
+#: Fewest PWM counts per switching period a digital design may have (common practice, no source).
+MIN_PWM_COUNTS = 16
+
+
+@dataclass(frozen=True)
+class Digital:
+    """The digital controller's hardware and form (``[digital]``; used with ``control.scheme = "digital"``).
+
+    Attributes
+    ----------
+    sample_ratio : int
+        Samples (and duty updates) per switching period: fs = sample_ratio * fsw.
+    adc_bits : int
+        ADC resolution, bits.
+    adc_range : float
+        ADC full-scale input, V (the sensed output times the sensing gain must lie inside it).
+    anti_alias : float
+        Anti-alias filter pole before the ADC, Hz (0 = none).
+    computation_delay : float
+        Time from the ADC sample to the new duty being written, s.
+    update : str
+        ``"next-period"``: the PWM loads the new duty at the start of the next sample period (a shadow
+        register); ``"immediate"``: it acts as soon as written (edges later in the same period move).
+    carrier : str
+        ``"trailing-edge"``, ``"leading-edge"`` or ``"symmetric"`` (triangle) PWM.
+    pwm_clock : float
+        PWM counter clock, Hz (high-resolution PWM: its effective step rate); counts per period are
+        ``pwm_clock / fsw``.
+    dither_bits : int
+        Extra duty resolution from dithering, bits (0 = none).
+    word_length, frac_bits : int or None
+        The controller's fixed-point word length and fractional bits (None = chosen from the
+        coefficients).
+    form : str
+        ``"pi"``, ``"pid"`` or ``"type3"`` (an integrator, two zeros, two poles).
+    method : str
+        ``"direct"`` (designed in z on the exact sampled loop), ``"tustin"`` (an analog design of the
+        same form, Tustin-prewarped at fc) or ``"matched"`` (the analog design, matched pole-zero).
+    """
+
+    sample_ratio: int = 1
+    adc_bits: int = 12
+    adc_range: float = 3.3
+    anti_alias: float = 0.0
+    computation_delay: float = 0.0
+    update: str = "next-period"
+    carrier: str = "trailing-edge"
+    pwm_clock: float = 0.0
+    dither_bits: int = 0
+    word_length: int | None = None
+    frac_bits: int | None = None
+    form: str = "type3"
+    method: str = "direct"
+
+    def __post_init__(self):
+        for name in ("sample_ratio", "adc_bits", "dither_bits", "word_length", "frac_bits"):
+            value = getattr(self, name)
+            if value is None and name in ("word_length", "frac_bits"):
+                continue
+            if isinstance(value, bool) or not isinstance(value, numbers.Real) or value != int(value):
+                raise DesignError(f"digital.{name}", value, "must be a whole number")
+            object.__setattr__(self, name, int(value))
+            bounds.check(f"digital.{name}", int(value))
+        for name in ("adc_range", "anti_alias", "computation_delay", "pwm_clock"):
+            bounds.check(f"digital.{name}", getattr(self, name))
+        for name, allowed in (("update", DIGITAL_UPDATES), ("carrier", DIGITAL_CARRIERS), ("form", DIGITAL_FORMS),
+                              ("method", DIGITAL_METHODS)):
+            if getattr(self, name) not in allowed:
+                raise DesignError(f"digital.{name}", getattr(self, name), f"must be one of {', '.join(allowed)}")
+        if self.word_length is not None and self.frac_bits is not None and self.frac_bits >= self.word_length:
+            raise DesignError("digital.frac_bits", self.frac_bits,
+                              f"must be below the word length ({self.word_length} bits): one bit is the sign")
+
+    def check_with(self, design: Design) -> None:
+        """Checks where the digital fields meet the stage and the sensing (scheme ``digital`` only)."""
+        fs = design.stage.fsw * self.sample_ratio
+        if not self.pwm_clock > 0:
+            raise DesignError("digital.pwm_clock", format_value(self.pwm_clock, "Hz"),
+                              "a digital design needs the PWM counter clock (> 0 Hz)")
+        counts = self.pwm_clock / design.stage.fsw
+        if counts < MIN_PWM_COUNTS:
+            raise DesignError("digital.pwm_clock", format_value(self.pwm_clock, "Hz"),
+                              f"gives {counts:.3g} counts per switching period; at least {MIN_PWM_COUNTS}"
+                              f" (a clock of {format_value(MIN_PWM_COUNTS * design.stage.fsw, 'Hz')} or more)")
+        if self.anti_alias and self.anti_alias < 0.5 * fs / 100:
+            raise DesignError("digital.anti_alias", format_value(self.anti_alias, "Hz"),
+                              f"0 (none) or at least fs/200 = {format_value(fs / 200, 'Hz')}: lower would be"
+                              " the loop's own pole, not an anti-alias filter")
+        if design.sensing.reference >= self.adc_range:
+            raise DesignError("sensing.reference", format_value(design.sensing.reference, "V"),
+                              f"the sensed output must lie inside the ADC range (below digital.adc_range ="
+                              f" {format_value(self.adc_range, 'V')})")
+
+
 @dataclass(frozen=True)
 class Design:
     """One converter and its loop: the content of a design file."""
@@ -447,6 +548,7 @@ class Design:
     tolerances: Tolerances = field(default_factory=Tolerances)
     #: Loss figures beyond conduction (``[losses]``, :mod:`loopkit.losses`); all optional.
     losses: Losses = field(default_factory=Losses)
+    digital: Digital = field(default_factory=Digital)
 
     def __post_init__(self):
         vout = self.operating.vout
@@ -465,6 +567,8 @@ class Design:
         if len(self.tolerances.banks) > len(self.stage.output_caps):  # [tolerances] (loopkit.tolerances)
             raise DesignError("tolerances.output_caps", f"({len(self.tolerances.banks)} tables)",
                               f"at most one per capacitor bank of the stage ({len(self.stage.output_caps)})")
+        if self.control.scheme == "digital":
+            self.digital.check_with(self)
 
     def _check_where_fields_meet(self) -> None:
         """Consistency where fields meet: divider current and R1, turns ratio and duty.

@@ -67,6 +67,7 @@ from .design import (
     Compensator,
     Control,
     Design,
+    Digital,
     Modulator,
     OpAmp,
     Operating,
@@ -87,7 +88,7 @@ FORMAT = "loopkit-design"
 VERSION = 1
 
 _TEXT = {"topology", "rectifier", "light_load", "kind", "network", "method", "resistor_series", "capacitor_series",
-         "scheme"}
+         "scheme", "update", "carrier", "form"}
 _UNITS = {
     "fsw": "Hz",
     "inductance": "H",
@@ -112,6 +113,10 @@ _UNITS = {
     "slope": "V/s",
     "slope_amplitude": "V",
     "current_limit": "A",
+    "adc_range": "V",
+    "anti_alias": "Hz",
+    "computation_delay": "s",
+    "pwm_clock": "Hz",
 }
 #: Dimensionless fields written as plain TOML numbers (the rest as engineering text).
 _PLAIN_NUMBERS = {
@@ -219,7 +224,7 @@ def _list_or_range(table: dict, key: str, where: str, log: bool) -> tuple[float,
 def design_from_dict(data: dict) -> Design:
     """Validate a parsed TOML document and build the :class:`Design`."""
     top = {"format", "version", "title", "stage", "operating", "sensing", "modulator", "compensator", "control",
-           "tolerances"}
+           "tolerances", "digital"}
     top.add("losses")  # [losses]: loopkit.losses
     _check_keys(data, top, "")
     if data.get("format", FORMAT) != FORMAT:
@@ -297,7 +302,9 @@ def design_from_dict(data: dict) -> Design:
         raise DesignError("title", title, "must be text")
     tol = parse_tolerances(data.get("tolerances", {}), len(banks))  # [tolerances]: loopkit.tolerances
     losses = losses_from_table(data.get("losses", {}))
-    return Design(stage, operating, sensing, modulator, compensator, title, control, tolerances=tol, losses=losses)
+    digital = _section(Digital, _table(data.get("digital", {}), "digital"), "digital")
+    return Design(stage, operating, sensing, modulator, compensator, title, control, tolerances=tol, losses=losses,
+                  digital=digital)
 
 
 def _part_unit(designator: str) -> str | None:
@@ -595,6 +602,9 @@ def design_to_dict(design: Design, ranges: bool = True) -> dict:
             if getattr(design.control, f.name) is not None}}),
         **({} if design.tolerances == Tolerances() else {"tolerances": tolerances_to_dict(design.tolerances)}),
         **({} if design.losses == Losses() else {"losses": losses_to_table(design.losses)}),
+        **({} if design.digital == Digital() and design.control.scheme != "digital" else {"digital": {
+            f.name: getattr(design.digital, f.name) for f in fields(Digital)
+            if getattr(design.digital, f.name) is not None}}),
     }
 
 
@@ -640,7 +650,7 @@ def _dumps(data: dict) -> str:
     for key in ("format", "version", "title"):
         lines.append(f"{key} = {_toml_value(data[key])}")
     lines.append("")
-    for key in ("stage", "operating", "sensing", "modulator", "compensator", "control", "losses"):
+    for key in ("stage", "operating", "sensing", "modulator", "compensator", "control", "digital", "losses"):
         if key in data:
             table(key, data[key])
     if "tolerances" in data:

@@ -11,6 +11,8 @@ import io
 import json
 import math
 
+import numpy as np
+
 from . import __version__, eseries
 from .loop import CAUTION, LoopResult
 from .margins import gm_state
@@ -109,6 +111,8 @@ def results_document(result: LoopResult) -> dict:
             for f in result.findings
         ],
     }
+    if result.digital is not None:
+        doc["digital"] = _digital_document(result.digital)
     m, mx = result.margins, result.margins_exact
     for k in range(st.n_corners):
         corner = {
@@ -127,6 +131,25 @@ def results_document(result: LoopResult) -> dict:
             })
         doc["corners"].append(corner)
     return doc
+
+
+def _digital_document(dig) -> dict:
+    """The digital controller as plain floats: the difference equation, sampling, ADC and PWM scaling."""
+    return {
+        "form": dig.form, "method": dig.method, "ts_s": float(dig.ts_s), "fs_hz": float(dig.fs_hz),
+        "b": [float(x) for x in dig.b], "a": [float(x) for x in dig.a],
+        "adc_bits": int(dig.adc_bits), "adc_range_v": float(dig.adc_range_v), "adc_lsb_v": float(dig.adc_lsb_v),
+        "pwm_counts": float(dig.pwm_counts), "pwm_steps": float(dig.pwm_steps), "dither_bits": int(dig.dither_bits),
+        "duty_min": float(dig.duty_min), "duty_max": float(dig.duty_max),
+        "word_length": dig.word_length, "frac_bits": dig.frac_bits,
+        "corners": [{"delay_s": float(dig.delay_s[k]), "delay_phase_deg": _num(dig.delay_phase_deg[k]),
+                     "sensing_gain": float(dig.sensing_gain[k]), "adc_lsb_out_v": float(dig.adc_lsb_out_v[k]),
+                     "gvd_dc_v": float(dig.gvd_dc[k]), "duty": float(dig.duty[k])} for k in range(dig.delay_s.size)],
+        "designs": {m: {"b": [] if d.controller is None else [float(x) for x in d.controller.difference_equation(0)[0]],
+                        "a": [] if d.controller is None else [float(x) for x in d.controller.difference_equation(0)[1]],
+                        "worst_pm_deg": None if d.margins is None else _num(np.nanmin(d.margins.pm_deg)),
+                        "reason": d.reason} for m, d in dig.designs.items()},
+    }
 
 
 def results_json(result: LoopResult) -> str:

@@ -106,6 +106,10 @@ class LoopSession:
         self.r1 = _default_r1(design, self.ctx)
         self._searched: dict = {}  # targets (fc left out) -> last searched placement, relative to fc
         self._rhp_min = np.nanmin(self.stage.f_rhp_hz) if np.any(np.isfinite(self.stage.f_rhp_hz)) else np.nan
+        if self.scheme.sampled is not None:  # digital control: the loop in z, analysed up to fs/2
+            from .digital_loop import prepare
+
+            prepare(self, f_hz)
 
     # ------------------------------------------------------------------ public
     def run(self, targets: Targets | None = None, preview: bool = False) -> LoopResult:
@@ -124,6 +128,10 @@ class LoopSession:
         CLI's answer), so a drag ends with a run without it.
         """
         comp = self.design.compensator
+        if self.scheme.sampled is not None:  # digital control: the controller is designed in z
+            from .digital_loop import run as run_digital
+
+            return run_digital(self, targets or Targets.from_design(self.design))
         if targets is None and comp.parts:
             return self._analyse_given(Targets.from_design(self.design))
         targets = targets or Targets.from_design(self.design)

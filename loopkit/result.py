@@ -118,6 +118,9 @@ class LoopResult:
     design_corner: int
     findings: tuple = field(default_factory=tuple)
     open_loop: OpenLoop | None = field(default=None, repr=False)
+    #: The digital side (:class:`loopkit.digital_loop.DigitalLoop`) when the control scheme is digital; then
+    #: ``compensator`` and ``loop`` are :class:`loopkit.discrete.Discrete` (T = Tu(z) C(z)) and there are no parts.
+    digital: object = None
 
     @property
     def met(self) -> bool:

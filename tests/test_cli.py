@@ -278,6 +278,14 @@ def test_design_text_matches_loop_result(capsys, sample_path):
         assert row[2] == format_value(value, _part_unit(name))
     # margins table: one row per corner, snapped then exact figures, worst corner marked
     start = next(i for i, line in enumerate(lines) if line.startswith("Loop gain at every corner"))
+    if result.digital is not None:  # a digital loop: no parts; one set of margins (# ... fc PM GM Stable)
+        m = result.margins
+        for k, line in enumerate(lines[start + 3 : start + 3 + result.stage.n_corners]):
+            cells = line.split()
+            assert cells[0].rstrip("*") == str(k) and ("*" in cells[0]) == (k == result.worst_corner)
+            assert cells[-4:] == [_fmt(m.fc_hz[k]), f"{m.pm_deg[k]:.1f}", f"{m.gm_db[k]:.1f}",
+                                  "yes" if m.stable[k] else "NO"]
+        return
     rows = [line.split() for line in lines[start + 4 : start + 4 + result.stage.n_corners]]
     m, mx = result.margins, result.margins_exact
     for k, cells in enumerate(rows):

@@ -17,6 +17,7 @@ __all__ = ["SCHEME_MODULE_NAMES", "SchemeLoop", "scheme_module"]
 SCHEME_MODULE_NAMES = {
     "voltage-mode": "voltage_mode",
     "peak-current": "peak_current",
+    "digital": "digital",
 }
 
 

@@ -33,6 +33,10 @@ class SchemeLoop:
     figures : dict of str -> ndarray (corners,)
         The scheme's own per-corner figures, e.g. ``fm`` (modulator gain, 1/V).
     findings : tuple of Finding
+    sampled : Discrete or None
+        A sampled scheme (digital control): ``tu`` behind the hold and the loop delay, exactly in z
+        (ADC counts per PWM count); the loop gain is then ``T = sampled C(z)`` with the digital
+        controller ``C``.  None for continuous schemes.
     """
 
     tu: Rational
@@ -40,3 +44,4 @@ class SchemeLoop:
     zout: Rational
     figures: dict = field(default_factory=dict)
     findings: tuple = ()
+    sampled: object = None
