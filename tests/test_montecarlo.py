@@ -287,3 +287,20 @@ def test_dask_processes_and_process_pool_give_the_single_process_results(buck_st
     pool = monte_carlo(buck_study, 240, random_state=6, workers=2, budget_bytes=2**20)
     np.testing.assert_array_equal(pool.margins.pm_deg, ours.margins.pm_deg)
     np.testing.assert_array_equal(pool.margins.fc_hz, ours.margins.fc_hz)
+
+
+def test_temperature_corners_are_more_corners_of_each_draw():
+    """A draw at a temperature corner is the one-design run of the drawn values times the corner's factors."""
+    d = load_design(SAMPLES + "buck_24v_3v3.toml")
+    tol = parse_tolerances({"inductance": "20%", "output_caps": [{"capacitance": "10%"}],
+                            "temperature": [{"name": "cold", "capacitance": 0.8, "esr": 2.0},
+                                            {"name": "hot", "inductance": 0.9}]}, 1)
+    study = prepare_study(replace(d, tolerances=tol))
+    mc = monte_carlo(study, 5, random_state=2)
+    n_c = study.n_corners
+    assert mc.margins.pm_deg.shape == (5, 2 * n_c)
+    for t in range(2):
+        v = mc.values[1] * study.factors[t]
+        m = LoopSession(draw_design(study.design, study.quantities, v), f_hz=study.f_hz).run().margins
+        np.testing.assert_allclose(mc.margins.pm_deg[1, t * n_c:(t + 1) * n_c], m.pm_deg, atol=1e-9)
+    assert study.factors[0, [q.key for q in study.quantities].index("output_caps[0].capacitance")] == 0.8
