@@ -198,7 +198,7 @@ def _spread(value, where: str, unit: str, default_dist: str, default_sigmas: flo
     if not (np.isfinite(lo) and np.isfinite(hi)):
         raise DesignError(f"{where}.min", value["min"], "must be finite")
     if lo < 0 or (lo == 0 and not nonneg):
-        raise DesignError(f"{where}.min", value["min"], ">= 0" if nonneg else "must be > 0")
+        raise DesignError(f"{where}.min", value["min"], "must be >= 0" if nonneg else "must be > 0")
     if not hi >= lo:
         raise DesignError(f"{where}.max", value["max"], f"must be >= min ({format_value(lo, unit)})")
     return Spread(low=lo, high=hi, distribution=dist, sigmas=sigmas)
@@ -419,16 +419,17 @@ def quantities(design, tolerances: Tolerances | None = None, parts: dict | None 
     for key, spread in tol.entries.items():
         path, unit = QUANTITIES[key]
         nominal = _field_value(design, path)
+        shown = f"{spread.percent:g}%" if spread.percent is not None else f"{spread.low:g} .. {spread.high:g}"
         if key == "sense_gain" and design.control.scheme != "peak-current":
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", "applies to peak current mode only")
+            raise DesignError(f"tolerances.{key}", shown, "applies to peak current mode only")
         if key == "ramp" and design.control.scheme != "voltage-mode":
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", "applies to voltage mode only")
+            raise DesignError(f"tolerances.{key}", shown, "applies to voltage mode only")
         if key in ("ctr", "c_opto") and design.compensator.network != "opto-type2":
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", "applies to the opto-type2 network only")
+            raise DesignError(f"tolerances.{key}", shown, "applies to the opto-type2 network only")
         if key == "gbw" and not nominal:
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", "the design's amplifier has no finite gbw")
+            raise DesignError(f"tolerances.{key}", shown, "the design's amplifier has no finite gbw")
         if nominal is None:
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", f"the design has no {path}")
+            raise DesignError(f"tolerances.{key}", shown, f"the design has no {path}")
         lo, hi = spread.limits(nominal)
         out.append(Quantity(key, nominal, lo, hi, spread.distribution, spread.sigmas, unit))
     for i, bank in enumerate(design.stage.output_caps):
