@@ -123,3 +123,16 @@ inductance = 0.9
         with pytest.raises(DesignError) as err:
             loads_design(_with("[[tolerances.temperature]]\n" + bad + "\n"))
         assert err.value.field == field
+
+
+def test_design_write_keeps_the_tolerances(tmp_path, capsys):
+    """``loopkit design --write`` changes only the parts: the [tolerances] table reads back the same."""
+    from loopkit.cli import main
+
+    path = tmp_path / "d.toml"
+    path.write_text(_with('[tolerances]\ninductance = "20%"\n\n[[tolerances.temperature]]\nname = "cold"\n'
+                          'capacitance = 0.8\n'))
+    before = load_design(path).tolerances
+    assert main(["design", str(path), "--write"]) == 0
+    after = load_design(path)
+    assert after.tolerances == before and after.compensator.parts
