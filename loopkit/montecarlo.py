@@ -34,7 +34,7 @@ from .errors import DesignError
 from .loop import LoopSession
 from .result import Targets
 from .rows import MEMORY_BUDGET_BYTES, RowMargins, chunk_margins, draws_per_chunk, row_loop, row_margins
-from .tolerances import Tolerances, draw_values, quantities
+from .tolerances import Tolerances, draw_values, quantities, temperature_factors
 
 __all__ = [
     "MAX_VERTEX_QUANTITIES",
@@ -49,6 +49,7 @@ __all__ = [
     "monte_carlo",
     "prepare_study",
     "sensitivity",
+    "study_margins",
     "wilson_interval",
     "worst_case",
     "worst_corner",
@@ -80,6 +81,12 @@ class Study:
     targets : Targets
     nominal : RowMargins
         Margins of the nominal values (one draw).
+    factors : ndarray (temperatures, quantities)
+        Each temperature corner's multipliers on the values (one row of ones without corners);
+        a draw's margins cover every operating corner at every temperature corner, temperature
+        outermost: column ``t * n_corners + c``.
+    temperatures : tuple of str
+        The temperature corners' names (empty without).
     """
 
     design: Design
@@ -87,6 +94,8 @@ class Study:
     f_hz: np.ndarray
     targets: Targets
     nominal: RowMargins
+    factors: np.ndarray = None
+    temperatures: tuple = ()
 
     @property
     def nominal_values(self) -> np.ndarray:
@@ -95,6 +104,29 @@ class Study:
     @property
     def n_corners(self) -> int:
         return self.design.operating.n_corners
+
+    def expand(self, values: np.ndarray) -> np.ndarray:
+        """Draws (n, q) as rows at every temperature corner, (n * temperatures, q), draw outermost."""
+        values = np.atleast_2d(np.asarray(values, float))
+        return (values[:, None, :] * self.factors[None, :, :]).reshape(-1, values.shape[1])
+
+
+def _fold(m: RowMargins, n_draws: int) -> RowMargins:
+    """Margins of (draw, temperature) rows as (draws, temperatures x corners)."""
+    return RowMargins(**{k: getattr(m, k).reshape(n_draws, -1) for k in RowMargins.__annotations__})
+
+
+def _chunk(design, qs, values, f_hz, factors) -> RowMargins:
+    """One chunk of draws at every temperature corner (a pure function: runs in any process)."""
+    expanded = (values[:, None, :] * factors[None, :, :]).reshape(-1, values.shape[1])
+    return _fold(chunk_margins(design, qs, expanded, f_hz), values.shape[0])
+
+
+def study_margins(study: Study, values: np.ndarray, budget_bytes: int = MEMORY_BUDGET_BYTES) -> RowMargins:
+    """Margins of draws at every operating and temperature corner, (draws, temperatures x corners)."""
+    values = np.atleast_2d(np.asarray(values, float))
+    return _fold(row_margins(study.design, study.quantities, study.expand(values), study.f_hz, budget_bytes),
+                 values.shape[0])
 
 
 def prepare_study(design: Design, tolerances: Tolerances | None = None,
@@ -131,8 +163,11 @@ def prepare_study(design: Design, tolerances: Tolerances | None = None,
     qs = quantities(fixed, fixed.tolerances, comp.parts)
     lo, hi = session.f_hz[0], session.f_hz[-1]
     f_hz = np.geomspace(lo, hi, max(16, int(np.ceil(points_per_decade * np.log10(hi / lo))) + 1))
-    nominal = row_margins(fixed, qs, np.array([[q.nominal for q in qs]]), f_hz)
-    return Study(fixed, qs, f_hz, Targets.from_design(fixed), nominal)
+    factors = temperature_factors(qs, fixed.tolerances)
+    names = tuple(c.name for c in fixed.tolerances.temperatures)
+    values = np.array([[q.nominal for q in qs]])
+    nominal = _fold(row_margins(fixed, qs, (values[:, None, :] * factors[None]).reshape(-1, len(qs)), f_hz), 1)
+    return Study(fixed, qs, f_hz, Targets.from_design(fixed), nominal, factors, names)
 
 
 # ------------------------------------------------------------------ targets and worst corners
@@ -287,7 +322,8 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
         raise DesignError("draws", n_draws, "must be a whole number >= 1")
     qs = study.quantities
     values = draw_values(qs, int(n_draws), np.random.default_rng(random_state))
-    step = draws_per_chunk(study.n_corners, study.f_hz.size, budget_bytes)
+    n_t = study.factors.shape[0]
+    step = draws_per_chunk(study.n_corners * n_t, study.f_hz.size, budget_bytes)
     if client is not None:
         workers = max(workers, len(client.scheduler_info().get("workers", {})) or 1)
     if workers > 1:  # several chunks per worker keep the pool busy
@@ -296,7 +332,7 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
     done: list[RowMargins] = []
     try:
         if client is not None:
-            futures = [client.submit(chunk_margins, study.design, qs, values[a:b], study.f_hz, pure=False)
+            futures = [client.submit(_chunk, study.design, qs, values[a:b], study.f_hz, study.factors, pure=False)
                        for a, b in spans]
             try:
                 for (a, b), fut in zip(spans, futures):
@@ -308,12 +344,13 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
                 raise
         elif workers <= 1:
             for a, b in spans:
-                done.append(chunk_margins(study.design, qs, values[a:b], study.f_hz))
+                done.append(_chunk(study.design, qs, values[a:b], study.f_hz, study.factors))
                 if progress is not None:
                     progress(b, n_draws)
         else:
             with ProcessPoolExecutor(max_workers=workers) as pool:
-                futures = [pool.submit(chunk_margins, study.design, qs, values[a:b], study.f_hz) for a, b in spans]
+                futures = [pool.submit(_chunk, study.design, qs, values[a:b], study.f_hz, study.factors)
+                           for a, b in spans]
                 try:
                     for (a, b), fut in zip(spans, futures):
                         done.append(fut.result())
@@ -326,7 +363,8 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
     except KeyboardInterrupt:
         pass
     n_done = sum(m.n_draws for m in done)
-    empty = RowMargins(*(np.zeros((0, study.n_corners), dt) for dt in (float, float, float, int, bool, bool, bool)))
+    empty = RowMargins(*(np.zeros((0, study.n_corners * n_t), dt) for dt in (float, float, float, int, bool, bool,
+                                                                               bool)))
     margins = RowMargins.concatenate(done) if done else empty
     return MonteCarloResult(qs, values[:n_done], margins, meets_targets(margins, study.targets), int(random_state),
                             int(n_draws), confidence)
@@ -352,7 +390,7 @@ def loop_envelope(study: Study, values: np.ndarray, f_hz: np.ndarray | None = No
         loop's continuous phase (:meth:`loopkit.result.OpenLoop.with_network`).
     """
     f = study.f_hz if f_hz is None else np.asarray(f_hz, float)
-    values = np.atleast_2d(np.asarray(values, float))
+    values = study.expand(values)
     step = draws_per_chunk(study.n_corners, f.size, budget_bytes)
     lo_m = np.full(f.size, np.inf)
     hi_m = np.full(f.size, -np.inf)
@@ -404,7 +442,7 @@ def sensitivity(study: Study, mc: MonteCarloResult | None = None) -> list[Sensit
             rows.append(v)
     if not rows:
         return []
-    pm = worst_corner(row_margins(study.design, qs, np.array(rows), study.f_hz))["pm_deg"].reshape(-1, 2)
+    pm = worst_corner(study_margins(study, np.array(rows)))["pm_deg"].reshape(-1, 2)
     pm0 = float(worst_corner(study.nominal)["pm_deg"][0])
     rho = np.full(len(qs), np.nan)
     if mc is not None and mc.n > 2:
@@ -472,7 +510,7 @@ def worst_case(study: Study, rounds: int = 3, points: int = 9) -> WorstCase:
             v[j] = highs[j] if base[j] == lows[j] else lows[j]
             flips.append(v)
         verts = np.array(flips)
-    pm = worst_corner(row_margins(study.design, qs, verts, study.f_hz))["pm_deg"]
+    pm = worst_corner(study_margins(study, verts))["pm_deg"]
     evaluations = len(verts)
     best = verts[int(np.argmin(pm))].copy()
     best_pm = float(np.min(pm))
@@ -483,12 +521,12 @@ def worst_case(study: Study, rounds: int = 3, points: int = 9) -> WorstCase:
                 continue
             trial = np.repeat(best[None, :], points, axis=0)
             trial[:, j] = np.linspace(lows[j], highs[j], points)
-            pm = worst_corner(row_margins(study.design, qs, trial, study.f_hz))["pm_deg"]
+            pm = worst_corner(study_margins(study, trial))["pm_deg"]
             evaluations += points
             k = int(np.argmin(pm))
             if pm[k] < best_pm - 1e-9:
                 best, best_pm, improved = trial[k].copy(), float(pm[k]), True
         if not improved:
             break
-    margins = row_margins(study.design, qs, best[None, :], study.f_hz)
+    margins = study_margins(study, best[None, :])
     return WorstCase(best, best_pm, margins, len(verts), evaluations)

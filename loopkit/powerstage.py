@@ -165,9 +165,12 @@ def _check_dcm_point(design: Design, dp, vin: np.ndarray, load: np.ndarray) -> N
     if np.any(bad):
         k = int(np.nonzero(bad)[0][0])
         stage = design.stage
+        lh = np.asarray(stage.inductance, float)  # an array over rows in a tolerance study
+        shown = format_value(float(lh), "H") if lh.ndim == 0 else (
+            f"{format_value(float(lh.min()), 'H')} .. {format_value(float(lh.max()), 'H')} (the draws)")
         raise DesignError(
             "stage.inductance",
-            format_value(stage.inductance, "H"),
+            shown,
             f"at {corner_label(vin[k], load[k])} the {stage.topology} in DCM has no operating point: the current"
             " pulse through this inductance drops more across the resistances than the input gives; raise the"
             " inductance (or fsw), or lower the resistances",

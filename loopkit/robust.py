@@ -29,10 +29,10 @@ import numpy as np
 
 from .errors import DesignError
 from .loop import LoopSession
-from .montecarlo import Study, worst_corner
+from .montecarlo import Study, study_margins, worst_corner
 from .networks import network_module
 from .rational import Rational
-from .rows import draw_design, row_margins, row_open_loop
+from .rows import draw_design, row_open_loop
 from .worst_corner import search_placement
 
 __all__ = ["FC_LIFTS", "MAX_VERTEX_PLANT", "N_CANDIDATES", "RobustResult", "robust_synthesis", "scenario_values"]
@@ -114,7 +114,7 @@ def _score(study: Study, parts: dict, scenarios: np.ndarray) -> tuple[int, float
     for j, q in enumerate(study.quantities):
         if q.key.startswith("parts."):
             values[:, j] = parts[q.key[6:]]
-    m = row_margins(design, qs, values, study.f_hz)
+    m = study_margins(replace(study, design=design, quantities=qs), values)
     t = study.targets
     lo, hi = t.fc_hz / t.fc_band, t.fc_hz * t.fc_band
     with np.errstate(invalid="ignore"):
@@ -148,7 +148,7 @@ def robust_synthesis(study: Study) -> RobustResult:
         free = replace(at_nominal.compensator, parts={})
         session = LoopSession(replace(at_nominal, compensator=free))
         # the design's own dense grid: the search interpolates the loop, and a sharp double pole needs it
-        open_loop, dcm = row_open_loop(design, study.quantities, scenarios, session.f_hz)
+        open_loop, dcm = row_open_loop(design, study.quantities, study.expand(scenarios), session.f_hz)
         n = open_loop.tu.n_corners
         integrator = Rational.from_factors(-1.0, (), [(0.0, 1.0)]).broadcast(n)
         _, _, t0, t0_phase = open_loop.with_network(integrator, session.f_hz)

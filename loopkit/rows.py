@@ -233,7 +233,7 @@ def row_open_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray) -> t
     quantities in ``qs`` play no part here (robust synthesis varies the plant and searches the network)."""
     values = np.atleast_2d(np.asarray(values, float))
     keys = [q.key for q in qs]
-    if vectorised(design, keys) or (design.stage.topology != "four-switch-buck-boost" and "sense_gain" not in keys):
+    if design.stage.topology != "four-switch-buck-boost" and "sense_gain" not in keys:  # the plant broadcasts
         row, _ = _row_design(design, qs, values)
         stage = analyse_stage(row, findings=False)
         tu = scheme_module(design.control.scheme).uncompensated(row, stage, loop_only=True).tu

@@ -35,10 +35,15 @@ def study_text(study: Study, mc: MonteCarloResult | None, sens: list[Sensitivity
     t = study.targets
     lines = [f"tolerance study of {file or study.design.title}",
              wrap_note(f"targets: PM >= {t.pm_deg:g} deg, GM >= {t.gm_db:g} dB, fc {_value(t.fc_hz, 'Hz')}"
-                       f" within x{t.fc_band:g} (CCM corners), at each of {study.n_corners} corners"),
+                       f" within x{t.fc_band:g} (CCM corners), at each of {study.n_corners} corners"
+                       + (f" x {len(study.temperatures)} temperatures" if study.temperatures else "")),
              wrap_note("parts: " + ", ".join(f"{k} {_value(v, 'Ω' if k.startswith('R') else 'F')}"
                                              for k, v in sorted(study.design.compensator.parts.items()))),
              ""]
+    if study.temperatures:
+        factors = study.design.tolerances.temperatures
+        lines.insert(-1, wrap_note("temperature corners (every draw at each, values times): " + "; ".join(
+            f"{c.name}: " + (", ".join(f"{k} x{v:g}" for k, v in c.factors.items()) or "as drawn") for c in factors)))
     rows = [[q.key, _value(q.nominal, q.unit), _value(q.low, q.unit), _value(q.high, q.unit),
              q.distribution if q.distribution == "uniform" else f"normal {q.sigmas:g}s"] for q in study.quantities]
     lines.append(format_table([Column("quantity", align="<"), Column("nominal"), Column("low"), Column("high"),
@@ -115,6 +120,7 @@ def study_document(study: Study, mc: MonteCarloResult | None, sens: list[Sensiti
                         "distribution": q.distribution, "sigmas": q.sigmas, "unit": q.unit}
                        for q in study.quantities],
         "nominal_worst_pm_deg": _num(worst_corner(study.nominal)["pm_deg"][0]),
+        "temperatures": [{"name": c.name, "factors": dict(c.factors)} for c in study.design.tolerances.temperatures],
     }
     if mc is not None:
         w = mc.worst

@@ -19,6 +19,11 @@ The design file's ``[tolerances]`` table (all optional)::
     [tolerances.parts]              # overrides of the E-series default, per designator
     C1 = "5%"
 
+    [[tolerances.temperature]]      # temperature corners: every draw is also analysed at each
+    name = "-40 C"                  # the factors multiply the drawn values (your data: loopkit has none)
+    capacitance = 0.85              # every bank's capacitance (esr likewise); or any key above
+    esr = 3.0
+
 An entry is ``"P%"`` (plus or minus P per cent of the design's value), or a table with
 ``percent`` or with ``min`` and ``max`` (values in the quantity's unit), and optionally its own
 ``distribution`` and ``sigmas``.  A normal distribution is truncated at the limits (the study's
@@ -49,12 +54,15 @@ from .units import format_value, parse_value
 __all__ = [
     "DISTRIBUTIONS",
     "QUANTITIES",
+    "TEMPERATURE_KEYS",
     "Quantity",
     "Spread",
+    "TemperatureCorner",
     "Tolerances",
     "draw_values",
     "parse_tolerances",
     "quantities",
+    "temperature_factors",
     "tolerances_to_dict",
     "tolerances_toml",
 ]
@@ -100,6 +108,19 @@ class Spread:
         return float(self.low), float(self.high)
 
 
+#: Keys a temperature corner may scale: the scalar quantities and every bank's capacitance and ESR.
+TEMPERATURE_KEYS = (*QUANTITIES, "capacitance", "esr")
+_FACTOR = (0.01, 100.0)
+
+
+@dataclass(frozen=True)
+class TemperatureCorner:
+    """A named temperature corner: factors (key of :data:`TEMPERATURE_KEYS` -> multiplier) on the values."""
+
+    name: str
+    factors: dict = field(default_factory=dict)
+
+
 @dataclass(frozen=True)
 class Tolerances:
     """The ``[tolerances]`` table: entries by quantity key, per-bank entries and deratings.
@@ -127,10 +148,12 @@ class Tolerances:
     parts_from_series: bool = True
     distribution: str = "uniform"
     sigmas: float = 3.0
+    temperatures: tuple = ()
 
     @property
     def empty(self) -> bool:
-        return not (self.entries or any(self.banks) or self.parts) and not any(d != 1.0 for d in self.derating)
+        return (not (self.entries or any(self.banks) or self.parts or self.temperatures)
+                and not any(d != 1.0 for d in self.derating))
 
 
 @dataclass(frozen=True)
@@ -175,7 +198,7 @@ def _spread(value, where: str, unit: str, default_dist: str, default_sigmas: flo
     if not (np.isfinite(lo) and np.isfinite(hi)):
         raise DesignError(f"{where}.min", value["min"], "must be finite")
     if lo < 0 or (lo == 0 and not nonneg):
-        raise DesignError(f"{where}.min", value["min"], ">= 0" if nonneg else "must be > 0")
+        raise DesignError(f"{where}.min", value["min"], "must be >= 0" if nonneg else "must be > 0")
     if not hi >= lo:
         raise DesignError(f"{where}.max", value["max"], f"must be >= min ({format_value(lo, unit)})")
     return Spread(low=lo, high=hi, distribution=dist, sigmas=sigmas)
@@ -223,7 +246,8 @@ def parse_tolerances(table, n_banks: int) -> Tolerances:
     where = "tolerances"
     if not isinstance(table, dict):
         raise DesignError(where, table, "must be a table ([tolerances])")
-    allowed = set(QUANTITIES) | {"distribution", "sigmas", "output_caps", "parts", "parts_from_series"}
+    allowed = set(QUANTITIES) | {"distribution", "sigmas", "output_caps", "parts", "parts_from_series",
+                                 "temperature"}
     for key in table:
         if key not in allowed:
             raise DesignError(f"{where}.{key}", table[key], f"unknown key; allowed here: {', '.join(sorted(allowed))}")
@@ -270,7 +294,51 @@ def parse_tolerances(table, n_banks: int) -> Tolerances:
         unit = "ohm" if is_resistor(name) else "F" if is_capacitor(name) else ""
         parts[name] = _spread(value, f"{where}.parts.{name}", unit, dist, sigmas, False)
     return Tolerances(entries=entries, banks=tuple(banks), derating=tuple(derating), parts=parts,
-                      parts_from_series=from_series, distribution=dist, sigmas=sigmas)
+                      parts_from_series=from_series, distribution=dist, sigmas=sigmas,
+                      temperatures=_temperatures(table.get("temperature", [])))
+
+
+def _temperatures(raw) -> tuple:
+    where = "tolerances.temperature"
+    if isinstance(raw, dict):
+        raw = [raw]
+    if not isinstance(raw, list):
+        raw = [raw]
+    out, names = [], set()
+    for i, corner in enumerate(raw):
+        w = f"{where}[{i}]"
+        if not isinstance(corner, dict):
+            raise DesignError(w, corner, "must be a [[tolerances.temperature]] table with name and factors")
+        name = corner.get("name")
+        if not isinstance(name, str) or not name.strip():
+            raise DesignError(f"{w}.name", name if name is not None else "(missing)", "give the corner a name (text)")
+        if name in names:
+            raise DesignError(f"{w}.name", name, "each temperature corner needs its own name")
+        names.add(name)
+        factors = {}
+        for key, value in corner.items():
+            if key == "name":
+                continue
+            if key not in TEMPERATURE_KEYS:
+                raise DesignError(f"{w}.{key}", value, f"unknown key; allowed here: name, {', '.join(TEMPERATURE_KEYS)}")
+            if not isinstance(value, (int, float)) or isinstance(value, bool) or not _FACTOR[0] <= value <= _FACTOR[1]:
+                raise DesignError(f"{w}.{key}", value, f"must be a factor from {_FACTOR[0]:g} to {_FACTOR[1]:g}")
+            factors[key] = float(value)
+        out.append(TemperatureCorner(name, factors))
+    return tuple(out)
+
+
+def temperature_factors(qs: list[Quantity], tol: Tolerances) -> np.ndarray:
+    """Multipliers of each quantity at each temperature corner, (corners, quantities); one row of ones
+    when the design has none.  ``capacitance`` and ``esr`` apply to every bank."""
+    if not tol.temperatures:
+        return np.ones((1, len(qs)))
+    out = np.ones((len(tol.temperatures), len(qs)))
+    for t, corner in enumerate(tol.temperatures):
+        for j, q in enumerate(qs):
+            key = q.key.rpartition(".")[2] if q.key.startswith("output_caps[") else q.key
+            out[t, j] = corner.factors.get(key, 1.0)
+    return out
 
 
 def _spread_to_dict(s: Spread, tol: Tolerances):
@@ -306,6 +374,8 @@ def tolerances_to_dict(tol: Tolerances) -> dict:
         out["output_caps"] = banks
     if tol.parts:
         out["parts"] = {k: _spread_to_dict(s, tol) for k, s in tol.parts.items()}
+    if tol.temperatures:
+        out["temperature"] = [{"name": c.name, **c.factors} for c in tol.temperatures]
     return out
 
 
@@ -349,16 +419,17 @@ def quantities(design, tolerances: Tolerances | None = None, parts: dict | None 
     for key, spread in tol.entries.items():
         path, unit = QUANTITIES[key]
         nominal = _field_value(design, path)
+        shown = f"{spread.percent:g}%" if spread.percent is not None else f"{spread.low:g} .. {spread.high:g}"
         if key == "sense_gain" and design.control.scheme != "peak-current":
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", "applies to peak current mode only")
+            raise DesignError(f"tolerances.{key}", shown, "applies to peak current mode only")
         if key == "ramp" and design.control.scheme != "voltage-mode":
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", "applies to voltage mode only")
+            raise DesignError(f"tolerances.{key}", shown, "applies to voltage mode only")
         if key in ("ctr", "c_opto") and design.compensator.network != "opto-type2":
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", "applies to the opto-type2 network only")
+            raise DesignError(f"tolerances.{key}", shown, "applies to the opto-type2 network only")
         if key == "gbw" and not nominal:
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", "the design's amplifier has no finite gbw")
+            raise DesignError(f"tolerances.{key}", shown, "the design's amplifier has no finite gbw")
         if nominal is None:
-            raise DesignError(f"tolerances.{key}", f"{spread.percent}%", f"the design has no {path}")
+            raise DesignError(f"tolerances.{key}", shown, f"the design has no {path}")
         lo, hi = spread.limits(nominal)
         out.append(Quantity(key, nominal, lo, hi, spread.distribution, spread.sigmas, unit))
     for i, bank in enumerate(design.stage.output_caps):
@@ -438,7 +509,7 @@ def _inline(value) -> str:
 def tolerances_toml(table: dict) -> str:
     """TOML text of the table :func:`tolerances_to_dict` gives (inline tables for min/max entries)."""
     lines = ["[tolerances]"]
-    lines += [f"{k} = {_inline(v)}" for k, v in table.items() if k not in ("output_caps", "parts")]
+    lines += [f"{k} = {_inline(v)}" for k, v in table.items() if k not in ("output_caps", "parts", "temperature")]
     lines.append("")
     for bank in table.get("output_caps", []):
         lines.append("[[tolerances.output_caps]]")
@@ -448,4 +519,14 @@ def tolerances_toml(table: dict) -> str:
         lines.append("[tolerances.parts]")
         lines += [f"{k} = {_inline(v)}" for k, v in table["parts"].items()]
         lines.append("")
+    for corner in table.get("temperature", []):
+        lines.append("[[tolerances.temperature]]")
+        lines += [f'name = {_toml_text(corner["name"])}'] + [f"{k} = {v!r}" for k, v in corner.items() if k != "name"]
+        lines.append("")
     return "\n".join(lines)
+
+
+def _toml_text(text: str) -> str:
+    import json
+
+    return json.dumps(text, ensure_ascii=False)  # a JSON string is a TOML basic string

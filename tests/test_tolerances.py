@@ -94,3 +94,45 @@ def test_uniform_and_normal_draws_follow_their_laws():
     assert x[:, 1].min() >= 0.7 and x[:, 1].max() <= 1.3
     again = draw_values(qs, 20000, np.random.default_rng(7))
     np.testing.assert_array_equal(x, again)  # the same random state gives the same draws
+
+
+def test_temperature_corners_round_trip_and_errors():
+    text = _with('''[tolerances]
+inductance = "10%"
+
+[[tolerances.temperature]]
+name = "-40 C"
+capacitance = 0.85
+esr = 3.0
+
+[[tolerances.temperature]]
+name = "105 C"
+inductance = 0.9
+''')
+    d = loads_design(text)
+    assert [c.name for c in d.tolerances.temperatures] == ["-40 C", "105 C"]
+    assert loads_design(dumps_design(d)) == d
+    from loopkit.tolerances import temperature_factors
+
+    qs = quantities(d, parts={})
+    f = temperature_factors(qs, d.tolerances)
+    assert f.shape == (2, len(qs)) and f[1, 0] == 0.9 and f[0, 0] == 1.0
+    for bad, field in (('name = "x"\ncapacitance = 0', "tolerances.temperature[0].capacitance"),
+                       ('capacitance = 0.9', "tolerances.temperature[0].name"),
+                       ('name = "x"\ninductor = 0.9', "tolerances.temperature[0].inductor")):
+        with pytest.raises(DesignError) as err:
+            loads_design(_with("[[tolerances.temperature]]\n" + bad + "\n"))
+        assert err.value.field == field
+
+
+def test_design_write_keeps_the_tolerances(tmp_path, capsys):
+    """``loopkit design --write`` changes only the parts: the [tolerances] table reads back the same."""
+    from loopkit.cli import main
+
+    path = tmp_path / "d.toml"
+    path.write_text(_with('[tolerances]\ninductance = "20%"\n\n[[tolerances.temperature]]\nname = "cold"\n'
+                          'capacitance = 0.8\n'))
+    before = load_design(path).tolerances
+    assert main(["design", str(path), "--write"]) == 0
+    after = load_design(path)
+    assert after.tolerances == before and after.compensator.parts
