@@ -55,7 +55,11 @@ class SteadyState:
     ``vout_v`` output mean; ``ripple_pp_v`` output peak-to-peak in a period; ``il_peak_a``,
     ``il_valley_a``, ``il_avg_a`` inductor current (flyback: magnetising, primary);
     ``duty``; ``dcm`` the current stopped at zero in the period; ``settled`` the state repeats
-    after one period to ``residual`` (relative) and stays there; ``z`` the state at a clock edge.
+    after one period to ``residual`` (relative), stays there, and is stable; ``z`` the state at a
+    clock edge; ``multipliers`` (corners, states) the eigenvalues of the one-period map there, largest
+    magnitude first (the periodic orbit's Floquet multipliers: one of magnitude 1 or more means the
+    orbit is unstable; near or below -1, subharmonic oscillation, as in peak current mode without
+    enough slope above D = 0.5).
     """
 
     vout_v: np.ndarray
@@ -69,6 +73,7 @@ class SteadyState:
     residual: np.ndarray
     z: np.ndarray
     corners: np.ndarray
+    multipliers: np.ndarray
 
 
 def _scales(setup: Setup, corners) -> np.ndarray:
@@ -85,8 +90,9 @@ def _scales(setup: Setup, corners) -> np.ndarray:
     return s
 
 
-def periodic_state(setup: Setup, corners=None, progress=None) -> tuple[np.ndarray, np.ndarray]:
-    """The state at a clock edge that repeats one period later (shooting), and its relative residual.
+def periodic_state(setup: Setup, corners=None, progress=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The state at a clock edge that repeats one period later (shooting), its relative residual, and the
+    eigenvalues of the one-period map's Jacobian there (the orbit's Floquet multipliers), largest first.
 
     Newton's method on ``P(z) - z`` (``P`` one period), the Jacobian by finite differences
     (one lane per state, all corners together); a step that does not lower a corner's
@@ -105,6 +111,7 @@ def periodic_state(setup: Setup, corners=None, progress=None) -> tuple[np.ndarra
     eye = np.eye(n)
     z_best, z_acc = z_try.copy(), z_try.copy()
     r_best, r_acc = np.full(k, np.inf), np.full(k, np.inf)
+    jac_best = np.zeros((k, n, n))
     step = np.zeros((k, n))
     lam = np.ones(k)
     for it in range(_NEWTON):
@@ -123,7 +130,7 @@ def periodic_state(setup: Setup, corners=None, progress=None) -> tuple[np.ndarra
             s_i = np.linalg.lstsq(jac[i] - eye, f[i], rcond=None)[0]
             step[i] = np.where(np.isfinite(s_i), s_i, 0.0)
         keep = r_try < r_best
-        z_best[keep], r_best[keep] = z_try[keep], r_try[keep]
+        z_best[keep], r_best[keep], jac_best[keep] = z_try[keep], r_try[keep], jac[keep]
         lam = np.where(better, 1.0, lam / 4.0)
         if progress is not None and progress(it + 1, _NEWTON) is False:
             from .engine import Cancelled
@@ -133,7 +140,9 @@ def periodic_state(setup: Setup, corners=None, progress=None) -> tuple[np.ndarra
         if np.all(done | (lam < 1e-6)):
             break
         z_try = np.where(done[:, None], z_best, z_acc - lam[:, None] * step)
-    return z_best, r_best
+    eig = np.linalg.eigvals(jac_best)
+    order = np.argsort(-np.abs(eig), axis=1)
+    return z_best, r_best, np.take_along_axis(eig, order, axis=1)
 
 
 def steady_state(setup: Setup, corners=None, check_periods: int = 20, progress=None) -> SteadyState:
@@ -145,7 +154,7 @@ def steady_state(setup: Setup, corners=None, check_periods: int = 20, progress=N
     """
     eng = setup.engine
     corners = np.arange(setup.n_corners) if corners is None else np.atleast_1d(np.asarray(corners, int))
-    z, resid = periodic_state(setup, corners, progress)
+    z, resid, multipliers = periodic_state(setup, corners, progress)
     lanes = eng.lanes(corners)
     rec = Record()
     old = eng.panels
@@ -158,13 +167,14 @@ def steady_state(setup: Setup, corners=None, check_periods: int = 20, progress=N
     scale = _scales(setup, corners)
     drift = np.max(np.abs(z_end - z) / scale, axis=1)
     vo = a["vo_avg"]
-    settled = (resid < 1e-6) & (drift < 1e-4) & (np.abs(vo[:, -1] - vo[:, 0]) <= 1e-5 * np.abs(vo[:, -1]))
+    settled = ((resid < 1e-6) & (drift < 1e-4) & (np.abs(vo[:, -1] - vo[:, 0]) <= 1e-5 * np.abs(vo[:, -1]))
+               & (np.abs(multipliers[:, 0]) < 1.0))
     ts = eng.ts
     dcm = np.any(a["t_zero"] < ts * (1 - 1e-6), axis=1) & eng.dcm_capable[corners]
     return SteadyState(
         vout_v=vo[:, -1], ripple_pp_v=a["vo_max"][:, -1] - a["vo_min"][:, -1], il_peak_a=a["il_peak"][:, -1],
         il_valley_a=a["il_start"][:, -1], il_avg_a=a["il_avg"][:, -1], duty=a["t_off"][:, -1] / ts, dcm=dcm,
-        settled=settled, residual=resid, z=z, corners=corners)
+        settled=settled, residual=resid, z=z, corners=corners, multipliers=multipliers)
 
 
 # ---------------------------------------------------------------------------- load step
