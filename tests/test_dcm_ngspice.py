@@ -8,7 +8,8 @@ Fourier integrals of the output give Gvd at frequencies from fsw/100 to fsw/3,
 which must agree with loopkit's full-order Gvd (loopkit/stages/dcm_full.py)
 within 0.5 dB and 3 deg (issue 11, section 3).
 
-The designs are the samples with a smaller output capacitance (a single bank),
+The designs are the samples with a smaller output capacitance (a single bank)
+and without ``[losses]`` figures (the circuit has conduction losses only),
 so the DCM output pole sits near fsw/300 and a run settles in a few hundred
 periods (the samples' poles of 3 to 400 Hz would need thousands).  The boost
 is the 1 MHz Li-ion sample at 3.6 V and 0.1 A, where the reduced-order model
@@ -41,6 +42,7 @@ from reference import duty_spice, pcm_spice  # tests/ is on sys.path (pytest roo
 
 import loopkit
 from loopkit.design import CapacitorBank
+from loopkit.losses import Losses
 from loopkit.stages import base, groups
 
 pytestmark = [pytest.mark.ngspice, pytest.mark.slow]
@@ -59,7 +61,8 @@ def _design(name, vin, load, cap, **stage):
     d = loopkit.load_design(SAMPLES / f"{name}.toml")
     op = dataclasses.replace(d.operating, vin=(vin,), load=(load,), vin_nominal=None)
     st = dataclasses.replace(d.stage, output_caps=(CapacitorBank(*cap, 1),), **stage)
-    return dataclasses.replace(d, stage=st, operating=op)
+    # the circuit has conduction losses only: no [losses] figures (dead time, switching, core)
+    return dataclasses.replace(d, stage=st, operating=op, losses=Losses())
 
 
 # (id, sample, vin, load, (C, ESR) of the single bank, stage overrides)

@@ -30,12 +30,14 @@ A topology module turns (stage, vin, load, vout) arrays into
 
 * a :class:`DcmPoint`: the DCM operating point and the parameters of the
   reduced-order averaged switch model of Erickson & Maksimovic ch. 11: the
-  output port is a current ``i2 = g2 vg + j2 d - v/r2`` into the output node,
-  plus the high-frequency pole ``w2 = 2 fsw / D2`` of the full-order model of
+  output port is a current ``i2 = g2 vg + j2 d - v/r2`` into the output node
+  (:func:`dcm_transfer_functions` adds the high-frequency pole ``w2 = 2 fsw / D2``;
+  kept for comparison and for current mode's static output impedance).  The
+  transfer functions loopkit uses in DCM are those of the full-order model of
   Sun, Mitchell, Greuel, Krein and Bass, "Averaged modeling of PWM converters
-  operating in discontinuous conduction mode", IEEE TPEL 16(4), 2001 (the
-  inductor-current dynamics left when ``d2`` is eliminated through the
-  current constraint; derived in the topology modules' notes).
+  operating in discontinuous conduction mode", IEEE TPEL 16(4), 2001, in
+  :mod:`.dcm_full` (the inductor current kept as a state, ``d2`` eliminated
+  through the current constraint), whose dc limit is this model.
 """
 
 from __future__ import annotations
@@ -326,7 +328,9 @@ def dcm_slopes(op: DcmPoint, fsw: float) -> tuple[np.ndarray, np.ndarray]:
 
 
 def dcm_gid(stage: Stage, op: DcmPoint, gvd: Rational, slope_sensitivity: np.ndarray, i_l: np.ndarray) -> Rational:
-    """Control-to-average-inductor-current of DCM corners (vg = 0), A per unit duty.
+    """Control-to-average-inductor-current of DCM corners (vg = 0), A per unit duty, reduced order.
+
+    For comparison only; :mod:`.dcm_full` gives the one loopkit uses.
 
     Notes
     -----
@@ -352,7 +356,9 @@ def dcm_gid(stage: Stage, op: DcmPoint, gvd: Rational, slope_sensitivity: np.nda
 def dcm_gig_gii(
     stage: Stage, op: DcmPoint, gvg: Rational, zout: Rational, slope_sensitivity: np.ndarray, i_l: np.ndarray
 ) -> tuple[Rational, Rational]:
-    """Line-to-inductor-current and output-injection-to-inductor-current of DCM corners (d = 0).
+    """Line-to-inductor-current and output-injection-to-inductor-current of DCM corners (d = 0), reduced order.
+
+    For comparison only; :mod:`.dcm_full` gives the ones loopkit uses.
 
     Notes
     -----
