@@ -183,15 +183,20 @@ def _kind(topology: str, module) -> str:
 
 
 def ccm_point(module, stage, vin, vin_op, load, vout):
-    """The module's CCM point at the input ``vin_op`` (losses drawn), its ripple at the real ``vin``.
+    """The module's CCM point at the input ``vin_op`` (losses drawn), ripple and ``e`` at the real ``vin``.
 
-    Every topology's ripple is ``(vg - drops) D / (L fsw)``, so moving vg back adds
-    ``(vin - vin_op) D / (L fsw)``.
+    The duty and the currents are those of ``vin_op`` (the loss is a constant drop in the inductor
+    loop); what the switch node actually applies is the real input: every topology's ripple is
+    ``(vg - drops) D / (L fsw)``, so moving vg back adds ``(vin - vin_op) D / (L fsw)``, and the
+    duty's coefficient ``e`` in the inductor loop holds vg with a unit coefficient except in the
+    boost (``e = V + VD - ...``), so it gets ``vin - vin_op`` back (the drop does not vary with d).
     """
     cp = module.ccm(stage, vin_op, load, vout)
     if np.array_equal(vin, vin_op):
         return cp
-    return replace(cp, ripple=cp.ripple + (vin - vin_op) * cp.duty / (stage.inductance * stage.fsw))
+    back = vin - vin_op
+    e = cp.e if module is boost else cp.e + back
+    return replace(cp, ripple=cp.ripple + back * cp.duty / (stage.inductance * stage.fsw), e=e)
 
 
 def _points(design, parts, vin, load, vin_op, load_op) -> CornerPoint:
