@@ -255,7 +255,7 @@ class DesignForm(QScrollArea):
                                                                    ("Leading edge", "leading-edge"),
                                                                    ("Symmetric triangle", "symmetric")]))
         self._value(f, "digital.sample_ratio", "Samples per period", "", plain=True)
-        self._value(f, "digital.dither_bits", "Dither bits", "", plain=True)
+        self._value(f, "digital.dither_bits", "Dither bits", "", "Empty: none", plain=True, zero_text="none")
         self._add(f, "Controller", ChoiceBox("digital.form", [("PI", "pi"), ("PID", "pid"), ("Type III", "type3")]))
         self._add(f, "Design method", ChoiceBox("digital.method", [("Direct in z", "direct"),
                                                                     ("Tustin, prewarped", "tustin"),

@@ -483,7 +483,7 @@ class DesignModel(QObject):
         """Store the current snapped parts in the design (then analysed as given)."""
         from loopkit.loop import apply_parts
 
-        if not self._result.feasible:
+        if not self._result.feasible or self._result.digital is not None:  # a digital controller has no parts
             return False
         return self.propose(apply_parts(self._design, self._result), "Keep parts in design", "compensator.parts")
 

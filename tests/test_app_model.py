@@ -190,6 +190,9 @@ def test_save_reopen_identical(model, sample_path, tmp_path):
 
 def test_kept_parts_are_analysed_as_given(model, some_path, tmp_path):
     model.open(some_path)
+    if model.result.digital is not None:  # a digital controller has no parts to keep
+        assert not model.fix_parts() and not model.parts_given
+        return
     parts = dict(model.result.parts)
     assert model.fix_parts()
     assert model.parts_given and model.design.compensator.parts == parts
