@@ -5,7 +5,7 @@ Subcommands::
     loopkit stage FILE                      power stage at every corner
     loopkit bode FILE --plant|--loop|--compensator [--csv OUT]
     loopkit design FILE [--fc 20k] [--pm 60] [--type 2|3] [--json] [--write]
-    loopkit export FILE [--bom OUT.csv] [--spice OUT.cir] [--json OUT.json] [--svg OUT.svg]
+    loopkit export FILE [--bom OUT.csv] [--spice OUT.cir] [--json OUT.json] [--svg OUT.svg] [--c-header OUT.h]
     loopkit measured FILE MEASUREMENT.csv [--kind loop|plant] [--corner N] [--columns ...] [--fit] [--csv OUT]
     loopkit step FILE --load 0.5:3 [--rise 1u] [--vin-step 18:24] [--ref-step 1%] [--band 1%] [--csv OUT]
     loopkit sweep FILE [--points 400] [--csv OUT]
@@ -601,8 +601,8 @@ def _cmd_design(args) -> int:
 def _cmd_export(args) -> int:
     from . import export
 
-    if not (args.bom or args.spice or args.json or args.svg):
-        raise DesignError("--bom/--spice/--json/--svg", "(none given)", "give at least one output file")
+    if not (args.bom or args.spice or args.json or args.svg or args.c_header):
+        raise DesignError("--bom/--spice/--json/--svg/--c-header", "(none given)", "give at least one output file")
     outputs = [
         (option, path, writer)
         for option, path, writer in (
@@ -610,6 +610,7 @@ def _cmd_export(args) -> int:
             ("--spice", args.spice, export.spice_netlist),
             ("--json", args.json, export.results_json),
             ("--svg", args.svg, _network_drawing),
+            ("--c-header", args.c_header, export.c_header_text),
         )
         if path
     ]
@@ -618,7 +619,9 @@ def _cmd_export(args) -> int:
     if design.control.scheme == "digital" and (args.bom or args.spice or args.svg):
         option = "--bom" if args.bom else "--spice" if args.spice else "--svg"
         raise DesignError(option, getattr(args, option[2:]), "a digital controller has no parts or network:"
-                          " export --json (the difference equation's coefficients as plain numbers)")
+                          " export --json (the difference equation's coefficients as plain numbers) or --c-header")
+    if design.control.scheme != "digital" and args.c_header:
+        raise DesignError("--c-header", args.c_header, "needs a digital controller ([control] scheme = \"digital\")")
     result = _loop_result(design, args, need_parts="export")
     # every file made in memory, then all written to temporaries and moved: a failure leaves none half-written
     write_files_atomic([(path, writer(result)) for _, path, writer in outputs])
@@ -1092,6 +1095,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--spice", metavar="OUT.cir", help="ngspice netlist of the network (nodes in, out)")
     p.add_argument("--json", metavar="OUT.json", help="results document")
     p.add_argument("--svg", metavar="OUT.svg", help="drawing of the network with the parts to build")
+    p.add_argument("--c-header", metavar="OUT.h", help="digital control: the fixed-point controller as a C header")
     _add_target_options(p)
     p.set_defaults(run=_cmd_export)
 

@@ -29,6 +29,7 @@ from scipy.signal import lfilter
 
 from .digital_control import matched, tustin
 from .digital_design import analog_design, direct_design
+from .digital_handoff import realisation
 from .discrete import Discrete, nyquist_grid
 from .discrete_margins import discrete_loop_margins
 from .errors import DesignError, Finding, InfeasibleDesign
@@ -125,6 +126,9 @@ class DigitalLoop:
     word_length: int | None = None
     frac_bits: int | None = None
     figures: dict = field(default_factory=dict)
+    #: The controller in integers, its margins and the ADC/PWM resolution check
+    #: (:class:`loopkit.digital_handoff.Realisation`).
+    realisation: object = None
 
 
 def prepare(session, f_hz=None) -> None:
@@ -244,6 +248,9 @@ def run(session, targets: Targets) -> LoopResult:
         gvd_dc=np.asarray(stage.gvd.dc_gain(), float), duty=np.asarray(stage.duty, float),
         word_length=d.word_length, frac_bits=d.frac_bits,
     )
+    handoff = realisation(digital, tu, f, targets.pm_deg, targets.gm_db, design.stage.fsw)
+    digital = replace(digital, realisation=handoff)
+    findings.extend(handoff.findings)
     zeros, poles = c.zeros()[0], c.poles()[0]
     return LoopResult(
         design=with_targets(design, targets), stage=stage, targets=targets, f_hz=f, feasible=True,

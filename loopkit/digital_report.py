@@ -46,11 +46,27 @@ def _controller_lines(result) -> list[str]:
                   + (f", {dig.pwm_steps:.6g} steps with {dig.dither_bits} dither bits" if dig.dither_bits else "")),
         "",
         wrap_note("Difference equation, e = set point - ADC reading (codes), u = PWM steps:"
-                  " u[k] = b0 e[k] + b1 e[k-1] + ... - a1 u[k-1] - ...  (exact coefficients; fixed point"
-                  " to be chosen from them):"),
+                  " u[k] = b0 e[k] + b1 e[k-1] + ... - a1 u[k-1] - ...  (exact coefficients, and the"
+                  " integers of the fixed-point controller, value = integer / 2^Q):"),
     ]
+    fixed = dig.realisation.fixed if dig.realisation is not None else None
     rows = [[name, f"{value:.12g}"] for name, value in coefficient_rows(dig)]
-    lines.append(format_table([Column("coef", "", "<"), Column("value")], rows))
+    cols = [Column("coef", "", "<"), Column("value")]
+    if fixed is not None:
+        ints = list(fixed.b_int) + list(fixed.a_int)
+        qs = [fixed.b_frac_bits] * len(fixed.b_int) + [fixed.a_frac_bits] * len(fixed.a_int)
+        rows = [r + [str(i), str(q)] for r, i, q in zip(rows, ints, qs)]
+        cols += [Column("integer"), Column("Q")]
+    lines.append(format_table(cols, rows))
+    if fixed is not None:
+        mq = dig.realisation.margins_quantised
+        lines += ["", wrap_note(
+            f"Fixed point: {fixed.word_bits}-bit coefficients, stored outputs with {fixed.state_frac_bits} extra"
+            f" fraction bits, a {fixed.acc_bits}-bit accumulator at worst (int64 in the C header); the quantised"
+            f" controller's response is within {fixed.gain_error_db:.2g} dB and {fixed.phase_error_deg:.2g} deg of"
+            f" the exact one up to fs/2; worst-corner PM {np.nanmin(mq.pm_deg):.1f} deg with it"
+            f" ({np.nanmin(result.margins.pm_deg):.1f} deg exact). Output limits {fixed.u_min} .. {fixed.u_max}"
+            f" PWM steps; the C header: loopkit export FILE --c-header OUT.h")]
     z, p = dig.controller.zeros()[0], dig.controller.poles()[0]
 
     def roots(r):

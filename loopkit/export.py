@@ -14,12 +14,13 @@ import math
 import numpy as np
 
 from . import __version__, eseries
+from .errors import DesignError
 from .loop import CAUTION, LoopResult
 from .margins import gm_state
 from .networks import network_module
 from .units import format_value
 
-__all__ = ["bom_csv", "results_document", "results_json", "spice_netlist"]
+__all__ = ["bom_csv", "c_header_text", "results_document", "results_json", "spice_netlist"]
 
 
 def _num(x):
@@ -142,6 +143,7 @@ def _digital_document(dig) -> dict:
         "pwm_counts": float(dig.pwm_counts), "pwm_steps": float(dig.pwm_steps), "dither_bits": int(dig.dither_bits),
         "duty_min": float(dig.duty_min), "duty_max": float(dig.duty_max),
         "word_length": dig.word_length, "frac_bits": dig.frac_bits,
+        "fixed_point": _fixed_point_document(dig),
         "corners": [{"delay_s": float(dig.delay_s[k]), "delay_phase_deg": _num(dig.delay_phase_deg[k]),
                      "sensing_gain": float(dig.sensing_gain[k]), "adc_lsb_out_v": float(dig.adc_lsb_out_v[k]),
                      "gvd_dc_v": float(dig.gvd_dc[k]), "duty": float(dig.duty[k])} for k in range(dig.delay_s.size)],
@@ -150,6 +152,38 @@ def _digital_document(dig) -> dict:
                         "worst_pm_deg": None if d.margins is None else _num(np.nanmin(d.margins.pm_deg)),
                         "reason": d.reason} for m, d in dig.designs.items()},
     }
+
+
+def _fixed_point_document(dig) -> dict | None:
+    """The integers of the fixed-point controller, their Q formats and its quantised margins (None if none)."""
+    fixed = None if dig.realisation is None else dig.realisation.fixed
+    if fixed is None:
+        return None
+    mq = dig.realisation.margins_quantised
+    return {
+        "b_int": [int(x) for x in fixed.b_int], "a_int": [int(x) for x in fixed.a_int],
+        "word_bits": int(fixed.word_bits), "b_frac_bits": int(fixed.b_frac_bits),
+        "a_frac_bits": int(fixed.a_frac_bits), "state_frac_bits": int(fixed.state_frac_bits),
+        "acc_bits": int(fixed.acc_bits), "e_min": int(fixed.e_min), "e_max": int(fixed.e_max),
+        "u_min": int(fixed.u_min), "u_max": int(fixed.u_max),
+        "gain_error_db": float(fixed.gain_error_db), "phase_error_deg": float(fixed.phase_error_deg),
+        "pm_deg": [_num(x) for x in mq.pm_deg], "gm_db": [_num(x) for x in mq.gm_db],
+        "stable": [bool(x) for x in mq.stable],
+    }
+
+
+def c_header_text(result: LoopResult) -> str:
+    """The C header of a digital loop's fixed-point controller (:func:`loopkit.cheader.c_header`)."""
+    from .cheader import c_header
+
+    dig = result.digital
+    if dig is None or dig.realisation is None or dig.realisation.fixed is None:
+        raise DesignError("--c-header", "(no fixed-point controller)",
+                          "a digital design whose controller could be realised in fixed point (see its findings)")
+    title = result.design.title or "loopkit digital controller"
+    if dig.dither_bits:
+        title += f"; u in PWM steps of 1/{2 ** dig.dither_bits} count ({dig.dither_bits} dither bits)"
+    return c_header(dig.realisation.fixed, title=title)
 
 
 def results_json(result: LoopResult) -> str:

@@ -25,11 +25,14 @@ from .margins import Margins
 from .networks import network_module
 from .units import format_value
 
-__all__ = ["FC_FSW_LIMIT", "model_findings", "verdict_findings"]
+__all__ = ["FC_FSW_LIMIT", "SHOWN_TOLERANCE", "model_findings", "verdict_findings"]
 
 #: Above fsw times this the predicted margins are not trustworthy (common practice, no source).
 FC_FSW_LIMIT = 0.2
 
+
+#: A margin counts as met when it is within this of its target (deg or dB): the tables show one decimal.
+SHOWN_TOLERANCE = 0.05
 
 def _where(stage, k: int) -> str:
     return f"{format_value(stage.vin[k], 'V')} {format_value(stage.load[k], 'A')}"
@@ -77,10 +80,10 @@ def verdict_findings(m: Margins, stage, targets, fsw: float) -> list[Finding]:
             shown = ", ".join(format_value(x, "Hz") for x in m.crossovers_hz[k])
             out.append(Finding("multiple-crossovers", f"{where}: the loop gain crosses 0 dB {m.n_crossovers[k]}"
                                f" times ({shown}): {_pm_advice(stage, k, targets, fsw)}", k, "error"))
-        if m.pm_deg[k] < targets.pm_deg - 0.05:
+        if m.pm_deg[k] < targets.pm_deg - SHOWN_TOLERANCE:
             out.append(Finding("pm-below-target", f"{where}: phase margin {m.pm_deg[k]:.1f} deg is below the target"
                                f" {targets.pm_deg:g} deg: {_pm_advice(stage, k, targets, fsw)}", k, "error"))
-        if np.isfinite(m.gm_db[k]) and m.gm_db[k] < targets.gm_db - 0.05:
+        if np.isfinite(m.gm_db[k]) and m.gm_db[k] < targets.gm_db - SHOWN_TOLERANCE:
             out.append(Finding("gm-below-target", f"{where}: gain margin {m.gm_db[k]:.1f} dB (at"
                                f" {format_value(m.f180_hz[k], 'Hz')}) is below the target {targets.gm_db:g} dB:"
                                " lower fc, or place the network's high-frequency poles lower", k, "error"))

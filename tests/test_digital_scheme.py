@@ -269,7 +269,7 @@ def test_cli_bode_ends_at_nyquist_and_export_json_has_plain_floats(tmp_path, _cl
     assert out.returncode == 0, out.stderr
     last = out.stdout.strip().splitlines()[-1].split(",")
     assert float(last[0]) == pytest.approx(0.5 * _result(name).digital.fs_hz)
-    assert _cli("bode", f"sample_designs/{name}.toml", "--fmax", "1M").returncode == 2
+    assert _cli("bode", f"sample_designs/{name}.toml", "--loop", "--fmax", "1M").returncode == 2
     path = tmp_path / "out.json"
     assert _cli("export", f"sample_designs/{name}.toml", "--json", str(path)).returncode == 0
     doc = json.loads(path.read_text())["digital"]
