@@ -26,6 +26,8 @@ from loopkit.loop import LoopSession, Targets, apply_parts, design_loop
 from loopkit.synthesis import pair_k
 
 SAMPLES = sorted((Path(__file__).resolve().parents[1] / "sample_designs").glob("*.toml"))
+# the analog networks' synthesis: a digital controller has no network parts (tests/test_digital_scheme.py)
+SAMPLES = [p for p in SAMPLES if load_design(p).control.scheme != "digital"]
 
 
 def _meets(result, fc, pm):
