@@ -514,20 +514,11 @@ class Digital:
                               f"must be below the word length ({self.word_length} bits): one bit is the sign")
 
     def check_with(self, design: Design) -> None:
-        """Checks where the digital fields meet the stage and the sensing (scheme ``digital`` only)."""
-        fs = design.stage.fsw * self.sample_ratio
+        """Checks where the digital fields meet the sensing (scheme ``digital`` only); the PWM counts per
+        period, which depend on fsw, are checked where the loop is analysed (:mod:`loopkit.schemes.digital`)."""
         if not self.pwm_clock > 0:
             raise DesignError("digital.pwm_clock", format_value(self.pwm_clock, "Hz"),
                               "a digital design needs the PWM counter clock (> 0 Hz)")
-        counts = self.pwm_clock / design.stage.fsw
-        if counts < MIN_PWM_COUNTS:
-            raise DesignError("digital.pwm_clock", format_value(self.pwm_clock, "Hz"),
-                              f"gives {counts:.3g} counts per switching period; at least {MIN_PWM_COUNTS}"
-                              f" (a clock of {format_value(MIN_PWM_COUNTS * design.stage.fsw, 'Hz')} or more)")
-        if self.anti_alias and self.anti_alias < 0.5 * fs / 100:
-            raise DesignError("digital.anti_alias", format_value(self.anti_alias, "Hz"),
-                              f"0 (none) or at least fs/200 = {format_value(fs / 200, 'Hz')}: lower would be"
-                              " the loop's own pole, not an anti-alias filter")
         if design.sensing.reference >= self.adc_range:
             raise DesignError("sensing.reference", format_value(design.sensing.reference, "V"),
                               f"the sensed output must lie inside the ADC range (below digital.adc_range ="

@@ -5,8 +5,7 @@
 loop is ``Tu(z)``) and :func:`run` (the controller for the targets, margins, findings).  The same
 session serves the CLI, the app and the tests.
 
-Per run, at the design corner (the corner whose ``Tu(z)`` has the least phase at fc, as for
-analog loops), three controllers of the design's form are made from the same fc and PM:
+Per run, at the design corner (the CCM corner whose ``Tu(z)`` has the most gain at fc), three controllers of the design's form are made from the same fc and PM:
 ``direct`` (designed in z on the exact sampled loop), ``tustin`` and ``matched`` (one analog
 design, discretised; :mod:`loopkit.digital_design`).  The design's ``digital.method`` picks the
 one the result carries; the others are kept with their margins for comparison.  Margins come
@@ -194,6 +193,25 @@ def _designs(session, targets: Targets, corner: int, pm_goal: dict | None = None
     return designs
 
 
+def _design_corner(session, targets: Targets) -> int:
+    """The given corner, or the CCM corner whose ``Tu(z)`` has the most gain at fc (ties: the least phase).
+
+    With one controller for every corner, the corner of most gain crosses highest, where the loop delay
+    costs the most phase; designing there keeps the other corners' crossovers below fc, where they have
+    more phase (common practice, no source).  DCM corners are left out unless every corner is in DCM.
+    """
+    if targets.design_corner is not None:
+        return int(targets.design_corner)
+    f = np.array([targets.fc_hz])
+    tu = session.uncompensated
+    mag = np.abs(tu.response(f)[:, 0])
+    phase = tu.phase_deg(f)[:, 0]
+    dcm = session.stage.dcm
+    candidates = np.nonzero(~dcm)[0] if np.any(~dcm) else np.arange(mag.size)
+    order = np.lexsort((np.round(phase[candidates], 9), -mag[candidates]))
+    return int(candidates[order[0]])
+
+
 def run(session, targets: Targets) -> LoopResult:
     """Design the digital controller for ``targets`` and analyse every corner (module notes)."""
     design, stage = session.design, session.stage
@@ -208,7 +226,7 @@ def run(session, targets: Targets) -> LoopResult:
     if not 0 < targets.fc_hz < 0.5 * fs:
         return session._infeasible(targets, findings, "compensator.fc", format_value(targets.fc_hz, "Hz"),
                                    f"must be between 0 and fs/2 = {format_value(0.5 * fs, 'Hz')}")
-    corner = session.design_corner(targets)
+    corner = _design_corner(session, targets)
     designs = _designs(session, targets, corner)
     chosen = designs[d.method]
     if chosen.controller is None:

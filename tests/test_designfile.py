@@ -705,7 +705,7 @@ ERRORS = [
         ('title = "test buck"', 'title = "t"\nextra = 3'),
         "extra",
         "3",
-        "unknown key; allowed here: compensator, control, format,",
+        "unknown key; allowed here: compensator, control, digital, format,",
     ),
 ]
 

@@ -75,7 +75,6 @@ def test_samples_round_trip_through_the_design_file():
     ('method = "euler"', "digital.method"),
     ('update = "later"', "digital.update"),
     ('word_length = 16\nfrac_bits = 16', "digital.frac_bits"),
-    ('pwm_clock = "2M"', "digital.pwm_clock"),       # 8 counts per period at 250 kHz
     ('pwm_clock = 0', "digital.pwm_clock"),           # the scheme needs one
     ('adc_range = "1.2"', "sensing.reference"),       # the 1.5 V set point would lie outside the ADC range
     ('computation_delay = "-1u"', "digital.computation_delay"),
@@ -90,6 +89,14 @@ def test_bad_digital_fields_name_field_and_allowed(table, field):
         loads_design(text)
     assert exc.value.field == field
     assert exc.value.allowed
+
+
+def test_too_few_pwm_counts_are_refused_where_the_loop_is_analysed():
+    """8 counts per period at 250 kHz: the field depends on fsw, so the session refuses it (the file loads)."""
+    d = _design("inverting_mcu_minus12v")
+    with pytest.raises(DesignError) as exc:
+        LoopSession(replace(d, digital=replace(d.digital, pwm_clock=2e6)))
+    assert exc.value.field == "digital.pwm_clock" and "counts" in exc.value.allowed
 
 
 def test_loop_delay_of_each_carrier_and_update():

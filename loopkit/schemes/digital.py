@@ -43,10 +43,12 @@ import math
 
 import numpy as np
 
-from ..errors import Finding
+from ..design import MIN_PWM_COUNTS
+from ..errors import DesignError, Finding
 from ..networks.sensing import sensing_transfer
 from ..rational import TWO_PI, Rational
 from ..sampled import modulator_delay_s, sampled_plant
+from ..units import format_value
 from .base import SchemeLoop
 
 __all__ = [
@@ -119,6 +121,11 @@ def uncompensated(design, stage) -> SchemeLoop:
     """The continuous chain ``Tu(s)`` and its exact sampled form ``Tu(z)`` at every corner (module notes)."""
     d = design.digital
     ts = sample_period_s(design)
+    counts = d.pwm_clock / design.stage.fsw
+    if counts < MIN_PWM_COUNTS:
+        raise DesignError("digital.pwm_clock", format_value(d.pwm_clock, "Hz"),
+                          f"gives {counts:.3g} counts per switching period; at least {MIN_PWM_COUNTS}"
+                          f" (a clock of {format_value(MIN_PWM_COUNTS * design.stage.fsw, 'Hz')} or more)")
     chain = sensing_gain(design) * adc_codes_per_volt(design) / pwm_steps(design)
     if d.anti_alias > 0:
         chain = chain * Rational.from_factors(1.0, (), [(1.0, 1.0 / (TWO_PI * d.anti_alias))])
