@@ -72,10 +72,13 @@ def efficiency_section(design, points: int = 25):
         "Efficiency at every corner")
     used = [f for f in LOSS_FIELDS if np.any(getattr(eff, f) != 0)]
     tables = [summary]
-    if used:
-        tables.append(Table(("#",) + tuple(f"{LOSS_TITLES[f]} (W)" for f in used),
-                            tuple((str(k),) + tuple(_watts(getattr(eff, f)[k]) for f in used) for k in range(n)),
-                            "Loss breakdown per corner (terms that are zero everywhere left out)"))
+    for caption, names in (("Conduction losses per corner", LOSS_FIELDS[:7]),
+                           ("Switching and other losses per corner", LOSS_FIELDS[7:])):
+        shown = [f for f in names if f in used]
+        if shown:
+            tables.append(Table(("#",) + tuple(f"{LOSS_TITLES[f]} (W)" for f in shown),
+                                tuple((str(k),) + tuple(_watts(getattr(eff, f)[k]) for f in shown) for k in range(n)),
+                                caption + " (terms that are zero everywhere left out)"))
     if modes is not None:
         tables.append(Table(
             ("#", "Vin", "load", "mode by the rule") + tuple(f"{m} (%)" for m in modes.modes)
@@ -96,7 +99,8 @@ def efficiency_section(design, points: int = 25):
     text.append(MODEL_NOTES)
     html = figure(efficiency_svg(curves, eff),
                        f"Efficiency against load at each input voltage ({curves.load.size} loads per curve, the"
-                       " same curves as loopkit efficiency --csv); markers: the design's corners.")
+                       " same curves as loopkit efficiency --csv); markers: the design's corners. A step in a curve is where the"
+                       " stage changes mode (CCM/DCM, or the four-switch mode), which changes the loss terms.")
     return ExtraSection("Efficiency", tuple(text), tuple(tables), html)
 
 
@@ -149,14 +153,14 @@ def tolerance_section(design, draws: int, random_state: int = 0, *, worst: bool 
     lo, hi = mc.wilson
     cl, ch = mc.clopper_pearson
     passed = int(np.sum(mc.passed))
-    text = [f"{mc.n} Monte Carlo draws (random state {mc.random_state}; loopkit tolerance --draws {mc.n}"
+    text = [(f"{mc.n} Monte Carlo draws (random state {mc.random_state}; loopkit tolerance --draws {mc.n}"
             f" --random-state {mc.random_state} gives the same draws) of the tolerances below, each checked against"
             f" the targets (PM >= {t.pm_deg:g} deg, GM >= {t.gm_db:g} dB, fc {_value(t.fc_hz, 'Hz')} within"
             f" x{t.fc_band:g}) at each of {study.n_corners} corners. Worst-corner PM at nominal values:"
-            f" {nominal_pm:.1f} deg.",
-            f"Yield {_pct(mc.yield_fraction, 1)} % ({passed} of {mc.n} draws meet every target at every corner);"
+            f" {nominal_pm:.1f} deg."),
+            (f"Yield {_pct(mc.yield_fraction, 1)} % ({passed} of {mc.n} draws meet every target at every corner);"
             f" {100 * mc.confidence:g} % interval: Wilson score {_pct(lo, 1)} to {_pct(hi, 1)} %, Clopper-Pearson"
-            f" {_pct(cl, 1)} to {_pct(ch, 1)} %."]
+            f" {_pct(cl, 1)} to {_pct(ch, 1)} %.")]
     tables = [Table(("quantity", "nominal", "low", "high", "distribution"),
                     tuple((q.key, _value(q.nominal, q.unit), _value(q.low, q.unit), _value(q.high, q.unit),
                            q.distribution if q.distribution == "uniform" else f"normal {q.sigmas:g} sigma")
@@ -272,11 +276,11 @@ def switching_section(result, loop_gain_corner: int | None = None, progress=None
                          "phase averaged (deg)", "difference (dB)", "difference (deg)"), lg_rows,
                         f"Loop gain by injection at corner #{k0} ({result.corner_labels[k0]})"))
     lim = float(lg.limit_hz[0])
-    text = ["Every corner simulated cycle by cycle (exact piecewise-linear switching, the parts to build) to its"
-            " periodic steady state, beside the averaged model's operating point.",
-            f"The loop gain by injection (a sine in series with the feedback, whole periods, single-bin Fourier) is"
+    text = [("Every corner simulated cycle by cycle (exact piecewise-linear switching, the parts to build) to its"
+            " periodic steady state, beside the averaged model's operating point."),
+            (f"The loop gain by injection (a sine in series with the feedback, whole periods, single-bin Fourier) is"
             f" measured at corner #{k0} only ({'the design corner' if loop_gain_corner is None else 'chosen'}):"
-            " one corner takes seconds to tens of seconds; loopkit simulate --only K --loop-gain runs any other.",
+            " one corner takes seconds to tens of seconds; loopkit simulate --only K --loop-gain runs any other."),
             (f"Model limit at corner #{k0}: the averaged model departs from the switching loop by more than"
              f" {LIMIT_DB:g} dB or {LIMIT_DEG:g} deg from {num(lim, 'Hz')} on." if np.isfinite(lim) else
              f"Model limit at corner #{k0}: within {LIMIT_DB:g} dB and {LIMIT_DEG:g} deg at every frequency measured"
