@@ -2,7 +2,7 @@
 
 Only choices: the sections themselves are made by :func:`loopkit.report.sections.review_sections`,
 the same call ``loopkit report`` makes (``--no-efficiency``, ``--tolerance-draws``,
-``--random-state``, ``--switching``).
+``--random-state``, ``--robust``, ``--switching``).
 """
 
 from __future__ import annotations
@@ -30,11 +30,12 @@ class ReportOptions:
     tolerance_draws: int = 0
     random_state: int = 0
     switching: bool = False
+    robust: bool = False
 
     def keywords(self) -> dict:
         """The keyword arguments of :func:`loopkit.report.sections.review_sections`."""
         return {"efficiency": self.efficiency, "tolerance_draws": self.tolerance_draws,
-                "random_state": self.random_state, "switching": self.switching}
+                "random_state": self.random_state, "switching": self.switching, "robust": self.robust}
 
 
 class ReportOptionsDialog(QDialog):
@@ -58,6 +59,7 @@ class ReportOptionsDialog(QDialog):
         self.draws.setSingleStep(100)
         self.random_state = QSpinBox()
         self.random_state.setRange(0, 2_000_000_000)
+        self.robust = QCheckBox("with the robust compensator beside the nominal one")
         self.switching = QCheckBox("Switching check (every corner's steady state; loop gain at the design corner)")
         self.switching.setEnabled(has_parts)
         for w in (self.efficiency, self.tolerance):
@@ -65,6 +67,7 @@ class ReportOptionsDialog(QDialog):
         form = QFormLayout()
         form.addRow("Monte Carlo draws", self.draws)
         form.addRow("Random state", self.random_state)
+        form.addRow("", self.robust)
         layout.addLayout(form)
         layout.addWidget(self.switching)
         layout.addWidget(QLabel("The tolerance study and the switching check take from seconds to minutes."))
@@ -79,8 +82,10 @@ class ReportOptionsDialog(QDialog):
         on = self.tolerance.isChecked()
         self.draws.setEnabled(on)
         self.random_state.setEnabled(on)
+        self.robust.setEnabled(on)
 
     def options(self) -> ReportOptions:
         """The choices made."""
         return ReportOptions(self.efficiency.isChecked(), self.draws.value() if self.tolerance.isChecked() else 0,
-                             self.random_state.value(), self.switching.isChecked() and self.switching.isEnabled())
+                             self.random_state.value(), self.switching.isChecked() and self.switching.isEnabled(),
+                             self.tolerance.isChecked() and self.robust.isChecked())
