@@ -88,7 +88,9 @@ def efficiency_section(design, points: int = 25):
                   + (str(modes.best[k]), _fix(modes.cost_points[k], ".2f")) for k in range(n)),
             "Each four-switch mode at the same input and load",
             "buck-boost: all four switches every period. cost: efficiency points the rule's mode gives away to the"
-            " best mode at that corner."))
+            " best mode at that corner. A corner in the transition band (mode 'transition' above) is modelled in"
+            " the pure mode that can regulate, named here; a real controller there alternates or blends the"
+            " modes."))
     text = []
     if not design.losses.given:
         text.append("Conduction losses only: the design has no [losses] table, so switching overlap, output"
