@@ -268,6 +268,16 @@ def switching_section(result, loop_gain_corner: int | None = None, progress=None
                     f" {num(v_set, 'V', 5)}) against the averaged operating point",
                     "?: the run does not repeat from one period to the next (e.g. subharmonic oscillation); the"
                     " figures are those of the last period." if not np.all(ss.settled) else "")]
+    # A steady state more than 1 % off the set point does not regulate (common practice, no source).
+    off = np.abs(ss.vout_v - v_set) > 0.01 * abs(v_set)
+    max_duty = float(result.design.modulator.max_duty)
+    notes = []
+    for k in np.nonzero(off)[0]:
+        why = (f"the duty is at the modulator's limit (max_duty {100 * max_duty:.0f} %)"
+               if ss.duty[k] >= max_duty - 1e-3 else "the loop does not hold the set point there")
+        notes.append(f"Corner #{k} ({result.corner_labels[k]}): the simulated output is"
+                     f" {100 * (ss.vout_v[k] - v_set) / abs(v_set):+.1f} % from the set point: {why}; the averaged"
+                     " operating point and margins do not describe this corner.")
     f = default_frequencies(result, np.array([k0]), result.design.stage.fsw)
     lg = loop_gain(setup, f, corners=np.array([k0]), progress=progress)
     lg_rows = tuple((num(fi, "Hz"), f"{20 * np.log10(abs(lg.t_switching[0, i])):.2f}",
@@ -286,7 +296,7 @@ def switching_section(result, loop_gain_corner: int | None = None, progress=None
             (f"Model limit at corner #{k0}: the averaged model departs from the switching loop by more than"
              f" {LIMIT_DB:g} dB or {LIMIT_DEG:g} deg from {num(lim, 'Hz')} on." if np.isfinite(lim) else
              f"Model limit at corner #{k0}: within {LIMIT_DB:g} dB and {LIMIT_DEG:g} deg at every frequency measured"
-             f" (up to {num(float(np.max(lg.f_hz)), 'Hz')}).")]
+             f" (up to {num(float(np.max(lg.f_hz)), 'Hz')}).")] + notes
     return ExtraSection("Switching check", tuple(text), tuple(tables))
 
 
