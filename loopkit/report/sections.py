@@ -232,7 +232,7 @@ def switching_section(result, loop_gain_corner: int | None = None, progress=None
         With parts (a feasible result).
     loop_gain_corner : int, optional
         The corner whose loop gain is measured by injection (default the design corner). One
-        corner only: it takes seconds to tens of seconds (7 frequencies).
+        corner only: it takes from seconds to about a minute (7 frequencies).
 
     Notes
     -----
@@ -292,7 +292,7 @@ def switching_section(result, loop_gain_corner: int | None = None, progress=None
             " periodic steady state, beside the averaged model's operating point."),
             (f"The loop gain by injection (a sine in series with the feedback, whole periods, single-bin Fourier) is"
             f" measured at corner #{k0} only ({'the design corner' if loop_gain_corner is None else 'chosen'}):"
-            " one corner takes seconds to tens of seconds; loopkit simulate --only K --loop-gain runs any other."),
+            " one corner takes from seconds to about a minute; loopkit simulate --only K --loop-gain runs any other."),
             (f"Model limit at corner #{k0}: the averaged model departs from the switching loop by more than"
              f" {LIMIT_DB:g} dB or {LIMIT_DEG:g} deg from {num(lim, 'Hz')} on." if np.isfinite(lim) else
              f"Model limit at corner #{k0}: within {LIMIT_DB:g} dB and {LIMIT_DEG:g} deg at every frequency measured"
