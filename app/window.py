@@ -519,15 +519,20 @@ class MainWindow(QMainWindow):
         if ok:
             self.open_measured(path, list(KIND_TITLES)[titles.index(choice)])
 
-    def export_report(self, path: str) -> None:
+    def export_report(self, path: str, options=None) -> None:
         """Write the design-review report (``.pdf``: through headless Chromium; else HTML), with the
-        overlays of the measurement windows that are open."""
+        overlays of the measurement windows that are open and the optional sections of ``options``
+        (:class:`app.report_options.ReportOptions`; default: efficiency only)."""
         from loopkit.report import write_report
+        from loopkit.report.sections import review_sections
+
+        from .report_options import ReportOptions
 
         overlays = [w.overlay for w in getattr(self, "_measured_windows", []) if w.isVisible() and w.overlay]
         pdf = path.lower().endswith(".pdf")
+        extra = review_sections(self.model.design, self.model.result, **(options or ReportOptions()).keywords())
         write_report(self.model.result, None if pdf else path, path if pdf else None,
-                     path=self.model.path or "", overlays=overlays)
+                     path=self.model.path or "", overlays=overlays, extra_sections=extra)
 
     def report_dialog(self) -> None:
         stem = Path(self.model.path).stem if self.model.path else "design"
@@ -538,10 +543,15 @@ class MainWindow(QMainWindow):
             return
         if not path.lower().endswith((".html", ".htm", ".pdf")):
             path += ".pdf" if "pdf" in chosen.lower() else ".html"
+        from .report_options import ReportOptionsDialog
+
+        choose = ReportOptionsDialog(not self.model.design.tolerances.empty, bool(self.model.result.feasible), self)
+        if choose.exec() != ReportOptionsDialog.Accepted:
+            return
         self.statusBar().showMessage("Writing the review report…")
         QApplication.setOverrideCursor(Qt.WaitCursor)
         try:
-            self.export_report(path)
+            self.export_report(path, choose.options())
         except (DesignError, OSError) as exc:
             QApplication.restoreOverrideCursor()
             QMessageBox.warning(self, "Cannot write the report", str(exc))

@@ -12,6 +12,7 @@ Subcommands::
     loopkit simulate FILE [--only K] [--load-step AMPS] [--loop-gain [5k,20k,80k]]
     loopkit efficiency FILE [--csv OUT] [--json] [--points 25] [--load-min A]
     loopkit report FILE -o OUT.html [--pdf OUT.pdf] [--measured MEASUREMENT.csv] [--load-step 0.5:3]
+                   [--tolerance-draws N [--random-state S] [--robust]] [--switching] [--no-efficiency]
     loopkit tolerance FILE [--draws 1000] [--random-state 0] [--workers 2] [--worst-case] [--robust]
                       [--csv OUT] [--json OUT]
     loopkit gui [FILE]
@@ -1031,6 +1032,12 @@ def _cmd_report(args) -> int:
         find_chromium()  # a missing Chromium is said before the work
     load_step = _step_pair(args.load_step, "--load-step", "A") if args.load_step else None
     design = load_design(args.file)
+    if args.tolerance_draws < 0:
+        raise DesignError("--tolerance-draws", args.tolerance_draws, "must be a whole number >= 0")
+    if args.tolerance_draws and design.tolerances.empty:
+        raise DesignError("--tolerance-draws", args.tolerance_draws, f"needs a [tolerances] table in {args.file}")
+    if args.robust and not args.tolerance_draws:
+        raise DesignError("--robust", "(given)", "goes with --tolerance-draws N")
     result = design_loop(design)
     overlays = []
     if args.measured:
@@ -1048,7 +1055,12 @@ def _cmd_report(args) -> int:
             raise DesignError("", args.file, f"no parts to compare a {args.kind} measurement with (loopkit design"
                               f" {args.file} says why)")
         overlays.append(measured_overlay(result, m, corner))
-    write_report(result, args.output, args.pdf, path=args.file, overlays=overlays, load_step=load_step)
+    from .report.sections import review_sections
+
+    extra = review_sections(design, result, efficiency=not args.no_efficiency, tolerance_draws=args.tolerance_draws,
+                            random_state=args.random_state, robust=args.robust, switching=args.switching)
+    write_report(result, args.output, args.pdf, path=args.file, overlays=overlays, load_step=load_step,
+                 extra_sections=extra)
     print(wrap_note(f"wrote {', '.join(p for _, p, _ in outputs)}"))
     print(wrap_note(CAUTION))
     return _verdict_status(result, "report", args.file)
@@ -1165,6 +1177,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--columns", help="column mapping where the header is ambiguous, e.g. f_khz=0,gain_db=2,phase_deg=3")
     p.add_argument("--invert", action="store_true", help="negate the measurement (an analyser that shows -T)")
     p.add_argument("--load-step", metavar="FROM:TO", help="load step shown, A (default: half the largest load to it)")
+    p.add_argument("--no-efficiency", action="store_true", help="leave out the efficiency section")
+    p.add_argument("--tolerance-draws", type=int, default=0, metavar="N",
+                   help="add the tolerance study with N Monte Carlo draws (needs [tolerances]; default 0: none)")
+    p.add_argument("--random-state", type=int, default=0, help="random state of the tolerance draws (default 0)")
+    p.add_argument("--robust", action="store_true", help="with the tolerance study, also the robust network")
+    p.add_argument("--switching", action="store_true",
+                   help="add the switching check: steady state per corner, loop gain by injection at the design corner")
     p.set_defaults(run=_cmd_report)
 
     p = sub.add_parser("gui", help="open the desktop app")

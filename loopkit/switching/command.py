@@ -11,7 +11,7 @@ import argparse
 
 import numpy as np
 
-__all__ = ["add_parser", "run"]
+__all__ = ["add_parser", "default_frequencies", "run"]
 
 
 def add_parser(sub, add_target_options) -> None:
@@ -137,3 +137,8 @@ def run(args: argparse.Namespace) -> int:
     lines += ["", wrap_note(cli.CAUTION)]
     print("\n".join(lines))
     return 0
+
+
+def default_frequencies(result, corners, fsw: float) -> np.ndarray:
+    """The frequencies ``--loop-gain`` measures without a list (fc/4 to fsw/3); the report uses them too."""
+    return _frequencies("auto", result, corners, fsw)
