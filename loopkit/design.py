@@ -444,11 +444,6 @@ DIGITAL_UPDATES = ("next-period", "immediate")
 MIN_PWM_COUNTS = 16
 
 
-#: Longest computation delay of a digital controller, in sample periods: the z-domain loop carries one
-#: pole per period of delay, and a loop that waits longer than this cannot hold a useful crossover.
-MAX_DELAY_SAMPLES = 4
-
-
 @dataclass(frozen=True)
 class Digital:
     """The digital controller's hardware and form (``[digital]``; used with ``control.scheme = "digital"``).
@@ -524,12 +519,6 @@ class Digital:
         if not self.pwm_clock > 0:
             raise DesignError("digital.pwm_clock", format_value(self.pwm_clock, "Hz"),
                               "a digital design needs the PWM counter clock (> 0 Hz)")
-        ts = 1.0 / (design.stage.fsw * self.sample_ratio)
-        if self.computation_delay > MAX_DELAY_SAMPLES * ts:
-            raise DesignError("digital.computation_delay", format_value(self.computation_delay, "s"),
-                              f"at most {MAX_DELAY_SAMPLES} sample periods ({format_value(MAX_DELAY_SAMPLES * ts, 's')}"
-                              f" at fs = {format_value(1.0 / ts, 'Hz')}): a controller that needs longer cannot"
-                              " close a loop at this sampling rate; sample less often (a lower fsw) instead")
         if design.sensing.reference >= self.adc_range:
             raise DesignError("sensing.reference", format_value(design.sensing.reference, "V"),
                               f"the sensed output must lie inside the ADC range (below digital.adc_range ="

@@ -66,6 +66,11 @@ NAME = "digital"
 TITLE = "digital control"
 
 
+#: Longest computation delay, in sample periods: the z-domain loop carries one pole per period of delay;
+#: a controller that waits longer is better modelled at a lower sampling rate (and leaves fc far below fs).
+MAX_DELAY_SAMPLES = 32
+
+
 def sample_period_s(design) -> float:
     """Ts = 1 / (sample_ratio fsw), s."""
     return 1.0 / (design.stage.fsw * design.digital.sample_ratio)
@@ -126,6 +131,11 @@ def uncompensated(design, stage) -> SchemeLoop:
         raise DesignError("digital.pwm_clock", format_value(d.pwm_clock, "Hz"),
                           f"gives {counts:.3g} counts per switching period; at least {MIN_PWM_COUNTS}"
                           f" (a clock of {format_value(MIN_PWM_COUNTS * design.stage.fsw, 'Hz')} or more)")
+    if d.computation_delay > MAX_DELAY_SAMPLES * ts * (1 + 1e-9):
+        raise DesignError("digital.computation_delay", format_value(d.computation_delay, "s"),
+                          f"at most {MAX_DELAY_SAMPLES} sample periods ({format_value(MAX_DELAY_SAMPLES * ts, 's')}"
+                          f" at fs = {format_value(1.0 / ts, 'Hz')}): a controller that needs longer cannot be"
+                          " modelled at this sampling rate; sample less often (a lower fsw or sample_ratio) instead")
     chain = sensing_gain(design) * adc_codes_per_volt(design) / pwm_steps(design)
     if d.anti_alias > 0:
         chain = chain * Rational.from_factors(1.0, (), [(1.0, 1.0 / (TWO_PI * d.anti_alias))])
