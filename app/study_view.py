@@ -8,15 +8,9 @@ loop gain's envelope over the draws, shaded on the main Bode plot.
 
 from __future__ import annotations
 
-import sys
-import threading
-import traceback
-
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import QObject, QThread, Signal
 from PySide6.QtWidgets import (
-    QDialog,
     QDialogButtonBox,
     QHBoxLayout,
     QLabel,
@@ -28,9 +22,10 @@ from PySide6.QtWidgets import (
     QVBoxLayout,
 )
 
-from loopkit import DesignError
 from loopkit.loop import apply_parts
 from loopkit.montecarlo import loop_envelope, monte_carlo, prepare_study, sensitivity, worst_corner
+
+from .background import BackgroundDialog, BackgroundWorker
 
 __all__ = ["ENVELOPE_DRAWS", "StudyDialog", "StudyWorker"]
 
@@ -38,55 +33,40 @@ __all__ = ["ENVELOPE_DRAWS", "StudyDialog", "StudyWorker"]
 ENVELOPE_DRAWS = 300
 
 
-class StudyWorker(QObject):
-    """Runs a study in a QThread; emits progress (0-100) and a dict of library results when done."""
+class StudyWorker(BackgroundWorker):
+    """The tolerance study of the parts shown: a dict of library results when done."""
 
-    progress = Signal(int)
-    finished = Signal(object)  # {"study", "mc", "sensitivity", "envelope"}
-    failed = Signal(str)
+    WHAT = "compute this study"
 
     def __init__(self, design, result, draws: int, random_state: int):
         super().__init__()
         self._design = apply_parts(design, result)  # the parts shown, as built
         self._draws, self._random_state = draws, random_state
-        self._cancel = threading.Event()
 
-    def cancel(self) -> None:
-        self._cancel.set()
-
-    def run(self) -> None:
+    def compute(self):
         def progress(done, total):
-            self.progress.emit(int(100 * done / total))
-            if self._cancel.is_set():
+            self.report(done, total)
+            if self.cancelled():
                 raise KeyboardInterrupt  # monte_carlo keeps the chunks finished
 
-        try:
-            study = prepare_study(self._design)
-            mc = monte_carlo(study, self._draws, self._random_state, progress=progress)
-            sens = sensitivity(study, mc)
-            env = loop_envelope(study, mc.values[:ENVELOPE_DRAWS]) if mc.n else None
-        except DesignError as exc:
-            self.failed.emit(str(exc))
-            return
-        except Exception as exc:  # noqa: BLE001 - reported in the dialog (and logged): a loopkit bug
-            traceback.print_exception(exc, file=sys.stderr)
-            self.failed.emit(f"loopkit could not compute this study ({type(exc).__name__}: {exc}); please report it"
-                             f" with the design file.")
-            return
-        self.finished.emit({"study": study, "mc": mc, "sensitivity": sens, "envelope": env})
+        study = prepare_study(self._design)
+        mc = monte_carlo(study, self._draws, self._random_state, progress=progress)
+        sens = sensitivity(study, mc)
+        env = loop_envelope(study, mc.values[:ENVELOPE_DRAWS]) if mc.n else None
+        return {"study": study, "mc": mc, "sensitivity": sens, "envelope": env}
 
 
-class StudyDialog(QDialog):
+class StudyDialog(BackgroundDialog):
     """Yield, worst-corner PM histogram and sensitivity of the parts shown, over the design's tolerances."""
 
+    VERB = "study"
+    STOPPED = "Study stopped"
+
     def __init__(self, model, bode=None, parent=None):
-        super().__init__(parent)
+        super().__init__(model, parent)
         self.setWindowTitle("Tolerance study")
         self.resize(820, 720)
-        self._model, self._bode = model, bode
-        self._thread: QThread | None = None
-        self._worker: StudyWorker | None = None
-        self.data = None
+        self._bode = bode
         layout = QVBoxLayout(self)
         row = QHBoxLayout()
         row.addWidget(QLabel("Draws"))
@@ -129,44 +109,10 @@ class StudyDialog(QDialog):
         buttons.rejected.connect(self.reject)
         layout.addWidget(buttons)
 
-    def start(self) -> None:
-        result = self._model.result
-        if result is None or not result.feasible:
-            self.status.setText("No parts to study: the targets are not feasible.")
-            return
-        self.run_button.setEnabled(False)
-        self.cancel_button.setEnabled(True)
-        self.progress.setValue(0)
-        self.status.setText("Running…")
-        self._thread = QThread(self)
-        self._worker = StudyWorker(self._model.design, result, self.draws.value(), self.random_state.value())
-        self._worker.moveToThread(self._thread)
-        self._thread.started.connect(self._worker.run)
-        self._worker.progress.connect(self.progress.setValue)
-        self._worker.finished.connect(self._on_study_finished)
-        self._worker.failed.connect(self._on_study_failed)
-        self._worker.finished.connect(self._thread.quit)
-        self._worker.failed.connect(self._thread.quit)
-        self._thread.start()
+    def make_worker(self, result) -> StudyWorker:
+        return StudyWorker(self._model.design, result, self.draws.value(), self.random_state.value())
 
-    def cancel(self) -> None:
-        if self._worker is not None:
-            self._worker.cancel()
-
-    def is_running(self) -> bool:
-        return self._thread is not None and self._thread.isRunning()
-
-    def _done(self) -> None:
-        self.run_button.setEnabled(True)
-        self.cancel_button.setEnabled(False)
-
-    def _on_study_failed(self, message: str) -> None:
-        self._done()
-        self.status.setText(f"Study stopped: {message}")
-
-    def _on_study_finished(self, data: dict) -> None:
-        self._done()
-        self.data = data
+    def show_results(self, data: dict) -> None:
         mc = data["mc"]
         if not mc.n:
             self.status.setText("Cancelled before the first draws finished.")
@@ -196,17 +142,3 @@ class StudyDialog(QDialog):
         self.table.resizeColumnsToContents()
         if self._bode is not None and data["envelope"] is not None:
             self._bode.set_envelope(data["envelope"])
-
-    def closeEvent(self, event) -> None:
-        self.cancel()
-        if self._thread is not None:
-            self._thread.quit()
-            self._thread.wait(10000)
-        super().closeEvent(event)
-
-    def reject(self) -> None:
-        self.cancel()
-        if self._thread is not None:
-            self._thread.quit()
-            self._thread.wait(10000)
-        super().reject()

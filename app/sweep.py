@@ -7,15 +7,9 @@ so the curves are the same numbers the corner table and ``loopkit sweep`` show.
 
 from __future__ import annotations
 
-import sys
-import threading
-import traceback
-
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import QObject, QThread, Signal
 from PySide6.QtWidgets import (
-    QDialog,
     QDialogButtonBox,
     QHBoxLayout,
     QLabel,
@@ -25,63 +19,42 @@ from PySide6.QtWidgets import (
     QVBoxLayout,
 )
 
-from loopkit import DesignError, format_value
+from loopkit import format_value
 from loopkit.sweep import sweep_design, vin_sweep
 
+from .background import BackgroundDialog, BackgroundWorker
 from .plots import load_styles, vin_colour_map
 
 __all__ = ["SweepDialog", "SweepWorker", "sweep_design"]
 
 
 
-class SweepWorker(QObject):
-    """Runs the sweep in a QThread; emits progress (0-100) and the margins arrays when done."""
+class SweepWorker(BackgroundWorker):
+    """The dense sweep (:func:`loopkit.sweep.vin_sweep`); its margins arrays as a dict when done."""
 
-    progress = Signal(int)
-    finished = Signal(object)  # dict with vin, load, fc_hz, pm_deg, gm_db (arrays by corner)
-    failed = Signal(str)
+    WHAT = "compute this sweep"
 
     def __init__(self, design, result, points: int):
         super().__init__()
         lo, hi = min(design.operating.vin), max(design.operating.vin)
         self._vin = np.linspace(lo, hi, points) if hi > lo else np.array([lo])
         self._design, self._result = design, result
-        self._cancel = threading.Event()
 
-    def cancel(self) -> None:
-        self._cancel.set()
-
-    def run(self) -> None:
-        def progress(done, total):
-            self.progress.emit(int(100 * done / total))
-
-        try:
-            swept = vin_sweep(self._design, self._result, self._vin, progress, self._cancel.is_set)
-        except DesignError as exc:
-            self.failed.emit(str(exc))
-            return
-        except Exception as exc:  # noqa: BLE001 - reported in the dialog (and logged): a loopkit bug
-            traceback.print_exception(exc, file=sys.stderr)
-            self.failed.emit(f"loopkit could not compute this sweep ({type(exc).__name__}: {exc}); please report it"
-                             f" with the design file.")
-            return
-        if swept.cancelled:
-            self.failed.emit("cancelled")
-            return
-        self.finished.emit(swept.as_dict())
+    def compute(self):
+        swept = vin_sweep(self._design, self._result, self._vin, self.report, self.cancelled)
+        return None if swept.cancelled else swept.as_dict()
 
 
-class SweepDialog(QDialog):
+class SweepDialog(BackgroundDialog):
     """Phase margin and crossover against input voltage, for each load, with the current parts."""
 
+    VERB = "sweep"
+    STOPPED = "Sweep stopped"
+
     def __init__(self, model, parent=None):
-        super().__init__(parent)
+        super().__init__(model, parent)
         self.setWindowTitle("Dense input-voltage sweep")
         self.resize(900, 620)
-        self._model = model
-        self._thread: QThread | None = None
-        self._worker: SweepWorker | None = None
-        self.data = None
         layout = QVBoxLayout(self)
         row = QHBoxLayout()
         row.addWidget(QLabel("Input voltages"))
@@ -121,44 +94,10 @@ class SweepDialog(QDialog):
         buttons.rejected.connect(self.reject)
         layout.addWidget(buttons)
 
-    def start(self) -> None:
-        result = self._model.result
-        if result is None or not result.feasible:
-            self.status.setText("No parts to sweep: the targets are not feasible.")
-            return
-        self.run_button.setEnabled(False)
-        self.cancel_button.setEnabled(True)
-        self.progress.setValue(0)
-        self.status.setText("Running…")
-        self._thread = QThread(self)
-        self._worker = SweepWorker(self._model.design, result, self.points.value())
-        self._worker.moveToThread(self._thread)
-        self._thread.started.connect(self._worker.run)
-        self._worker.progress.connect(self.progress.setValue)
-        self._worker.finished.connect(self._on_sweep_finished)
-        self._worker.failed.connect(self._on_sweep_failed)
-        self._worker.finished.connect(self._thread.quit)
-        self._worker.failed.connect(self._thread.quit)
-        self._thread.start()
+    def make_worker(self, result) -> SweepWorker:
+        return SweepWorker(self._model.design, result, self.points.value())
 
-    def cancel(self) -> None:
-        if self._worker is not None:
-            self._worker.cancel()
-
-    def is_running(self) -> bool:
-        return self._thread is not None and self._thread.isRunning()
-
-    def _done(self) -> None:
-        self.run_button.setEnabled(True)
-        self.cancel_button.setEnabled(False)
-
-    def _on_sweep_failed(self, message: str) -> None:
-        self._done()
-        self.status.setText(f"Sweep stopped: {message}")
-
-    def _on_sweep_finished(self, data: dict) -> None:
-        self._done()
-        self.data = data
+    def show_results(self, data: dict) -> None:
         for p in (self.pm_plot, self.gm_plot, self.fc_plot):
             p.clear()
         self.legend.clear()
@@ -172,21 +111,17 @@ class SweepDialog(QDialog):
             self.fc_plot.plot(data["vin"][sel], data["fc_hz"][sel], pen=pen)
             gm = np.where(np.isfinite(data["gm_db"][sel]), data["gm_db"][sel], np.nan)  # no phase crossover: gap
             self.gm_plot.plot(data["vin"][sel], gm, pen=pen, connect="finite")
+        no_gm = not np.any(np.isfinite(data["gm_db"]))  # an empty plot with made-up ticks would look like a fault
+        self.gm_plot.getAxis("left").setStyle(showValues=not no_gm)
+        if no_gm:
+            note = pg.TextItem("No gain margin at any swept point: the phase reaches -180° only above fsw/2, or"
+                               " never (the corner table says which)", color=(90, 90, 90), anchor=(0.5, 0.5))
+            self.gm_plot.addItem(note)
+            note.setPos(0.5 * (data["vin"].min() + data["vin"].max()), 0.5)
+            self.gm_plot.setYRange(0.0, 1.0)
+        else:
+            self.gm_plot.enableAutoRange(axis="y")
         k = int(np.nanargmin(data["pm_deg"])) if np.any(np.isfinite(data["pm_deg"])) else 0
         self.status.setText(
             f"{len(data['vin'])} corners. Lowest phase margin {data['pm_deg'][k]:.1f}° at "
             f"{format_value(data['vin'][k], 'V')}, {format_value(data['load'][k], 'A')}.")
-
-    def closeEvent(self, event) -> None:
-        self.cancel()
-        if self._thread is not None:
-            self._thread.quit()
-            self._thread.wait(5000)
-        super().closeEvent(event)
-
-    def reject(self) -> None:
-        self.cancel()
-        if self._thread is not None:
-            self._thread.quit()
-            self._thread.wait(5000)
-        super().reject()

@@ -7,15 +7,9 @@ step); this module only draws them and runs the work in a QThread with progress 
 
 from __future__ import annotations
 
-import sys
-import threading
-import traceback
-
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import QObject, QThread, Signal
 from PySide6.QtWidgets import (
-    QDialog,
     QDialogButtonBox,
     QHBoxLayout,
     QLabel,
@@ -25,38 +19,33 @@ from PySide6.QtWidgets import (
     QVBoxLayout,
 )
 
-from loopkit import DesignError, format_value
+from loopkit import format_value
 from loopkit import switching as sw
 
+from .background import BackgroundDialog, BackgroundWorker
 from .freq import hz_to_view
 from .plots import magnitude_db
 
 __all__ = ["SwitchingDialog", "SwitchingWorker"]
 
 
-class SwitchingWorker(QObject):
+class SwitchingWorker(BackgroundWorker):
     """Steady state, loop gain at fc/4 .. fsw/3 and a load step of half the corner's load, for one corner."""
 
-    progress = Signal(int)
-    finished = Signal(object)  # dict: steady, loop_gain, step
-    failed = Signal(str)
+    WHAT = "simulate this corner"
 
     def __init__(self, result, corner: int):
         super().__init__()
         self._result, self._corner = result, corner
-        self._cancel = threading.Event()
-
-    def cancel(self) -> None:
-        self._cancel.set()
 
     def _stage(self, lo: int, hi: int):
         def progress(done, total):
             self.progress.emit(int(lo + (hi - lo) * done / max(total, 1)))
-            return not self._cancel.is_set()
+            return not self.cancelled()
 
         return progress
 
-    def run(self) -> None:
+    def compute(self):
         r, k = self._result, self._corner
         try:
             setup = sw.closed_loop_setup(r)
@@ -67,31 +56,21 @@ class SwitchingWorker(QObject):
             gain = sw.loop_gain(setup, f, corners=[k], progress=self._stage(10, 70))
             step = sw.load_step(setup, 0.5 * float(r.stage.load[k]), corners=[k], progress=self._stage(70, 100))
         except sw.Cancelled:
-            self.failed.emit("cancelled")
-            return
-        except DesignError as exc:
-            self.failed.emit(str(exc))
-            return
-        except Exception as exc:  # noqa: BLE001 - reported in the dialog (and logged): a loopkit bug
-            traceback.print_exception(exc, file=sys.stderr)
-            self.failed.emit(f"loopkit could not simulate this corner ({type(exc).__name__}: {exc}); please report it"
-                             " with the design file.")
-            return
+            return None
         self.progress.emit(100)
-        self.finished.emit({"steady": steady, "loop_gain": gain, "step": step, "corner": k})
+        return {"steady": steady, "loop_gain": gain, "step": step, "corner": k}
 
 
-class SwitchingDialog(QDialog):
+class SwitchingDialog(BackgroundDialog):
     """Loop gain measured by injection over the averaged Bode, and a load step over the averaged one."""
 
+    VERB = "simulate"
+    STOPPED = "Simulation stopped"
+
     def __init__(self, model, parent=None):
-        super().__init__(parent)
+        super().__init__(model, parent)
         self.setWindowTitle("Switching check")
         self.resize(960, 700)
-        self._model = model
-        self._thread: QThread | None = None
-        self._worker: SwitchingWorker | None = None
-        self.data = None
         layout = QVBoxLayout(self)
         row = QHBoxLayout()
         row.addWidget(QLabel("Corner"))
@@ -138,44 +117,10 @@ class SwitchingDialog(QDialog):
         buttons.rejected.connect(self.reject)
         layout.addWidget(buttons)
 
-    def start(self) -> None:
-        result = self._model.result
-        if result is None or not result.feasible:
-            self.status.setText("No parts to simulate: the targets are not feasible.")
-            return
-        self.run_button.setEnabled(False)
-        self.cancel_button.setEnabled(True)
-        self.progress.setValue(0)
-        self.status.setText("Running…")
-        self._thread = QThread(self)
-        self._worker = SwitchingWorker(result, self.corner.value())
-        self._worker.moveToThread(self._thread)
-        self._thread.started.connect(self._worker.run)
-        self._worker.progress.connect(self.progress.setValue)
-        self._worker.finished.connect(self._on_run_finished)
-        self._worker.failed.connect(self._on_run_failed)
-        self._worker.finished.connect(self._thread.quit)
-        self._worker.failed.connect(self._thread.quit)
-        self._thread.start()
+    def make_worker(self, result) -> SwitchingWorker:
+        return SwitchingWorker(result, self.corner.value())
 
-    def cancel(self) -> None:
-        if self._worker is not None:
-            self._worker.cancel()
-
-    def is_running(self) -> bool:
-        return self._thread is not None and self._thread.isRunning()
-
-    def _done(self) -> None:
-        self.run_button.setEnabled(True)
-        self.cancel_button.setEnabled(False)
-
-    def _on_run_failed(self, message: str) -> None:
-        self._done()
-        self.status.setText(f"Simulation stopped: {message}")
-
-    def _on_run_finished(self, data: dict) -> None:
-        self._done()
-        self.data = data
+    def show_results(self, data: dict) -> None:
         result, k = self._model.result, data["corner"]
         lg, step, ss = data["loop_gain"], data["step"], data["steady"]
         for p in (self.mag_plot, self.phase_plot, self.step_plot):
@@ -209,17 +154,3 @@ class SwitchingDialog(QDialog):
             f" peak current {format_value(ss.il_peak_a[0], 'A')} ({'DCM' if ss.dcm[0] else 'CCM'}); {where}; load"
             f" step {format_value(step.amplitude_a, 'A')}: peak {format_value(step.peak_v[0], 'V')} switching,"
             f" {format_value(avg.peak_v[k], 'V')} averaged.")
-
-    def _stop(self) -> None:
-        self.cancel()
-        if self._thread is not None:
-            self._thread.quit()
-            self._thread.wait(10000)
-
-    def closeEvent(self, event) -> None:
-        self._stop()
-        super().closeEvent(event)
-
-    def reject(self) -> None:
-        self._stop()
-        super().reject()
