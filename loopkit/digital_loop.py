@@ -212,8 +212,12 @@ def _design_corner(session, targets: Targets) -> int:
     return int(candidates[order[0]])
 
 
-def run(session, targets: Targets) -> LoopResult:
-    """Design the digital controller for ``targets`` and analyse every corner (module notes)."""
+def run(session, targets: Targets, preview: bool = False) -> LoopResult:
+    """Design the digital controller for ``targets`` and analyse every corner (module notes).
+
+    ``preview`` (a slider being dragged) leaves out the fixed-point realisation and the resolution check
+    (:mod:`loopkit.digital_handoff`, about a third of a run); the drag ends with a full run.
+    """
     design, stage = session.design, session.stage
     d = design.digital
     tu = session.uncompensated
@@ -266,9 +270,10 @@ def run(session, targets: Targets) -> LoopResult:
         gvd_dc=np.asarray(stage.gvd.dc_gain(), float), duty=np.asarray(stage.duty, float),
         word_length=d.word_length, frac_bits=d.frac_bits,
     )
-    handoff = realisation(digital, tu, f, targets.pm_deg, targets.gm_db, design.stage.fsw)
-    digital = replace(digital, realisation=handoff)
-    findings.extend(handoff.findings)
+    if not preview:
+        handoff = realisation(digital, tu, f, targets.pm_deg, targets.gm_db, design.stage.fsw)
+        digital = replace(digital, realisation=handoff)
+        findings.extend(handoff.findings)
     zeros, poles = c.zeros()[0], c.poles()[0]
     return LoopResult(
         design=with_targets(design, targets), stage=stage, targets=targets, f_hz=f, feasible=True,

@@ -131,7 +131,7 @@ class LoopSession:
         if self.scheme.sampled is not None:  # digital control: the controller is designed in z
             from .digital_loop import run as run_digital
 
-            return run_digital(self, targets or Targets.from_design(self.design))
+            return run_digital(self, targets or Targets.from_design(self.design), preview)
         if targets is None and comp.parts:
             return self._analyse_given(Targets.from_design(self.design))
         targets = targets or Targets.from_design(self.design)

@@ -106,3 +106,18 @@ def test_resolution_limit_breaks_the_verdict_and_names_the_fix(result):
     np.testing.assert_allclose(res.dv_pwm_v, st.vin / (1.0 - st.duty) ** 2 / 256.0, rtol=0.05)
     np.testing.assert_allclose(res.dv_adc_v, 3.3 / 1024 / 0.125, rtol=1e-12)
     assert all("dither bit" in f.message for f in hit)
+
+
+def test_slider_preview_leaves_the_handoff_to_the_full_run():
+    """A preview (slider drag) skips the fixed-point realisation; the full run that ends the drag has it, and
+    the preview's margins are the full run's (the realisation does not change the exact loop)."""
+    from loopkit.loop import LoopSession
+    from loopkit.result import Targets
+
+    design = load_design(SAMPLE)
+    session = LoopSession(design)
+    targets = Targets.from_design(design)
+    full = session.run(targets)
+    preview = session.run(targets, preview=True)
+    assert full.digital.realisation is not None and preview.digital.realisation is None
+    np.testing.assert_array_equal(preview.margins.pm_deg, full.margins.pm_deg)
