@@ -43,7 +43,7 @@ def _controller_lines(result) -> list[str]:
         wrap_note(f"Sampling: fs {_fmt(dig.fs_hz, 'Hz')} (Ts {_fmt(dig.ts_s, 's')}), Nyquist {_fmt(dig.fs_hz / 2, 'Hz')};"
                   f" ADC {dig.adc_bits} bits over {_fmt(dig.adc_range_v, 'V')} (1 code = {_fmt(dig.adc_lsb_v, 'V')});"
                   f" PWM {dig.pwm_counts:.6g} counts per period"
-                  + (f", {dig.pwm_steps:.6g} steps with {dig.dither_bits} dither bits" if dig.dither_bits else "")),
+                  + (f", {dig.pwm_steps:.6g} steps with {dig.dither_bits} dither bit{'s' if dig.dither_bits > 1 else ''}" if dig.dither_bits else "")),
         "",
         wrap_note("Difference equation, e = set point - ADC reading (codes), u = PWM steps:"
                   " u[k] = b0 e[k] + b1 e[k-1] + ... - a1 u[k-1] - ...  (exact coefficients, and the"
