@@ -378,8 +378,11 @@ def _response_error(b, a, bq, aq, ts: float) -> tuple[float, float]:
 
 
 def _integerise(b, a, fb: int, fa: int, word_bits: int, integrator: bool) -> tuple[np.ndarray, np.ndarray]:
-    bi = _round_half_away(b * 2.0**fb).astype(np.int64)
-    ai = _round_half_away(a[1:] * 2.0**fa).astype(np.int64)
+    limit = 2 ** (word_bits - 1) - 1
+    bf, af = _round_half_away(b * 2.0**fb), _round_half_away(a[1:] * 2.0**fa)
+    if np.any(np.abs(bf) > limit) or np.any(np.abs(af) > limit):  # checked before the cast, which would wrap
+        raise DesignError("frac_bits", (fb, fa), f"coefficients that fit a signed {word_bits}-bit word")
+    bi, ai = bf.astype(np.int64), af.astype(np.int64)
     if integrator and ai.size:
         residual = int(2**fa + ai.sum()) if fa >= 0 else 0
         if residual:
@@ -387,7 +390,6 @@ def _integerise(b, a, fb: int, fa: int, word_bits: int, integrator: bool) -> tup
             trial = [abs(ai[j] - residual - exact[j]) for j in range(ai.size)]
             j = int(np.argmin(trial))
             ai[j] -= residual
-    limit = 2 ** (word_bits - 1) - 1
     if np.any(np.abs(bi) > limit) or np.any(np.abs(ai) > limit):
         raise DesignError("frac_bits", (fb, fa), f"coefficients that fit a signed {word_bits}-bit word")
     return bi, ai
