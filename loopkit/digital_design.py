@@ -14,12 +14,12 @@ gain k puts ``|T(fc)| = 1``:
 
 - :func:`direct_design`: in z.  A zero or pole at frequency f lies at ``z = exp(-2 pi f Ts)``
   (the matched mapping of a real root), and K and k are solved on the exact sampled loop
-  ``Tu(z) C(z)`` at the design corner, so the hold and every delay are in the design (direct
+  ``Tu(z) C(z)`` at the design corner, so the sampling and every delay are in the design (direct
   digital design, L. Corradini, D. Maksimovic, P. Mattavelli, R. Zane, Digital Control of
   High-Frequency Switched-Mode Power Converters, 2015, from memory).
 - :func:`analog_design`: the same form in s, ``k (1 + s/wz)^nz / (s (1 + s/wp)^np)``, designed on
-  the continuous chain with the delay approximated as ``exp(-s (tau + Ts/2))`` (the hold's
-  half sample plus the loop delay; REFERENCES.md "Digital control": close far below fs/2 only);
+  the continuous chain with the delay ``exp(-s tau)`` (the loop delay to the modulated edge: the
+  sampled model's low-frequency limit, :mod:`loopkit.sampled`; close far below fs/2 only);
   :func:`loopkit.digital_control.tustin` (prewarped at fc) and
   :func:`loopkit.digital_control.matched` turn it into the comparison controllers.
 
@@ -134,7 +134,7 @@ def direct_design(form: str, plant: Discrete, fc_hz: float, pm_deg: float) -> tu
 def analog_design(form: str, plant: Rational, fc_hz: float, pm_deg: float) -> tuple[Rational, float]:
     """The analog controller ``C(s)`` of ``form`` for the continuous ``plant`` (its delay included).
 
-    ``plant`` is the continuous chain with the delay ``tau + Ts/2`` (one corner).  Returns the
+    ``plant`` is the continuous chain with the delay ``tau`` (one corner).  Returns the
     controller (one corner, for :func:`~loopkit.digital_control.tustin` or
     :func:`~loopkit.digital_control.matched`) and its K.
     """

@@ -79,7 +79,7 @@ class DigitalLoop:
     delay_s : ndarray (corners,)
         Total loop delay, sample to the modulated edge, s.
     delay_phase_deg : ndarray (corners,)
-        Phase the hold and the delay cost at the target fc: continuous chain minus ``Tu(z)``, deg.
+        Phase the sampling and the delay cost at the target fc: continuous chain minus ``Tu(z)``, deg.
     adc_bits : int
     adc_range_v, adc_lsb_v : float
         ADC full scale and one code, V at its input.
@@ -174,7 +174,7 @@ def _designs(session, targets: Targets, corner: int, pm_goal: dict | None = None
         out["direct"] = (c, k, "")
     except InfeasibleDesign as exc:
         out["direct"] = (None, np.nan, f"{exc.allowed}; {'; '.join(exc.reasons)}")
-    delay = session.scheme.figures["delay_s"][corner] + 0.5 * ts
+    delay = session.scheme.figures["delay_s"][corner]  # the edge model's low-frequency limit (loopkit.sampled)
     chain = session.scheme.tu.take(corner) * Rational.from_factors(1.0, (), (), delay_s=delay)
     for method, discretise in (("tustin", lambda c: tustin(c, ts, fc)), ("matched", lambda c: matched(c, ts))):
         try:

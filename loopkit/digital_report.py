@@ -115,8 +115,8 @@ def digital_text(result, header: list[str], findings: list[str]) -> str:
     else:
         out += _controller_lines(result)
         out += ["", "Loop gain at every corner, T(z) = Tu(z) C(z) up to fs/2:", _delay_table(result),
-                wrap_note("Delay: sample to the modulated edge, in sample periods. Lag: phase the hold and the"
-                          " delay cost at the target fc. PM, GM on the unit circle up to fs/2; Stable: from the"
+                wrap_note("Delay: sample to the modulated edge, in sample periods. Lag: phase the sampling and"
+                          " the delay cost at the target fc. PM, GM on the unit circle up to fs/2; Stable: from the"
                           " z-plane roots of 1 + T. *: worst corner."),
                 "", "The same targets by each design method (*: the one used):", _comparison_table(result)]
     if findings:

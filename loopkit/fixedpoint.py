@@ -300,17 +300,30 @@ class FixedPointController:
         if rows == 1:
             out1 = np.array(self._run_one(e_all[0].tolist(), u_init), dtype=np.int64)
             return out1 if arr.ndim == 1 else out1[None, :]
-        e0, y0 = self.initial_state(u_init)
-        e_hist = np.broadcast_to(e0, (rows, e0.size)).copy()
-        y_hist = np.broadcast_to(y0, (rows, y0.size)).copy()
+        step = self.rows_stepper(np.full(rows, u_init))
+        out = np.empty((rows, n), dtype=np.int64)
+        for k in range(n):
+            out[:, k] = step(e_all[:, k])
+        return out[0] if arr.ndim == 1 else out
+
+    def rows_stepper(self, u_init):
+        """A function ``step(e) -> u`` for many independent rows at once (int64 arrays (rows,)), holding their
+        state: the arithmetic of :meth:`stepper`, vectorised, for closed-loop simulations of many lanes.
+
+        ``u_init`` (rows,): each row's starting stored output, PWM counts (clamped to the limits).
+        """
+        u0 = np.atleast_1d(np.asarray(u_init, dtype=np.int64))
+        e_hist = np.zeros((u0.size, len(self.b_int)), dtype=np.int64)
+        y0 = np.clip(u0 * 2**self.state_frac_bits, self.y_min, self.y_max)
+        y_hist = np.repeat(y0[:, None], len(self.a_int), axis=1)
         bi = np.asarray(self.b_int, dtype=np.int64)
         ai = np.asarray(self.a_int, dtype=np.int64)
         bs, as_ = np.int64(self.b_scale), np.int64(self.a_scale)
         shift = self.acc_frac_bits - self.state_frac_bits
-        out = np.empty((rows, n), dtype=np.int64)
-        for k in range(n):
+
+        def step(e) -> np.ndarray:
             e_hist[:, 1:] = e_hist[:, :-1]
-            e_hist[:, 0] = e_all[:, k]
+            e_hist[:, 0] = np.clip(np.asarray(e, dtype=np.int64), self.e_min, self.e_max)
             acc = (e_hist @ bi) * bs
             if ai.size:
                 acc = acc - (y_hist @ ai) * as_
@@ -318,8 +331,9 @@ class FixedPointController:
             if ai.size:
                 y_hist[:, 1:] = y_hist[:, :-1]
                 y_hist[:, 0] = y
-            out[:, k] = rshift_round(y, self.state_frac_bits)
-        return out[0] if arr.ndim == 1 else out
+            return rshift_round(y, self.state_frac_bits)
+
+        return step
 
     def _run_one(self, errors: list, u_init: int) -> list:
         """One run in Python integers (the same arithmetic as the rows of :meth:`run`; several times faster)."""

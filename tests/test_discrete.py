@@ -194,6 +194,63 @@ def test_zoh_equals_scipy_cont2discrete(name):
         np.testing.assert_allclose(mine.response(f)[k], ref, rtol=1e-7)
 
 
+def _strictly_proper_part(r: Rational, k: int):
+    """Corner k as (num, den) descending, with the high-frequency constant D taken out (num - D den)."""
+    num, den = _desc(r, k)
+    num = np.r_[np.zeros(den.size - num.size), num]
+    d = num[0] / den[0]
+    return np.trim_zeros(num - d * den, "f"), den
+
+
+@pytest.mark.filterwarnings("ignore:Badly conditioned filter coefficients")
+@pytest.mark.parametrize("name", SAMPLES)
+@pytest.mark.parametrize("samples", [0, 1, 2])
+def test_edge_model_at_whole_sample_delays_equals_scipy_impulse(name, samples):
+    """The modulated-edge model with tau = N Ts: impulses of area Ts u_k at k Ts + N Ts, seen by samples after
+    them, is ``z^-N (H(z) - Ts C B)`` with H scipy's impulse-invariant ``cont2discrete(method='impulse')``
+    (``Ts sum_{m>=0} C Phi^m B z^-m``); the plant's high-frequency constant D carries an impulse that no
+    sample sees, so the strictly proper part is compared (every corner, incl. the biproper four-switch)."""
+    st = _stage(name)
+    ts = 1.0 / st.fsw_hz
+    mine = sampled_plant(st.gvd, ts, samples * ts, hold="edge")
+    f = np.geomspace(10.0, 0.5 / ts, 200)
+    z = _unit_circle(f, ts)
+    for k in range(st.gvd.n_corners):
+        num, den = _strictly_proper_part(st.gvd, k)
+        a, b, c, _ = ss.tf2ss(num, den)
+        ad, bd, cd, dd, _ = ss.cont2discrete((a, b, c, np.zeros((1, 1))), ts, method="impulse")
+        h = np.array([(cd @ np.linalg.solve(zi * np.eye(ad.shape[0]) - ad, bd))[0, 0] + dd[0, 0] for zi in z])
+        ref = (h - ts * (c @ b)[0, 0]) * z ** -samples
+        np.testing.assert_allclose(mine.response(f)[k], ref, rtol=1e-6, atol=1e-9 * np.max(np.abs(ref)))
+
+
+@pytest.mark.parametrize("tau_ts", [0.37, 1.0, 1.62])
+def test_edge_model_equals_literal_pulses(tau_ts):
+    """Fractional delays: the impulse response of the edge model against the literal simulation driving the
+    plant with a narrow pulse of area Ts at k Ts + tau (tests/reference/sampled_sim.py, hold="edge"), open
+    loop, two corners of a boost (RHP zero) and a buck; the pulse's width (1e-5 Ts) bounds the difference."""
+    from scipy.signal import lfilter
+
+    from tests.reference.sampled_sim import simulate
+
+    for name in ("buck_24v_3v3", "boost_pcm_12v_24v"):
+        st = _stage(name)
+        ts = 1.0 / st.fsw_hz
+        model = sampled_plant(st.gvd, ts, tau_ts * ts, hold="edge")
+        n = 400
+        pulse = np.zeros(n)
+        pulse[0] = 1.0
+        for k in (0, st.gvd.n_corners - 1):
+            num, den = _strictly_proper_part(st.gvd, k)
+            _, y_sim, _ = simulate(num, den, ts, tau_ts * ts, None, None, pulse, hold="edge")
+            zn, zd = model.take(k).polys()
+            zn, zd = np.trim_zeros(zn[0], "b")[::-1], np.trim_zeros(zd[0], "b")[::-1]
+            zn = np.r_[np.zeros(zd.size - zn.size), zn]
+            y_model = lfilter(zn, zd, pulse)
+            scale = np.max(np.abs(y_sim))
+            np.testing.assert_allclose(y_model, y_sim, atol=3e-5 * scale)
+
+
 def test_plant_delay_adds_to_the_loop_delay():
     st = _stage("buck_24v_3v3")
     ts = 1.0 / st.fsw_hz

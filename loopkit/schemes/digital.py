@@ -2,7 +2,7 @@
 
 The loop, in the controller's own units (ADC codes in, PWM steps out)::
 
-    u_k (PWM steps) --1/N_pwm--> duty --ZOH, delay tau--> Gvd(s) --H(s)--> sensing --Haa(s)--> ADC 2^b / V_fs --> y_k
+    u_k (PWM steps) --1/N_pwm--> duty --edge, delay tau--> Gvd(s) --H(s)--> sensing --Haa(s)--> ADC 2^b / V_fs --> y_k
 
 - ``N_pwm = pwm_clock / fsw * 2^dither_bits``: PWM steps per switching period (the counter's
   counts, finer by the dithering bits), so the duty is ``u / N_pwm``;
@@ -12,9 +12,12 @@ The loop, in the controller's own units (ADC codes in, PWM steps out)::
 - ``Haa = 1 / (1 + s / (2 pi f_aa))``: the anti-alias pole (left out when 0);
 - ``2^b / V_fs``: ADC codes per volt.
 
-The continuous chain ``Tu(s) = 2^b/V_fs Haa H Gvd / N_pwm`` is sampled exactly with its zero-order
-hold and the total loop delay (:func:`loopkit.sampled.sampled_plant`; G. F. Franklin, J. D. Powell,
-M. L. Workman, Digital Control of Dynamic Systems, 3rd ed., 1998, ch. 4), giving ``Tu(z)``; the
+The continuous chain ``Tu(s) = 2^b/V_fs Haa H Gvd / N_pwm`` is sampled exactly with the total loop
+delay (:func:`loopkit.sampled.sampled_plant`, ``hold="edge"``): each sample's duty change acts as a
+pulse at the modulated edge, the discrete-time small-signal model of D. Maksimovic, R. Zane, IEEE TPEL
+22(6), 2007 (from memory), which the switching simulation confirms; a zero-order hold of the duty
+(G. F. Franklin, J. D. Powell, M. L. Workman, Digital Control of Dynamic Systems, 3rd ed., 1998, ch. 4)
+would add half a sample period of delay that the converter does not have.  That gives ``Tu(z)``; the
 loop gain is ``T(z) = Tu(z) C(z)`` with the controller ``C`` (ADC codes of error in, PWM steps
 out, positive: ``e = r - y``).
 
@@ -141,7 +144,7 @@ def uncompensated(design, stage) -> SchemeLoop:
         chain = chain * Rational.from_factors(1.0, (), [(1.0, 1.0 / (TWO_PI * d.anti_alias))])
     chain = chain * stage.gvd
     tau = loop_delay_s(design, stage.duty)
-    sampled = sampled_plant(chain, ts, tau)
+    sampled = sampled_plant(chain, ts, tau, hold="edge")
     n = stage.n_corners
     figures = {"delay_s": tau, "ts_s": np.full(n, ts), "pwm_steps": np.full(n, pwm_steps(design)),
                "adc_codes_per_volt": np.full(n, adc_codes_per_volt(design))}

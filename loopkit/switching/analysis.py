@@ -22,6 +22,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from fractions import Fraction
+from functools import partial
 
 import numpy as np
 
@@ -74,6 +75,8 @@ class SteadyState:
     z: np.ndarray
     corners: np.ndarray
     multipliers: np.ndarray
+    #: A digital loop's watch for hunting (:class:`loopkit.switching.digital.LimitCycle`); None for analog loops.
+    limit_cycle: object = None
 
 
 def _scales(setup: Setup, corners) -> np.ndarray:
@@ -152,6 +155,10 @@ def steady_state(setup: Setup, corners=None, check_periods: int = 20, progress=N
     (e.g. subharmonic oscillation of peak current mode without enough slope): the
     measured values are then those of the last period of the check run.
     """
+    if setup.digital is not None:  # a sampled controller's state is not in z: settled by running, not shooting
+        from .digital import steady_state as sampled_steady_state
+
+        return sampled_steady_state(setup, corners, progress)
     eng = setup.engine
     corners = np.arange(setup.n_corners) if corners is None else np.atleast_1d(np.asarray(corners, int))
     z, resid, multipliers = periodic_state(setup, corners, progress)
@@ -234,15 +241,23 @@ def load_step(setup: Setup, amplitude_a: float, periods: int | None = None, band
         fc_min = np.nanmin(fc) if np.any(np.isfinite(fc)) else 1.0 / avg.t_s[-1]
         periods = int(min(math.ceil(avg.t_s[-1] / ts), math.ceil(60.0 / (fc_min * ts)), 5000))
     before = 2
-    ss = steady_state(setup, corners, check_periods=2)
-    lanes = eng.lanes(corners)
-    rec = Record()
-    z = eng.run(lanes, ss.z, before, first_period=-before, record=rec, waveform=True)
     sign = 1.0 if design.operating.vout > 0 else -1.0
+    rec = Record()
+    if setup.digital is not None:  # the controller as built, settled by running (its state is not in z)
+        from .digital import settle
+
+        sampler, z, _, _ = settle(setup, corners)
+        lanes, runner = sampler.lanes, sampler.run
+        first = sampler.periods_run
+    else:
+        ss = steady_state(setup, corners, check_periods=2)
+        lanes = eng.lanes(corners)
+        z, runner, first = ss.z, partial(eng.run, lanes), 0
+    z = runner(z, before, first_period=first - before, record=rec, waveform=True)
     eng.set_load(lanes, sign * amplitude_a)
-    eng.run(lanes, z, periods, first_period=0, record=rec, waveform=True, progress=progress)
+    runner(z, periods, first_period=first, record=rec, waveform=True, progress=progress)
     a = rec.arrays()
-    t = a["wave_t"][0]
+    t = a["wave_t"][0] - first * ts
     v0 = np.mean(a["vo_avg"][:, :before], axis=1)
     dev = a["wave_vo"] - v0[:, None]
     mov = _moving_average(t, dev, ts)
@@ -307,6 +322,10 @@ def loop_gain(setup: Setup, f_hz, amplitude_v=None, corners=None, min_window: in
     """
     if setup.result is None:
         raise DesignError("loop", "open loop", "a loop gain needs the designed loop")
+    if setup.digital is not None:  # injected in the controller, on the sampled loop
+        from .digital import loop_gain as sampled_loop_gain
+
+        return sampled_loop_gain(setup, f_hz, amplitude_v, corners, min_window, progress)
     eng, design, result = setup.engine, setup.design, setup.result
     corners = np.arange(setup.n_corners) if corners is None else np.atleast_1d(np.asarray(corners, int))
     fsw = design.stage.fsw

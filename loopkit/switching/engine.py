@@ -387,10 +387,61 @@ class Engine:
         else:
             z3 = z2
         if record is not None:
-            self._record(lanes, record, (z, z1, z2), (d_on, d_off, d_idle), t0_abs, waveform)
+            self._record(lanes, record, [(ON, z, d_on), (OFF, z1, d_off), (IDLE, z2, d_idle)], t0_abs, waveform,
+                         on_s=d_on, conducting_s=d_on + d_off, il_peak=z1[:, 0])
         return z3
 
-    def _record(self, lanes, rec, starts, durs, t0_abs, waveform):
+    def period_at(self, lanes: Lanes, z: np.ndarray, t0_abs: np.ndarray, t_rise: np.ndarray, t_fall: np.ndarray,
+                  record: Record | None = None, waveform: bool = False) -> np.ndarray:
+        """Advance every lane by one period with the switch on from ``t_rise`` to ``t_fall`` (lanes,), s after
+        the clock edge (``0 <= t_rise <= t_fall <= Ts``): a sampled controller's counter PWM, whose edges are
+        set by compare values rather than by a comparator on the state.
+
+        Before ``t_rise`` the previous off-time goes on (a leading-edge or symmetric carrier), with the
+        rectifier's zero-current event (DCM) in both off-times, as in :meth:`period`.
+        """
+        n = lanes.n
+        t_rise = np.clip(np.asarray(t_rise, float), 0.0, self.ts)
+        t_fall = np.clip(np.asarray(t_fall, float), t_rise, self.ts)
+        segments = []
+        z_a, idle_a = self._off_time(lanes, z, t0_abs, t_rise, segments)
+        d_on = t_fall - t_rise
+        _, z_b = self._interval(lanes, ON, z_a, t0_abs + t_rise, d_on, None, np.zeros(n), np.zeros(n, bool))
+        segments.append((ON, z_a, d_on))
+        z_c, idle_b = self._off_time(lanes, z_b, t0_abs + t_fall, self.ts - t_fall, segments)
+        if record is not None:
+            self._record(lanes, record, segments, t0_abs, waveform, on_s=d_on, conducting_s=self.ts - idle_a - idle_b,
+                         il_peak=z_b[:, 0])
+        return z_c
+
+    def _off_time(self, lanes, z, t_abs, span, segments) -> tuple[np.ndarray, np.ndarray]:
+        """``span`` (lanes,) with the switch off: the rectifier conducts until its current reaches zero (DCM-capable
+        stages), then the idle state; appends both segments; returns the end state and the idle time."""
+        n = lanes.n
+        dcm = self.dcm_capable[lanes.corner]
+        positive = z[:, 0] > 0
+        t_max = np.where(dcm & ~positive, 0.0, span)
+        d_off, z1 = self._interval(lanes, OFF, z, t_abs, t_max, "il", np.zeros(n), dcm & positive)
+        idle = dcm & (d_off < span * (1 - 1e-12))
+        z1[idle, 0] = 0.0
+        d_idle = np.where(idle, span - d_off, 0.0)
+        d_off = np.where(idle, d_off, span)
+        segments += [(OFF, z, d_off), (IDLE, z1, d_idle)]
+        if not np.any(idle):
+            return z1, d_idle
+        _, z2 = self._interval(lanes, IDLE, z1, t_abs + d_off, d_idle, None, np.zeros(n), np.zeros(n, bool))
+        return np.where(idle[:, None], z2, z1), d_idle
+
+    def output(self, lanes: Lanes, z: np.ndarray, state: int) -> np.ndarray:
+        """The output voltage (lanes,) of state ``z`` in switch state ``state`` (ON, OFF or IDLE)."""
+        c = lanes.corner
+        return (np.einsum("ki,ki->k", self.c_vo[c, state], z) + self.d_vo[c, state]
+                + self.d_vo_ix[c, state] * lanes.i_x)
+
+    def _record(self, lanes, rec, segments, t0_abs, waveform, on_s, conducting_s, il_peak):
+        """Integrals and extremes over the period's ``segments`` [(switch state, start state, duration), ...] in
+        time order; ``on_s`` the on-time, ``conducting_s`` the time before the current stopped (DCM), ``il_peak``
+        the current at the end of the on-time."""
         panels = self.panels
         u = np.linspace(0.0, 1.0, panels + 1)
         wts = np.ones(panels + 1)
@@ -403,7 +454,7 @@ class Engine:
         dft_inj = np.zeros(lanes.n, complex)
         start = t0_abs.copy()
         wt, wv, wi = [], [], []
-        for s, z0, d in zip((ON, OFF, IDLE), starts, durs):
+        for s, z0, d in segments:
             t = d[:, None] * u[None, :]
             q = self._modal(lanes, s, z0, start, t)
             x = self._state(lanes, s, q)
@@ -422,10 +473,10 @@ class Engine:
             if waveform:
                 wt.append(start[:, None] + t), wv.append(vo), wi.append(il)
             start = start + d
-        rec.t_off.append(durs[0].copy())
-        rec.t_zero.append(durs[0] + durs[1])
-        rec.il_peak.append(starts[1][:, 0].copy())
-        rec.il_start.append(starts[0][:, 0].copy())
+        rec.t_off.append(np.array(on_s, float))
+        rec.t_zero.append(np.array(conducting_s, float))
+        rec.il_peak.append(np.array(il_peak, float))
+        rec.il_start.append(segments[0][1][:, 0].copy())
         rec.vo_avg.append(total / self.ts)
         rec.il_avg.append(il_int / self.ts)
         rec.vo_min.append(vmin)

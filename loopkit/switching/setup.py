@@ -21,8 +21,9 @@ so ``D = vc / Vramp`` as the averaged model's ``Fm = 1/Vramp``; feed-forward sca
 Vramp with vin, :func:`loopkit.schemes.voltage_mode.modulator_transfer`); peak current
 mode ends the on-time when ``Ri iL + Se t`` reaches ``vc`` (Ri the current-sense gain,
 Se the external slope, :func:`loopkit.schemes.peak_current.slope_of`); the open-loop
-runs use a fixed duty.  A digital scheme plugs in through ``Engine.period(duty=...)``:
-it samples the state at each clock edge and gives the duty of that period.
+runs use a fixed duty.  A digital scheme sets the switch edges itself
+(:mod:`loopkit.switching.digital`, :meth:`Engine.period_at`); the engine then carries only the
+sensing and anti-alias states with the converter's.
 """
 
 from __future__ import annotations
@@ -41,7 +42,7 @@ from .engine import Controller, Engine, Law
 __all__ = ["SCHEMES_SIMULATED", "Setup", "closed_loop_setup", "controller_of", "open_loop_setup", "regulated_output"]
 
 #: Control schemes the simulator runs in closed loop.
-SCHEMES_SIMULATED = ("voltage-mode", "peak-current")
+SCHEMES_SIMULATED = ("voltage-mode", "peak-current", "digital")
 _SPLIT = 1e-4
 
 
@@ -74,6 +75,9 @@ class Setup:
     vc0: np.ndarray
     result: object
     vc_per_duty: np.ndarray
+    #: The digital hardware (:class:`loopkit.switching.digital.SamplingPlant`) when a sampled controller closes
+    #: the loop through :meth:`Engine.period_at`; None for the analog schemes.
+    digital: object = None
 
     @property
     def n_corners(self) -> int:
@@ -155,6 +159,8 @@ def closed_loop_setup(result) -> Setup:
         raise DesignError("control.scheme", scheme, f"the switching simulation runs {', '.join(SCHEMES_SIMULATED)}")
     n = stage.n_corners
     ts = 1.0 / design.stage.fsw
+    if scheme == "digital":
+        return _digital_setup(result)
     ctrl = controller_of(result)
     if scheme == "voltage-mode":
         from ..schemes.voltage_mode import modulator_transfer
@@ -189,3 +195,18 @@ def closed_loop_setup(result) -> Setup:
         errs[k] = sol[-1]
     z0[:, :engine.m] = _start_plant(engine, stage, ctrl.v_target + errs)[:, :engine.m]
     return Setup(design, stage, engine, z0, vc0, result, per_duty)
+
+
+def _digital_setup(result) -> Setup:
+    """The converter with the sensing and anti-alias states in the engine; the controller runs at the clock edges
+    (:class:`loopkit.switching.digital.Sampler`).  The law is unused (the sampler sets the edges)."""
+    from .digital import sampling_plant
+
+    design, stage = result.design, result.stage
+    n = stage.n_corners
+    ts = 1.0 / design.stage.fsw
+    dp = sampling_plant(result, ts)
+    law = Law(np.zeros(n), np.zeros(n), stage.duty * ts, np.ones(n), design.modulator.max_duty)
+    engine = Engine(plant_circuits(design, stage.vin, stage.load), dp.filter, law, ts)
+    z0 = _start_plant(engine, stage, np.full(n, design.operating.vout))
+    return Setup(design, stage, engine, z0, np.full(n, np.nan), result, np.ones(n), digital=dp)

@@ -8,7 +8,12 @@ the matrix exponential of the augmented matrix over each interval where the
 plant input is constant.  The controller's difference equation runs literally
 on the samples, its output goes through a zero-order hold and reaches the
 plant ``delay_s`` later; the output is sampled at ``k Ts``, taking the input in
-force at that instant (an input change at exactly ``k Ts`` counts).  A small
+force at that instant (an input change at exactly ``k Ts`` counts).  With
+``hold="edge"`` the output instead moves a PWM edge: sample k's value ``u_k``
+becomes a pulse of area ``u_k Ts`` at ``k Ts + delay`` (height ``u_k / eps``,
+width ``eps Ts``, ``eps = 1e-5``: the small-signal limit of a pulse-width
+change of ``u_k Ts``, to within ``eps`` relative), the plant input being zero
+between pulses.  A small
 multi-sine perturbation is added to the controller's output and the loop gain
 at each tone is ``T = -C / U`` from single-bin DFTs over a whole number of
 periods, C the controller's output and U the duty command after the injection
@@ -54,7 +59,11 @@ class _Integrator:
         return phi @ x + gam * v
 
 
-def simulate(num_desc, den_desc, ts_s, delay_s, ctrl_b, ctrl_a, injection):
+#: The edge pulse's width, in sample periods.
+EDGE_WIDTH = 1e-5
+
+
+def simulate(num_desc, den_desc, ts_s, delay_s, ctrl_b, ctrl_a, injection, hold="zoh"):
     """Run the sampled loop for ``len(injection)`` samples from rest.
 
     Parameters
@@ -70,6 +79,8 @@ def simulate(num_desc, den_desc, ts_s, delay_s, ctrl_b, ctrl_a, injection):
         ``None`` for an open loop (c = 0).
     injection : ndarray
         Perturbation added to the controller's output at every sample.
+    hold : {"zoh", "edge"}
+        A held input, or a pulse at the modulated edge (module notes).
 
     Returns
     -------
@@ -117,7 +128,10 @@ def simulate(num_desc, den_desc, ts_s, delay_s, ctrl_b, ctrl_a, injection):
                     acc -= ca[i] * c[k - i]
             c[k] = acc / ca[0]
         u[k] = c[k] + injection[k]
-        events.append((k + tau, u[k]))
+        if hold == "edge":
+            events += [(k + tau, u[k] / EDGE_WIDTH), (k + tau + EDGE_WIDTH, 0.0)]
+        else:
+            events.append((k + tau, u[k]))
     return u, y, c
 
 
@@ -134,7 +148,7 @@ def single_bin(x: np.ndarray, m: int) -> complex:
 
 
 def loop_gain(num_desc, den_desc, ts_s, delay_s, ctrl_b, ctrl_a, window=2048,
-              bins=(8, 40, 128, 300, 512, 700, 850, 960, 1010, 1024), settle_windows=3):
+              bins=(8, 40, 128, 300, 512, 700, 850, 960, 1010, 1024), settle_windows=3, hold="zoh"):
     """Loop gain ``T = -C/U`` at ``bins`` (frequency ``m / (window Ts)``) from the closed-loop simulation.
 
     Returns (f_hz, T from the last window, T from the window before it): their
@@ -142,7 +156,7 @@ def loop_gain(num_desc, den_desc, ts_s, delay_s, ctrl_b, ctrl_a, window=2048,
     """
     total = window * (settle_windows + 2)
     p = multisine(total, window, bins)
-    u, _, c = simulate(num_desc, den_desc, ts_s, delay_s, ctrl_b, ctrl_a, p)
+    u, _, c = simulate(num_desc, den_desc, ts_s, delay_s, ctrl_b, ctrl_a, p, hold)
     out = []
     for start in (total - window, total - 2 * window):
         seg = slice(start, start + window)
