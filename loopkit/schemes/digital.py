@@ -58,6 +58,7 @@ __all__ = [
     "NAME",
     "TITLE",
     "adc_codes_per_volt",
+    "load_time_s",
     "loop_delay_s",
     "pwm_steps",
     "sample_period_s",
@@ -118,11 +119,17 @@ def loop_delay_s(design, duty) -> np.ndarray:
     d = design.digital
     ts = sample_period_s(design)
     edge = modulator_delay_s(d.carrier, duty, 1.0 / design.stage.fsw)
-    if d.update == "immediate":
-        t_load = d.computation_delay
-    else:
-        t_load = max(1, math.ceil(d.computation_delay / ts - 1e-9)) * ts
+    t_load = load_time_s(design)
     return t_load + np.mod(edge - t_load, ts)
+
+
+def load_time_s(design) -> float:
+    """``t_load``: from the sample to the compare register's load, s (module notes)."""
+    d = design.digital
+    if d.update == "immediate":
+        return float(d.computation_delay)
+    ts = sample_period_s(design)
+    return max(1, math.ceil(d.computation_delay / ts - 1e-9)) * ts
 
 
 def uncompensated(design, stage) -> SchemeLoop:

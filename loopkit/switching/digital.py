@@ -141,9 +141,9 @@ def sampling_plant(result, ts_s: float) -> SamplingPlant:
     if not 0 < ref < adc_max:
         raise DesignError("digital.adc_range", d.adc_range, f"the sensed output ({h_dc * design.operating.vout:.4g} V)"
                           " inside the ADC's range")
-    steps = int(round(dig.pwm_steps))
+    steps = round(float(dig.pwm_steps))
     u_min, u_max = pwm_limits(steps, dig.duty_min, dig.duty_max)
-    t_load = d.computation_delay if d.update == "immediate" else max(1, math.ceil(d.computation_delay / ts_s - 1e-9)) * ts_s
+    t_load = scheme.load_time_s(design)
     load_periods = int(np.floor(t_load / ts_s + 1e-12))
     offset = max(t_load - load_periods * ts_s, 0.0)
     fixed = dig.realisation.fixed if dig.realisation is not None else None
