@@ -149,6 +149,11 @@ class SwitchingDialog(BackgroundDialog):
         self.step_plot.setXRange(0.0, float(step.t_s[-1]), padding=0.02)
         where = (f"the averaged model departs by more than 1 dB or 5° from {format_value(limit, 'Hz')}"
                  if np.isfinite(limit) else "the averaged model holds within 1 dB and 5° at every frequency measured")
+        lc = ss.limit_cycle
+        if lc is not None:  # a digital loop as built: does it settle?
+            where += ("; it settles on one PWM value" if not lc.hunting[0] else
+                      f"; it hunts (a limit cycle): the PWM value spans {lc.u_span[0]:.0f} steps, the output"
+                      f" {format_value(lc.vo_span_v[0], 'V')}")
         self.status.setText(
             f"Corner {k}: output {format_value(ss.vout_v[0], 'V', 5)}, ripple {format_value(ss.ripple_pp_v[0], 'V')},"
             f" peak current {format_value(ss.il_peak_a[0], 'A')} ({'DCM' if ss.dcm[0] else 'CCM'}); {where}; load"

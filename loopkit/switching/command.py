@@ -80,8 +80,9 @@ def run(args: argparse.Namespace) -> int:
     fmt, stage = cli._fmt, result.stage
     names = cli._corner_names(stage)
     lines = [design.title or args.file, f"file: {args.file}", "",
-             wrap_note("switching simulation (exact piecewise-linear, cycle by cycle) of the parts to build, against"
-                       " the averaged model")]
+             wrap_note("switching simulation (exact piecewise-linear, cycle by cycle) of "
+                       + ("the controller as built (fixed point, ADC, counter PWM), against the sampled model T(z)"
+                          if setup.digital is not None else "the parts to build, against the averaged model"))]
     bar, progress = _bar(args, "steady state")
     with bar:
         ss = steady_state(setup, corners, progress=progress)
@@ -94,9 +95,27 @@ def run(args: argparse.Namespace) -> int:
         rows.append([str(k), names[k], mode, fmt(ss.vout_v[j], "V", 5), fmt(ss.ripple_pp_v[j], "V"),
                      fmt(ss.il_peak_a[j], "A"), fmt(stage.i_peak[k], "A"), f"{ss.duty[j]:.2%}",
                      f"{stage.duty[k]:.2%}"])
-    lines += ["", wrap_note(f"steady state (the divider's parts regulate to {fmt(v_set, 'V', 5)})"),
-              format_table(cols, rows)]
-    if not np.all(ss.settled):
+    lc = ss.limit_cycle
+    if lc is not None:  # a digital loop: the loop as built, watched for hunting after it settles
+        cols.append(Column("limit cycle", "", "<"))
+        for j, row in enumerate(rows):
+            row[2] = row[2].rstrip("?")
+            row.append(f"{lc.u_span[j]:.0f} PWM steps, {lc.code_span[j]:.0f} codes, {fmt(lc.vo_span_v[j], 'V')}"
+                       if lc.hunting[j] else "none")
+        dp = setup.digital
+        v_code = dp.ref_code * dp.lsb_v / dp.h_dc
+        lines += ["", wrap_note(f"steady state of the loop as built (fixed-point controller, ADC and PWM steps),"
+                                f" watched for {lc.periods} periods after settling; the reference code"
+                                f" {dp.ref_code} stands for {fmt(v_code, 'V', 5)} at the sampling instant,"
+                                f" ±{fmt(dp.lsb_out_v / 2, 'V')}"), format_table(cols, rows)]
+        if np.any(lc.hunting):
+            lines.append(wrap_note("a limit cycle: the PWM value or the ADC code keeps moving (spans shown: PWM"
+                                   " value, ADC code, the output's one-period average); see the resolution"
+                                   " findings of loopkit design (Peterchev & Sanders 2003)"))
+    else:
+        lines += ["", wrap_note(f"steady state (the divider's parts regulate to {fmt(v_set, 'V', 5)})"),
+                  format_table(cols, rows)]
+    if lc is None and not np.all(ss.settled):
         lines.append(wrap_note("? the run does not repeat from one period to the next there (e.g. subharmonic"
                                " oscillation): the figures are those of the last period"))
     if args.load_step is not None:
@@ -127,8 +146,10 @@ def run(args: argparse.Namespace) -> int:
                              f"{20 * np.log10(abs(lg.t_averaged[j, i])):.2f}",
                              f"{np.degrees(np.angle(lg.t_averaged[j, i])):.1f}", f"{lg.diff_db[j, i]:+.2f}",
                              f"{lg.diff_deg[j, i]:+.1f}"])
-        lines += ["", wrap_note("loop gain T by series injection (whole periods, single-bin Fourier) vs the averaged"
-                                " model"), format_table(cols, rows)]
+        how = ("loop gain T by injection in the controller (exact coefficients, no quantisation; whole periods,"
+               " single-bin Fourier) vs T(z)" if setup.digital is not None else
+               "loop gain T by series injection (whole periods, single-bin Fourier) vs the averaged model")
+        lines += ["", wrap_note(how), format_table(cols, rows)]
         for j, k in enumerate(corners):
             lim = lg.limit_hz[j]
             text = (f"#{k}: the averaged model departs by more than 1 dB or 5 deg from {fmt(lim, 'Hz')} on"
