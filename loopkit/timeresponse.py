@@ -551,13 +551,21 @@ def step_response(result: LoopResult, kind: str, amplitude: float, rise_s: float
     Notes
     -----
     Small-signal: the corner's operating point is the linearisation point for the whole
-    step.  A duty that would leave [0, max_duty] is flagged (``duty-saturates``): the real
+    step.  A digital loop (``result.digital`` set) is simulated as the sampled-data system it is
+    (:func:`loopkit.digital_step.digital_step_response`; ``steps`` does not apply).  A duty that would leave [0, max_duty] is flagged (``duty-saturates``): the real
     converter then runs open loop for a while and this answer is wrong.
     """
     if not np.isfinite(amplitude) or amplitude == 0:
         raise DesignError("step", amplitude, "must be a nonzero, finite step")
     if not (np.isfinite(rise_s) and rise_s >= 0):
         raise DesignError("rise", rise_s, "must be a time >= 0 s")
+    if getattr(result, "digital", None) is not None:  # a sampled loop: exact between samples too
+        from .digital_step import digital_step_response
+
+        if steps is not None:
+            raise DesignError("steps", "a time grid", "a digital loop is read on its own grid (sample periods);"
+                              " give span_s instead")
+        return digital_step_response(result, kind, amplitude, rise_s, band_v, span_s)
     tfs = closed_loop_transfers(result, kind)
     stage, design = result.stage, result.design
     vout = abs(design.operating.vout)
