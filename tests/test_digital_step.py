@@ -32,6 +32,7 @@ from loopkit.digital_step import digital_step_response, hold_controller, plant_p
 from loopkit.errors import DesignError
 from loopkit.loop import LoopSession
 from loopkit.timeresponse import step_response
+from loopkit.units import format_value
 
 control = pytest.importorskip("control")
 
@@ -332,3 +333,19 @@ def test_cli_step_on_digital_samples(name, capsys, tmp_path):
     assert "sampled loop" in text and "ADC code" in text
     assert out.read_text().count("il_a") >= 2
     assert main(["step", path, "--load", "0.5:1", "--max-dev", "1m"]) == 1
+
+
+def test_report_of_a_digital_design_has_the_sampled_load_step():
+    """The report's load step of a digital design is the sampled loop's, with the designed controller."""
+    from loopkit.report import default_load_step, report_html
+
+    res = _result("buck_dsp_5v")
+    text = report_html(res, path="buck_dsp_5v.toml", date="2026-12-03")
+    assert '<section id="step">' in text
+    a, b = default_load_step(res.design)
+    moved = replace(res.design, operating=replace(res.design.operating, load=(a,)))
+    sr = step_response(hold_controller(res, moved), "load", b - a)
+    table = text[text.index("Step figures per corner"):]
+    for k in range(sr.peak_v.size):
+        cell = f'<tr><td class="n">{k}</td><td class="n">{format_value(sr.peak_v[k], "V")[:-1]}</td>'
+        assert cell in table, cell
