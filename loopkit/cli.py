@@ -678,7 +678,8 @@ def _volts_or_percent(text: str, option: str, vout: float) -> float:
 
 
 def _cmd_step(args) -> int:
-    """Load, input-voltage and set-point steps per corner from the averaged closed loop."""
+    """Load, input-voltage and set-point steps per corner from the averaged closed loop (or the sampled loop of a
+    digital design, its controller kept at the step's corners)."""
     from .loop import LoopSession, apply_parts, design_loop
     from .timeresponse import deviation_rule_of_thumb, sizing, step_response
 
@@ -725,9 +726,8 @@ def _cmd_step(args) -> int:
             if not 0 <= args.corner < result.stage.n_corners:
                 raise DesignError("--corner", args.corner, f"must be from 0 to {result.stage.n_corners - 1}")
             corners = [args.corner]
-        model = ("sampled loop: averaged plant behind the hold and the loop delay, exact between samples; ADC and"
-                 f" PWM resolution left out; one ADC code is {_fmt(float(np.min(result.digital.adc_lsb_out_v)), 'V')}"
-                 " at the output" if digital else "averaged small-signal model")
+        model = sr.model + (f"; one ADC code is {_fmt(float(np.min(result.digital.adc_lsb_out_v)), 'V')} at the"
+                            " output" if digital else "")
         lines += ["", wrap_note(f"{title}, rise {_fmt(rise, 's')}, settling band ±{_fmt(band, 'V')}"
                                 f" ({model}, linearised at the step's start)")]
         cols = [Column("#"), Column("corner", "", "<"), Column("peak", "V"), Column("peak", "%"),

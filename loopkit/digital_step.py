@@ -56,8 +56,11 @@ from .powerstage import corner_label
 from .rational import TWO_PI, Rational
 from .units import format_value
 
-__all__ = ["SampledPaths", "digital_step_response", "hold_controller", "plant_paths", "simulate_sampled"]
+__all__ = ["MODEL", "SampledPaths", "digital_step_response", "hold_controller", "plant_paths", "simulate_sampled"]
 
+#: How the steps are computed, for the reports' notes.
+MODEL = ("sampled loop: the averaged plant behind the hold and the loop delay, exact between samples; ADC and PWM"
+         " resolution left out")
 #: Most points of the waveform read between samples (the early part) and at samples (the rest).
 _FINE_POINTS = 3000
 _COARSE_POINTS = 3000
@@ -155,7 +158,7 @@ def _continuous(k: int, duty_ss: list, dist_ss: list | None):
 
 
 def _period_maps(lay: _Layout, flow: np.ndarray, out: np.ndarray, b: np.ndarray, a: np.ndarray, ts: float,
-                 rho: float, n_whole: int, n_pwm: float, ref_gain: float, per_period: int, rise_s: float,
+                 rho: float, n_whole: int, n_pwm: float, ref_gain: float, per_period: int,
                  special: dict) -> dict:
     """Per kind of period (``"normal"`` and the keys of ``special``): (F, O).
 
@@ -296,7 +299,7 @@ def simulate_sampled(paths: SampledPaths, b, a, ts_s: float, delay_s, pwm_steps:
         lay = _Layout(m, b.size, a.size, int(n_whole[k]))
         lays.append(lay)
         maps = _period_maps(lay, flow, out, b, a, ts_s, float(rho[k]), int(n_whole[k]), pwm_steps,
-                            float(paths.ref_codes_per_v[k]), m_pp, rise_s,
+                            float(paths.ref_codes_per_v[k]), m_pp,
                             {key: sorted(ev) for key, ev in special.items()})
         for name, (f, o) in maps.items():
             fs_.setdefault(name, []).append(f)
@@ -379,7 +382,9 @@ def _final(paths: SampledPaths, b: np.ndarray, a: np.ndarray, pwm_steps: float, 
         else:
             c1 = sb / sa
             u = c1 * (r - yw * amplitude) / (1.0 + c1 * gyd)
-    return gvd * u / pwm_steps + gw * amplitude
+    final = gvd * u / pwm_steps + gw * amplitude
+    scale = np.abs(gw * amplitude) + np.abs(paths.ref_codes_per_v * amplitude / np.where(gyd != 0, gyd, 1.0) * gvd)
+    return np.where(np.abs(final) <= 1e-9 * scale, 0.0, final)  # a disturbance's zero final value, to rounding
 
 
 def _default_span(result, rise_s: float) -> float:
@@ -471,7 +476,7 @@ def digital_step_response(result, kind: str, amplitude: float, rise_s: float = 0
         i0=np.asarray(stage.i_l, float).copy(), duty0=np.asarray(stage.duty, float).copy(), vout=vout,
         peak_v=fig["peak"] * nan, peak_pct=100.0 * np.abs(fig["peak"]) / vout * nan, t_peak_s=fig["t_peak_s"] * nan,
         final_v=final * nan, overshoot_pct=fig["overshoot_pct"] * nan, settle_s=fig["settle_s"] * nan, band_v=band,
-        duty_min=dmin, duty_max=dmax, saturates=sat, findings=tuple(findings))
+        duty_min=dmin, duty_max=dmax, saturates=sat, findings=tuple(findings), model=MODEL)
 
 
 # ---------------------------------------------------------------------------- another operating point

@@ -509,6 +509,8 @@ class StepResponse:
     duty_max: np.ndarray
     saturates: np.ndarray
     findings: tuple
+    #: What computed it, for the reports' notes.
+    model: str = "averaged small-signal model"
 
 
 def _default_span(result: LoopResult, v: Rational, rise_s: float) -> tuple[float, float]:
