@@ -677,6 +677,22 @@ def _volts_or_percent(text: str, option: str, vout: float) -> float:
     return parse_value(t, option, "V")
 
 
+def _ref_codes(text: str, base) -> float | None:
+    """A digital set-point step given in ADC codes ("1code", "-2codes") as volts at the output; None otherwise."""
+    t = str(text).strip().lower()
+    stem = t.removesuffix("codes").removesuffix("code")
+    if stem == t:
+        return None
+    try:
+        codes = float(stem)
+    except ValueError:
+        raise DesignError("--ref-step", text, "ADC codes as a number, e.g. 1code or -2codes") from None
+    if not (np.isfinite(codes) and codes != 0):
+        raise DesignError("--ref-step", text, "a nonzero number of ADC codes")
+    per_code = base.digital.adc_lsb_v / float(base.digital.sensing_gain[0])  # signed: output volts per code
+    return codes * per_code
+
+
 def _cmd_step(args) -> int:
     """Load, input-voltage and set-point steps per corner from the averaged closed loop (or the sampled loop of a
     digital design, its controller kept at the step's corners)."""
@@ -716,7 +732,8 @@ def _cmd_step(args) -> int:
         moved = replace(built, operating=replace(built.operating, vin=(a,)))
         runs.append((f"input step {_fmt(a, 'V')} to {_fmt(b, 'V')}", "line", b - a, at_point(moved)))
     if args.ref_step:
-        r = _volts_or_percent(args.ref_step, "--ref-step", vout)
+        r = _ref_codes(args.ref_step, base) if digital else None
+        r = _volts_or_percent(args.ref_step, "--ref-step", vout) if r is None else r
         runs.append((f"set-point step {_fmt(r, 'V')}", "reference", r, base if digital else design_loop(built)))
     status, csv_cols, lines = 0, [], [design.title or Path(args.file).stem, f"file: {args.file}"]
     for title, kind, amp, result in runs:
@@ -1139,7 +1156,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("file", metavar="FILE", help="design file (TOML)")
     p.add_argument("--load", metavar="FROM:TO", help="load step, A, e.g. 0.5:3 (linearised at FROM)")
     p.add_argument("--vin-step", metavar="FROM:TO", help="input-voltage step, V, e.g. 18:24 (linearised at FROM)")
-    p.add_argument("--ref-step", metavar="STEP", help="set-point step: volts (50m) or percent of Vout (1%%)")
+    p.add_argument("--ref-step", metavar="STEP", help="set-point step: volts (50m) or percent of Vout (1%%); digital designs also ADC codes"
+                   " (1code)")
     p.add_argument("--rise", help="rise time of the step, s (default 0: an ideal step)")
     p.add_argument("--band", help="settling band: volts or percent of Vout (default 1%%)")
     p.add_argument("--max-dev", help="allowed peak deviation: volts or percent of Vout (exit 1 when missed)")

@@ -368,6 +368,8 @@ def closed_loop_transfers(result: LoopResult, kind: str) -> dict[str, Rational |
         raise DesignError("kind", kind, f"must be one of {', '.join(KINDS)}")
     if result.loop is None:
         raise DesignError("compensator", "no parts", "the targets are infeasible: no closed loop to simulate")
+    if getattr(result, "digital", None) is not None:
+        raise DesignError("result", "a digital loop", "an analog loop (a sampled loop's steps: step_response)")
     from .networks.sensing import sensing_transfer
     from .schemes.voltage_mode import modulator_transfer
 

@@ -349,3 +349,17 @@ def test_report_of_a_digital_design_has_the_sampled_load_step():
     for k in range(sr.peak_v.size):
         cell = f'<tr><td class="n">{k}</td><td class="n">{format_value(sr.peak_v[k], "V")[:-1]}</td>'
         assert cell in table, cell
+
+
+def test_cli_set_point_step_in_adc_codes(capsys):
+    """``--ref-step 1code``: one ADC code referred to the output, adc_range / 2^bits / sensing gain
+    (3.3 V / 4096 / (1.65 V / 5 V) = 2.44 mV for the buck sample; -25.8 mV through the inverting sample's
+    differential amplifier, 3.3 V / 1024 / (1.5 V / -12 V)), and where the output settles."""
+    path = "sample_designs/buck_dsp_5v.toml"
+    assert main(["step", path, "--ref-step", "1code"]) == 0
+    out = capsys.readouterr().out
+    assert "set-point step 2.44mV" in out and out.count(" 2.44mV ") >= 6
+    assert main(["step", "sample_designs/inverting_mcu_minus12v.toml", "--ref-step", "1code"]) == 0
+    assert "set-point step -25.8mV" in capsys.readouterr().out
+    assert main(["step", path, "--ref-step", "xcode"]) == 2
+    assert main(["step", "sample_designs/buck_24v_3v3.toml", "--ref-step", "1code"]) == 2
