@@ -449,12 +449,13 @@ def digital_step_response(result, kind: str, amplitude: float, rise_s: float = 0
     sim = simulate_sampled(paths, dig.b, dig.a, dig.ts_s, dig.delay_s, dig.pwm_steps, amplitude, rise_s, span)
     t, v = sim["t_s"], sim["v"]
     final = _final(paths, dig.b, dig.a, dig.pwm_steps, amplitude)
-    fig = step_figures(t, v, final, band, disturbance=kind != "reference")
     n = stage.n_corners
-    duty = stage.duty[:, None] + sim["duty"]
-    i = stage.i_l[:, None] + sim["i"]
-    dmin, dmax = duty.min(axis=1), duty.max(axis=1)
-    sat = (dmin < dig.duty_min) | (dmax > dig.duty_max)
+    with np.errstate(over="ignore", invalid="ignore"):  # an unstable corner grows without bound: flagged below
+        fig = step_figures(t, v, final, band, disturbance=kind != "reference")
+        duty = stage.duty[:, None] + sim["duty"]
+        i = stage.i_l[:, None] + sim["i"]
+        dmin, dmax = duty.min(axis=1), duty.max(axis=1)
+        sat = (dmin < dig.duty_min) | (dmax > dig.duty_max)
     stable = sim["spectral_radius"] < 1.0
     findings = []
     for k in range(n):

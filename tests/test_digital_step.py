@@ -363,3 +363,16 @@ def test_cli_set_point_step_in_adc_codes(capsys):
     assert "set-point step -25.8mV" in capsys.readouterr().out
     assert main(["step", path, "--ref-step", "xcode"]) == 2
     assert main(["step", "sample_designs/buck_24v_3v3.toml", "--ref-step", "1code"]) == 2
+
+
+def test_unstable_corner_is_an_error_without_figures():
+    """The inverting sample's controller times 12 (unstable at some corners by the z-plane roots): those
+    corners get ``step-unstable`` and NaN figures, the stable ones their figures; no raw exception."""
+    res = _result("inverting_mcu_minus12v")
+    hot = replace(res, digital=replace(res.digital, b=res.digital.b * 12.0))
+    with np.errstate(all="raise"):
+        sr = step_response(hot, "load", 0.1, span_s=2e-3)
+    unstable = ~(res.loop * 12.0).closed_loop_stable()
+    assert np.any(unstable)
+    assert {f.corner for f in sr.findings if f.code == "step-unstable"} == set(np.nonzero(unstable)[0])
+    assert np.all(np.isnan(sr.peak_v[unstable])) and np.all(np.isfinite(sr.peak_v[~unstable]))
