@@ -126,7 +126,7 @@ class _Layout:
         self.size = self.p + 1
 
 
-def _realised(tfs: list, n: int):
+def _realised(tfs: list):
     """(a, b, c, d) per transfer, each (corners, ...), from :func:`loopkit.timeresponse.realise`."""
     from .timeresponse import realise
 
@@ -259,9 +259,9 @@ def simulate_sampled(paths: SampledPaths, b, a, ts_s: float, delay_s, pwm_steps:
     -------
     dict
         ``t_s`` (points,); ``v``, ``i``, ``duty``, ``y`` (corners, points): deviations of the output
-        (V), the inductor current (A), the duty and the ADC reading (codes); ``t_samples_s``,
-        ``y_samples``, ``u_samples`` at the sample instants of the early part (the codes read and the
-        controller's outputs, PWM steps); ``spectral_radius`` (corners,) of the period map (< 1: stable).
+        (V), the inductor current (A), the duty and the ADC reading (codes); ``t_samples_s`` and
+        ``y_samples``, the codes read at the sample instants of the early part (the first 3000 / 8 periods
+        at 8 points per period); ``spectral_radius`` (corners,) of the period map (< 1: stable).
     """
     b = np.atleast_1d(np.asarray(b, float))
     a = np.atleast_1d(np.asarray(a, float))
@@ -285,15 +285,15 @@ def simulate_sampled(paths: SampledPaths, b, a, ts_s: float, delay_s, pwm_steps:
     fine = min(periods, max(_FINE_POINTS // m_pp, k_rise + 1, 1))
     step = max(1, int(np.ceil((periods - fine) / _COARSE_POINTS)))
     periods = fine + step * int(np.ceil((periods - fine) / step))
-    duty_ss = _realised(paths.duty, n)
-    dist_ss = _realised(paths.disturbance, n) if paths.disturbance is not None else None
+    duty_ss = _realised(paths.duty)
+    dist_ss = _realised(paths.disturbance) if paths.disturbance is not None else None
     disturbance = dist_ss is not None
     special = {}
     if disturbance and rise_s == 0:
         special[0] = [(0.0, "kick")]
     if rise_s > 0:
         special.setdefault(k_rise, []).append((rise_s - k_rise * ts_s, "ramp-end"))
-    lays, fs_, os_ = [], {}, {}
+    lays, f_maps, o_maps = [], {}, {}
     for k in range(n):
         m, flow, out = _continuous(k, duty_ss, dist_ss)
         lay = _Layout(m, b.size, a.size, int(n_whole[k]))
@@ -302,8 +302,8 @@ def simulate_sampled(paths: SampledPaths, b, a, ts_s: float, delay_s, pwm_steps:
                             float(paths.ref_codes_per_v[k]), m_pp,
                             {key: sorted(ev) for key, ev in special.items()})
         for name, (f, o) in maps.items():
-            fs_.setdefault(name, []).append(f)
-            os_.setdefault(name, []).append(o)
+            f_maps.setdefault(name, []).append(f)
+            o_maps.setdefault(name, []).append(o)
     size = max(lay.size for lay in lays)
 
     def stacked(mats, shape_fn):
@@ -316,8 +316,8 @@ def simulate_sampled(paths: SampledPaths, b, a, ts_s: float, delay_s, pwm_steps:
                 arr[k, :, :, :s] = mat
         return arr
 
-    f_all = {name: stacked(v, lambda s: (s, s)) for name, v in fs_.items()}
-    o_all = {name: stacked(v, lambda s: (m_pp, 4, s)) for name, v in os_.items()}
+    f_all = {name: stacked(v, lambda s: (s, s)) for name, v in f_maps.items()}
+    o_all = {name: stacked(v, lambda s: (m_pp, 4, s)) for name, v in o_maps.items()}
     x = np.zeros((n, size))
     for k, lay in enumerate(lays):
         if rise_s > 0:  # a ramp from 0 at t = 0: the sample at t = 0 reads no change either way
@@ -355,12 +355,8 @@ def simulate_sampled(paths: SampledPaths, b, a, ts_s: float, delay_s, pwm_steps:
         with np.errstate(over="ignore", invalid="ignore"):
             ev = np.linalg.eigvals(sub) if np.all(np.isfinite(sub)) else np.array([np.inf])
         radius[k] = np.max(np.abs(ev))
-    # u_k is formed inside the period; it is the newest entry of U at the next period's start
-    u_hist = np.array([fine_states[k, lay.u0, 1:] if lay.nu else np.full(fine - 1, np.nan)
-                       for k, lay in enumerate(lays)])
     return {"t_s": t, "v": allw[:, 0], "i": allw[:, 1], "y": allw[:, 2], "duty": allw[:, 3],
-            "t_samples_s": np.arange(fine) * ts_s, "y_samples": wave[:, 2, ::m_pp],
-            "u_samples": u_hist, "spectral_radius": radius}
+            "t_samples_s": np.arange(fine) * ts_s, "y_samples": wave[:, 2, ::m_pp], "spectral_radius": radius}
 
 
 # ---------------------------------------------------------------------------- the response
