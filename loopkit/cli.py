@@ -677,16 +677,30 @@ def _volts_or_percent(text: str, option: str, vout: float) -> float:
     return parse_value(t, option, "V")
 
 
+def _ref_codes(text: str, base) -> float | None:
+    """A digital set-point step given in ADC codes ("1code", "-2codes") as volts at the output; None otherwise."""
+    t = str(text).strip().lower()
+    stem = t.removesuffix("codes").removesuffix("code")
+    if stem == t:
+        return None
+    try:
+        codes = float(stem)
+    except ValueError:
+        raise DesignError("--ref-step", text, "ADC codes as a number, e.g. 1code or -2codes") from None
+    if not (np.isfinite(codes) and codes != 0):
+        raise DesignError("--ref-step", text, "a nonzero number of ADC codes")
+    per_code = base.digital.adc_lsb_v / float(base.digital.sensing_gain[0])  # signed: output volts per code
+    return codes * per_code
+
+
 def _cmd_step(args) -> int:
-    """Load, input-voltage and set-point steps per corner from the averaged closed loop."""
+    """Load, input-voltage and set-point steps per corner from the averaged closed loop (or the sampled loop of a
+    digital design, its controller kept at the step's corners)."""
     from .loop import LoopSession, apply_parts, design_loop
     from .timeresponse import deviation_rule_of_thumb, sizing, step_response
 
     design = load_design(args.file)
-    if design.control.scheme == "digital":
-        raise DesignError("control.scheme", "digital", "loopkit step works on the averaged analog loop only; for a"
-                          " sampled loop use loopkit.digital_loop.closed_loop_step (the closed loop in z, sample by"
-                          " sample)")
+    digital = design.control.scheme == "digital"
     vout = abs(design.operating.vout)
     if not (args.load or args.vin_step or args.ref_step):
         raise DesignError("--load/--vin-step/--ref-step", "(none given)", "give at least one step")
@@ -700,18 +714,27 @@ def _cmd_step(args) -> int:
             raise DesignError(option, getattr(args, option[2:].replace("-", "_")), "must be > 0")
     base = _loop_result(design, args, need_parts="simulate")
     built = apply_parts(design, base)
+    if digital:  # the controller designed for every corner, kept at the step's corners (as the parts are)
+        from .digital_step import hold_controller
+
+        def at_point(moved):
+            return hold_controller(base, moved)
+    else:
+        def at_point(moved):
+            return LoopSession(moved).run()
     runs = []  # (title, kind, amplitude, result)
     if args.load:
         a, b = _step_pair(args.load, "--load", "A")
         moved = replace(built, operating=replace(built.operating, load=(a,)))
-        runs.append((f"load step {_fmt(a, 'A')} to {_fmt(b, 'A')}", "load", b - a, LoopSession(moved).run()))
+        runs.append((f"load step {_fmt(a, 'A')} to {_fmt(b, 'A')}", "load", b - a, at_point(moved)))
     if args.vin_step:
         a, b = _step_pair(args.vin_step, "--vin-step", "V")
         moved = replace(built, operating=replace(built.operating, vin=(a,)))
-        runs.append((f"input step {_fmt(a, 'V')} to {_fmt(b, 'V')}", "line", b - a, LoopSession(moved).run()))
+        runs.append((f"input step {_fmt(a, 'V')} to {_fmt(b, 'V')}", "line", b - a, at_point(moved)))
     if args.ref_step:
-        r = _volts_or_percent(args.ref_step, "--ref-step", vout)
-        runs.append((f"set-point step {_fmt(r, 'V')}", "reference", r, design_loop(built)))
+        r = _ref_codes(args.ref_step, base) if digital else None
+        r = _volts_or_percent(args.ref_step, "--ref-step", vout) if r is None else r
+        runs.append((f"set-point step {_fmt(r, 'V')}", "reference", r, base if digital else design_loop(built)))
     status, csv_cols, lines = 0, [], [design.title or Path(args.file).stem, f"file: {args.file}"]
     for title, kind, amp, result in runs:
         sr = step_response(result, kind, amp, rise_s=rise, band_v=band, span_s=span)
@@ -720,8 +743,10 @@ def _cmd_step(args) -> int:
             if not 0 <= args.corner < result.stage.n_corners:
                 raise DesignError("--corner", args.corner, f"must be from 0 to {result.stage.n_corners - 1}")
             corners = [args.corner]
+        model = sr.model + (f"; one ADC code is {_fmt(float(np.min(result.digital.adc_lsb_out_v)), 'V')} at the"
+                            " output" if digital else "")
         lines += ["", wrap_note(f"{title}, rise {_fmt(rise, 's')}, settling band ±{_fmt(band, 'V')}"
-                                " (averaged small-signal model, linearised at the step's start)")]
+                                f" ({model}, linearised at the step's start)")]
         cols = [Column("#"), Column("corner", "", "<"), Column("peak", "V"), Column("peak", "%"),
                 Column("at", "s"), Column("final", "V"), Column("overshoot", "%"), Column("settles", "s"),
                 Column("duty", "range")]
@@ -750,7 +775,7 @@ def _cmd_step(args) -> int:
         else:
             notes = [f for f in sr.findings if f.corner == args.corner]
         lines += _findings_text(notes)
-        if result.design.control.scheme != "voltage-mode":
+        if result.design.control.scheme not in ("voltage-mode", "digital"):
             lines.append(wrap_note("duty and inductor current: voltage mode only (not modelled for this scheme)"))
         if limit is not None and np.any(~(np.abs(sr.peak_v[list(corners)]) <= limit)):
             status = EXIT_NOT_MET
@@ -1131,7 +1156,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("file", metavar="FILE", help="design file (TOML)")
     p.add_argument("--load", metavar="FROM:TO", help="load step, A, e.g. 0.5:3 (linearised at FROM)")
     p.add_argument("--vin-step", metavar="FROM:TO", help="input-voltage step, V, e.g. 18:24 (linearised at FROM)")
-    p.add_argument("--ref-step", metavar="STEP", help="set-point step: volts (50m) or percent of Vout (1%%)")
+    p.add_argument("--ref-step", metavar="STEP", help="set-point step: volts (50m) or percent of Vout (1%%); digital designs also ADC codes"
+                   " (1code)")
     p.add_argument("--rise", help="rise time of the step, s (default 0: an ideal step)")
     p.add_argument("--band", help="settling band: volts or percent of Vout (default 1%%)")
     p.add_argument("--max-dev", help="allowed peak deviation: volts or percent of Vout (exit 1 when missed)")

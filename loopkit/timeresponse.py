@@ -368,6 +368,8 @@ def closed_loop_transfers(result: LoopResult, kind: str) -> dict[str, Rational |
         raise DesignError("kind", kind, f"must be one of {', '.join(KINDS)}")
     if result.loop is None:
         raise DesignError("compensator", "no parts", "the targets are infeasible: no closed loop to simulate")
+    if getattr(result, "digital", None) is not None:
+        raise DesignError("result", "a digital loop", "an analog loop (a sampled loop's steps: step_response)")
     from .networks.sensing import sensing_transfer
     from .schemes.voltage_mode import modulator_transfer
 
@@ -509,6 +511,8 @@ class StepResponse:
     duty_max: np.ndarray
     saturates: np.ndarray
     findings: tuple
+    #: What computed it, for the reports' notes.
+    model: str = "averaged small-signal model"
 
 
 def _default_span(result: LoopResult, v: Rational, rise_s: float) -> tuple[float, float]:
@@ -551,13 +555,21 @@ def step_response(result: LoopResult, kind: str, amplitude: float, rise_s: float
     Notes
     -----
     Small-signal: the corner's operating point is the linearisation point for the whole
-    step.  A duty that would leave [0, max_duty] is flagged (``duty-saturates``): the real
+    step.  A digital loop (``result.digital`` set) is simulated as the sampled-data system it is
+    (:func:`loopkit.digital_step.digital_step_response`; ``steps`` does not apply).  A duty that would leave [0, max_duty] is flagged (``duty-saturates``): the real
     converter then runs open loop for a while and this answer is wrong.
     """
     if not np.isfinite(amplitude) or amplitude == 0:
         raise DesignError("step", amplitude, "must be a nonzero, finite step")
     if not (np.isfinite(rise_s) and rise_s >= 0):
         raise DesignError("rise", rise_s, "must be a time >= 0 s")
+    if getattr(result, "digital", None) is not None:  # a sampled loop: exact between samples too
+        from .digital_step import digital_step_response
+
+        if steps is not None:
+            raise DesignError("steps", "a time grid", "a digital loop is read on its own grid (sample periods);"
+                              " give span_s instead")
+        return digital_step_response(result, kind, amplitude, rise_s, band_v, span_s)
     tfs = closed_loop_transfers(result, kind)
     stage, design = result.stage, result.design
     vout = abs(design.operating.vout)

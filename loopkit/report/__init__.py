@@ -79,7 +79,12 @@ def _load_step(result, load_step):
         raise DesignError("load step", f"{a}:{b}", "must be FROM:TO with currents >= 0 A that differ")
     built = apply_parts(result.design, result)
     moved = replace(built, operating=replace(built.operating, load=(a,)))
-    step_result = LoopSession(moved).run()
+    if result.digital is not None:  # keep the designed controller at the step's corners (as the parts are kept)
+        from ..digital_step import hold_controller
+
+        step_result = hold_controller(result, moved)
+    else:
+        step_result = LoopSession(moved).run()
     if not step_result.feasible:
         return None
     title = f"Load step {num(a, 'A')} to {num(b, 'A')} at every input voltage"

@@ -173,7 +173,8 @@ def step_table(step, title: str) -> Table:
                      num(step.final_v[k]), _fixed(step.overshoot_pct[k], ".1f"), num(step.settle_s[k]), duty))
     return Table(("#", "Peak (V)", "Peak (%)", "At (s)", "Final (V)", "Overshoot (%)", "Settles (s)", "Duty"),
                  tuple(rows), title,
-                 f"Settling band ±{num(step.band_v, 'V')}. Averaged small-signal model, linearised at the step's start.")
+                 f"Settling band ±{num(step.band_v, 'V')}. {step.model[:1].upper()}{step.model[1:]},"
+                 " linearised at the step's start.")
 
 
 def findings_table(findings) -> Table:
