@@ -13,14 +13,18 @@ operating point)::
     y  = K Haa H v               ADC codes (K codes per volt, Haa the anti-alias pole, H the sensing)
     e_k = r_k - y(k Ts)          sampled at the start of each period; r_k = K H(0) r(k Ts) for a set-point step
     u_k = C(z) e_k               the controller's difference equation, PWM steps
-    d(t) = u_{k-N} / N_pwm       held from k Ts + rho on (tau = N Ts + rho, the total loop delay)
+    d(t) = Ts sum u_{k-N} / N_pwm delta(t - k Ts - rho)
+                                 each duty change a pulse at the modulated edge (tau = N Ts + rho, the total
+                                 loop delay): the edge model of loopkit.sampled (hold="edge")
 
 Everything between the events is linear and time-invariant, so the simulation is exact (to
 rounding) with the matrix exponential of the plant's state space between consecutive events: the
-sample, the duty update at phase ``rho``, the end of the disturbance's ramp and the points the
-waveform is read at (G. F. Franklin, J. D. Powell, M. L. Workman, Digital Control of Dynamic
-Systems, 3rd ed., 1998, ch. 4: the hold-equivalent with a fractional delay, here applied
-literally in time instead of in z).  The state over one sample period is one linear map ``F``
+sample, the duty update at phase ``rho`` (the plant's states jump by ``Ts B u / N_pwm``: the
+impulse of the moved edge, whose feedthrough no sample sees), the end of the disturbance's ramp
+and the points the waveform is read at (G. F. Franklin, J. D. Powell, M. L. Workman, Digital
+Control of Dynamic Systems, 3rd ed., 1998, ch. 4, applied literally in time instead of in z).
+Between samples the inductor current and the output therefore move in small steps at each moved
+edge, as the switched converter's do.  The state over one sample period is one linear map ``F``
 (plant states, the held duty, the disturbance and its slope, the controller's past errors and
 outputs, the outputs waiting out the delay), the same for every period except the first (the
 step arrives just after the sample at t = 0, so the controller first sees a load or input step
@@ -59,8 +63,8 @@ from .units import format_value
 __all__ = ["MODEL", "SampledPaths", "digital_step_response", "hold_controller", "plant_paths", "simulate_sampled"]
 
 #: How the steps are computed, for the reports' notes.
-MODEL = ("sampled loop: the averaged plant behind the hold and the loop delay, exact between samples; ADC and PWM"
-         " resolution left out")
+MODEL = ("sampled loop: the averaged plant with each duty change at the modulated edge after the loop delay, exact"
+         " between samples; ADC and PWM resolution left out")
 #: Most points of the waveform read between samples (the early part) and at samples (the rest).
 _FINE_POINTS = 3000
 _COARSE_POINTS = 3000
@@ -170,6 +174,13 @@ def _period_maps(lay: _Layout, flow: np.ndarray, out: np.ndarray, b: np.ndarray,
     size, mc = lay.size, lay.mc
     eye = np.eye(size)
     cache: dict = {}
+    # the modulated edge: the duty written at the update is an impulse of area Ts u / N_pwm into the plant, not a
+    # held input (loopkit.sampled, hold="edge"); d keeps the duty in force for the saturation check only
+    jump = ts * flow[: lay.m, lay.d].copy()
+    flow = flow.copy()
+    flow[:, lay.d] = 0.0
+    out = out.copy()
+    out[:3, lay.d] = 0.0
 
     def advance(h: float) -> np.ndarray:
         key = round(h / ts, 13)
@@ -192,9 +203,11 @@ def _period_maps(lay: _Layout, flow: np.ndarray, out: np.ndarray, b: np.ndarray,
     for i in range(1, a.size):
         k2[lay.uk, lay.u0 + i - 1] = -a[i]
     sample = k2 @ k1
-    update = eye.copy()  # the duty the modulator applies: u_{k-N} / N_pwm
+    update = eye.copy()  # the duty the modulator applies, u_{k-N} / N_pwm, and the edge's impulse into the plant
+    src = lay.uk if n_whole == 0 else lay.u0 + n_whole - 1
     update[lay.d, :] = 0.0
-    update[lay.d, lay.uk if n_whole == 0 else lay.u0 + n_whole - 1] = 1.0 / n_pwm
+    update[lay.d, src] = 1.0 / n_pwm
+    update[: lay.m, src] += jump / n_pwm
     kick = eye.copy()  # w := p, p := 0
     kick[lay.p, lay.p] = 0.0
     kick[lay.w, lay.p] = 1.0

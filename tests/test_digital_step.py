@@ -4,12 +4,13 @@ Outside references:
 - a brute-force simulation written here (``_brute``): the averaged plant realised by
   ``scipy.signal.tf2ss`` path by path, integrated event by event with ``scipy.linalg.expm`` of the
   augmented matrix (the input and its slope as states: C. Van Loan, "Computing integrals involving
-  the matrix exponential", IEEE Trans. Automatic Control 23(3), 1978), the hold and the loop delay
-  applied as they happen, the controller's difference equation run literally on the samples
+  the matrix exponential", IEEE Trans. Automatic Control 23(3), 1978), each duty change applied as
+  the impulse of the moved PWM edge (area Ts u / N_pwm) after the loop delay, as it happens, the controller's difference equation run literally on the samples
   (``scipy.signal.lfilter``'s recursion); the sampled-data loop of G. F. Franklin, J. D. Powell,
   M. L. Workman, Digital Control of Dynamic Systems, 3rd ed., 1998, ch. 4;
-- python-control 0.10: ``sample_system`` (zoh) of the continuous chain, times z^-N for a whole-sample
-  delay, closed with ``feedback`` and run by ``forced_response`` (FPW ch. 4, the ZOH equivalent);
+- scipy ``cont2discrete(method="impulse")`` of the continuous chain (its feedthrough dropped: the edge's
+  impulse at the sample is seen by the next one), times z^-N for a whole-sample delay, closed with
+  python-control 0.10 ``feedback`` and run by ``forced_response``;
 - the analog limit: with fs far above fc the sampled loop's step approaches that of the analog loop
   whose controller is the inverse bilinear (Tustin) map of C(z) (FPW ch. 6: the Tustin equivalent
   matches the analog controller for frequencies well below fs/2; from memory), run by python-control
@@ -59,7 +60,8 @@ def _brute(paths, k, b, a, ts, tau, n_pwm, amp, rise, t_out, n_samples):
     """Outputs (v, iL, y, duty deviation) of corner ``k`` at times ``t_out`` (left limits), event by event.
 
     The disturbance (load or input) arrives just after the sample at t = 0 (a step) or ramps from t = 0;
-    a set point is read from the sample at t = 0.  The duty u_k / n_pwm acts from k Ts + tau on.
+    a set point is read from the sample at t = 0.  The duty u_k / n_pwm is written at k Ts + tau, where the
+    moved edge kicks the plant's duty paths by Ts B u_k / n_pwm (the duty row reports the value written).
     """
     blocks = []  # (A, B, C, D, source, output row)
     srcs = [("d", paths.duty)] + ([("w", paths.disturbance)] if paths.disturbance is not None else [])
@@ -71,13 +73,17 @@ def _brute(paths, k, b, a, ts, tau, n_pwm, amp, rise, t_out, n_samples):
     big = np.zeros((m + 3, m + 3))  # states: x, d, w, slope
     iD, iW, iS = m, m + 1, m + 2
     cout = np.zeros((3, m + 3))
+    kick_d = np.zeros(m + 3)
     j = 0
     for am, bm, cm, dm, src, row in blocks:
         n = am.shape[0]
         big[j:j + n, j:j + n] = am
-        big[j:j + n, iD if src == "d" else iW] = bm
+        if src == "d":
+            kick_d[j:j + n] = bm
+        else:
+            big[j:j + n, iW] = bm
+            cout[row, iW] += dm
         cout[row, j:j + n] = cm
-        cout[row, iD if src == "d" else iW] += dm
         j += n
     big[iW, iS] = 1.0
     cache = {}
@@ -123,6 +129,7 @@ def _brute(paths, k, b, a, ts, tau, n_pwm, amp, rise, t_out, n_samples):
             heapq.heappush(ev, (te + tau, 3, "update", u_hist[-1]))
         elif what == "update":
             z[iD] = val / n_pwm
+            z = z + ts * kick_d * val / n_pwm
         elif what == "kick":
             z[iW] = amp
         else:
@@ -157,7 +164,9 @@ def test_step_equals_brute_force_between_samples(name, kind, amp, rise):
 @pytest.mark.parametrize("n_whole", [1, 2])
 def test_whole_sample_delay_equals_python_control(n_whole):
     """A set-point step with the loop delay a whole number of samples: the ADC readings at the samples
-    against python-control's ZOH equivalent times z^-N, closed with feedback (FPW ch. 4)."""
+    against scipy's impulse-invariant equivalent (edge model, feedthrough dropped) times z^-N, closed with
+    python-control's feedback."""
+    from scipy.signal import cont2discrete
     res = _result("buck_dsp_5v")
     dig = res.digital
     paths = plant_paths(res, "reference")
@@ -167,7 +176,9 @@ def test_whole_sample_delay_equals_python_control(n_whole):
     c = control.tf(dig.b, dig.a, dig.ts_s)
     for k in (0, res.stage.n_corners - 1):
         num, den = _desc(paths.duty[2], k)
-        pz = control.sample_system(control.tf(num / dig.pwm_steps, den), dig.ts_s, method="zoh")
+        am, bm, cm, _ = tf2ss(num / dig.pwm_steps, den)
+        ad, bd, cd, _, _ = cont2discrete((am, bm, cm, np.zeros((1, 1))), dig.ts_s, method="impulse")
+        pz = control.ss(ad, bd, cd, 0.0, dig.ts_s)
         delay = control.tf([1.0], [1.0] + [0.0] * n_whole, dig.ts_s)
         cl = control.feedback(c * pz * delay, 1)
         r = np.full(n, paths.ref_codes_per_v[k] * 0.03)

@@ -24,7 +24,7 @@ import pytest
 import loopkit
 from loopkit.design import Digital
 from loopkit.loop import LoopSession
-from loopkit.switching import closed_loop_setup, loop_gain, open_loop_setup, steady_state
+from loopkit.switching import closed_loop_setup, load_step, loop_gain, open_loop_setup, steady_state
 from loopkit.switching.digital import settle
 
 
@@ -114,3 +114,14 @@ def test_limit_cycle_of_the_mcu_sample_without_dither():
     assert not np.any(res.digital.realisation.resolution.fine_enough)
     _, _, _, lc = settle(closed_loop_setup(res), [1, 2])
     assert np.all(lc.hunting)
+
+
+@pytest.mark.parametrize("name,amp", [("buck_dsp_5v", 1.0), ("inverting_mcu_minus12v", 0.5)])
+def test_load_step_of_the_built_loop_equals_the_sampled_model(name, amp):
+    """The load step simulated cycle by cycle with the loop as built (fixed point, ADC and PWM steps) against
+    the sampled model's (loopkit.digital_step): peak deviation of the one-period mean within 10 % (issue 11's
+    bound for the averaged model at fc <= fsw/10), at the first and last corner."""
+    res = _result(name)
+    n = res.stage.n_corners
+    st = load_step(closed_loop_setup(res), amp, corners=[0, n - 1])
+    assert np.all(np.abs(st.peak_ratio - 1) < 0.10), st.peak_ratio

@@ -128,8 +128,9 @@ def run(args: argparse.Namespace) -> int:
                 Column("ratio"), Column("settles", "s"), Column("avg settles", "s")]
         rows = [[str(k), names[k], fmt(st.peak_v[j], "V"), fmt(avg.peak_v[k], "V"), f"{st.peak_ratio[j]:.3f}",
                  fmt(st.settle_s[j], "s"), fmt(avg.settle_s[k], "s")] for j, k in enumerate(corners)]
+        model = "the sampled model (loopkit step)" if setup.digital is not None else "the averaged model"
         lines += ["", wrap_note(f"load step {fmt(amp, 'A')} at a clock edge: one-period moving average of the output"
-                                f" vs the averaged model, settling band ±{fmt(st.band_v, 'V')}"),
+                                f" vs {model}, settling band ±{fmt(st.band_v, 'V')}"),
                   format_table(cols, rows)]
     if args.loop_gain is not None:
         f = _frequencies(args.loop_gain, result, corners, design.stage.fsw)
