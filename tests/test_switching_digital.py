@@ -47,7 +47,7 @@ def test_period_at_from_the_clock_edge_equals_a_fixed_duty_period():
         np.testing.assert_allclose(b, a, rtol=1e-9, atol=1e-12 * np.max(np.abs(a)))
 
 
-@pytest.mark.parametrize("name", ["buck_dsp_5v", "inverting_mcu_minus12v"])
+@pytest.mark.parametrize("name", ["buck_dsp_5v", pytest.param("inverting_mcu_minus12v", marks=pytest.mark.slow)])
 def test_samples_settle_without_a_limit_cycle(name):
     """Both digital samples pass [PS03]'s condition at every corner (dither included), so the built loop
     settles: one PWM value and one ADC code at every corner, at the output it is set for: the sampled point
@@ -116,7 +116,8 @@ def test_limit_cycle_of_the_mcu_sample_without_dither():
     assert np.all(lc.hunting)
 
 
-@pytest.mark.parametrize("name,amp", [("buck_dsp_5v", 1.0), ("inverting_mcu_minus12v", 0.5)])
+@pytest.mark.parametrize("name,amp", [("buck_dsp_5v", 1.0),
+                                      pytest.param("inverting_mcu_minus12v", 0.5, marks=pytest.mark.slow)])
 def test_load_step_of_the_built_loop_equals_the_sampled_model(name, amp):
     """The load step simulated cycle by cycle with the loop as built (fixed point, ADC and PWM steps) against
     the sampled model's (loopkit.digital_step): peak deviation of the one-period mean within 10 % (issue 11's
