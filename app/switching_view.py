@@ -142,13 +142,14 @@ class SwitchingDialog(BackgroundDialog):
                 p.addItem(pg.InfiniteLine(pos=hz_to_view(limit), angle=90, pen=pg.mkPen((200, 60, 20), style=2)),
                           ignoreBounds=True)
         avg = step.averaged
+        model = "sampled model" if ss.limit_cycle is not None else "averaged model"  # a digital loop's is T(z)
         self.step_plot.plot(step.t_s, step.vo_v[0], pen=pg.mkPen((230, 200, 185, 120), width=1), name="switching")
         self.step_plot.plot(step.t_s, step.vo_avg_v[0], pen=pg.mkPen((200, 60, 20), width=1),
                             name="switching, one-period mean")
-        self.step_plot.plot(avg.t_s, avg.v[k], pen=avg_pen, name="averaged model")
+        self.step_plot.plot(avg.t_s, avg.v[k], pen=avg_pen, name=model)
         self.step_plot.setXRange(0.0, float(step.t_s[-1]), padding=0.02)
-        where = (f"the averaged model departs by more than 1 dB or 5° from {format_value(limit, 'Hz')}"
-                 if np.isfinite(limit) else "the averaged model holds within 1 dB and 5° at every frequency measured")
+        where = (f"the {model} departs by more than 1 dB or 5° from {format_value(limit, 'Hz')}"
+                 if np.isfinite(limit) else f"the {model} holds within 1 dB and 5° at every frequency measured")
         lc = ss.limit_cycle
         if lc is not None:  # a digital loop as built: does it settle?
             where += ("; it settles on one PWM value" if not lc.hunting[0] else
@@ -158,4 +159,4 @@ class SwitchingDialog(BackgroundDialog):
             f"Corner {k}: output {format_value(ss.vout_v[0], 'V', 5)}, ripple {format_value(ss.ripple_pp_v[0], 'V')},"
             f" peak current {format_value(ss.il_peak_a[0], 'A')} ({'DCM' if ss.dcm[0] else 'CCM'}); {where}; load"
             f" step {format_value(step.amplitude_a, 'A')}: peak {format_value(step.peak_v[0], 'V')} switching,"
-            f" {format_value(avg.peak_v[k], 'V')} averaged.")
+            f" {format_value(avg.peak_v[k], 'V')} {model}.")

@@ -52,3 +52,19 @@ def test_switching_check_runs_off_thread_and_shows_the_library_values(window, qt
     qtbot.waitUntil(lambda: not dialog.is_running(), timeout=60000)
     assert "cancelled" in dialog.status.text() or dialog.progress.value() == 100
     dialog.close()
+
+
+def test_switching_check_of_a_digital_design_says_whether_it_hunts(window, qtbot, tmp_path):
+    """The digital sample as built: the dialog's status carries the library's limit-cycle verdict, and a
+    screenshot is written for a look."""
+    dsp = next(p for p in SAMPLES if p.stem == "buck_dsp_5v")
+    assert window.open_path(dsp, ask=False)
+    qtbot.waitUntil(lambda: window.model.result is not None and not window.model.pending, timeout=30000)
+    dialog = window.open_switching()
+    qtbot.addWidget(dialog)
+    qtbot.waitUntil(lambda: dialog.data is not None, timeout=240000)
+    ss = dialog.data["steady"]
+    assert ss.limit_cycle is not None and not ss.limit_cycle.hunting[0]
+    assert "settles on one PWM value" in dialog.status.text()
+    dialog.grab().save(str(tmp_path / "switching_digital.png"))
+    dialog.close()
