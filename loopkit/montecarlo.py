@@ -42,6 +42,7 @@ from .result import Targets
 from .rows import (
     MEMORY_BUDGET_BYTES,
     RowMargins,
+    bytes_per_row_point,
     chunk_margins,
     draws_per_chunk,
     fixed_controller,
@@ -372,7 +373,7 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
     qs = study.quantities
     values = draw_values(qs, int(n_draws), np.random.default_rng(random_state))
     n_t = study.factors.shape[0]
-    step = draws_per_chunk(study.n_corners * n_t, study.f_hz.size, budget_bytes)
+    step = draws_per_chunk(study.n_corners * n_t, study.f_hz.size, budget_bytes, bytes_per_row_point(study.design))
     if client is not None:
         workers = max(workers, len(client.scheduler_info().get("workers", {})) or 1)
     if workers > 1:  # several chunks per worker keep the pool busy
@@ -440,7 +441,7 @@ def loop_envelope(study: Study, values: np.ndarray, f_hz: np.ndarray | None = No
     """
     f = study.f_hz if f_hz is None else np.asarray(f_hz, float)
     values = study.expand(values)
-    step = draws_per_chunk(study.n_corners, f.size, budget_bytes)
+    step = draws_per_chunk(study.n_corners, f.size, budget_bytes, bytes_per_row_point(study.design))
     lo_m = np.full(f.size, np.inf)
     hi_m = np.full(f.size, -np.inf)
     lo_p, hi_p = lo_m.copy(), hi_m.copy()

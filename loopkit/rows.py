@@ -46,6 +46,7 @@ from .schemes import scheme_module
 __all__ = [
     "MEMORY_BUDGET_BYTES",
     "RowMargins",
+    "bytes_per_row_point",
     "draw_design",
     "draws_per_chunk",
     "fixed_controller",
@@ -65,6 +66,11 @@ MEMORY_BUDGET_BYTES = 128 * 2**20
 #: tracemalloc's peak over one chunk, December, 112-141 points: 125 B (voltage-mode buck), 157 B
 #: (inverting buck-boost), 224 B (peak current mode boost); rounded up with room to spare.
 BYTES_PER_ROW_POINT = 400
+
+#: The same for a digital design's rows (``Tu(z) C(z)`` carries more factors: the sampled plant's
+#: delay poles and the controller's).  tracemalloc's peak over a chunk of 100 draws, December, 100-107
+#: points: 327 B (the DSP buck sample), 410 B (the microcontroller inverting sample); doubled.
+BYTES_PER_ROW_POINT_DIGITAL = 800
 
 _STAGE_KEYS = ("inductance", "dcr", "r_switch", "r_rectifier")
 
@@ -349,9 +355,16 @@ def row_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray, controlle
     return loop, resp, phase, stage.dcm
 
 
-def draws_per_chunk(n_corners: int, n_freq: int, budget_bytes: int = MEMORY_BUDGET_BYTES) -> int:
-    """Draws per chunk so that one chunk's rows stay within ``budget_bytes``."""
-    return max(1, int(budget_bytes // (BYTES_PER_ROW_POINT * n_freq * n_corners)))
+def draws_per_chunk(n_corners: int, n_freq: int, budget_bytes: int = MEMORY_BUDGET_BYTES,
+                    per_point: int = BYTES_PER_ROW_POINT) -> int:
+    """Draws per chunk so that one chunk's rows stay within ``budget_bytes`` (``per_point``: bytes per row and
+    grid point, :func:`bytes_per_row_point`)."""
+    return max(1, int(budget_bytes // (per_point * n_freq * n_corners)))
+
+
+def bytes_per_row_point(design: Design) -> int:
+    """Working memory of one row per grid point for this design's loop (analog or digital), bytes."""
+    return BYTES_PER_ROW_POINT_DIGITAL if is_digital(design) else BYTES_PER_ROW_POINT
 
 
 def _as_row_margins(m: Margins, dcm: np.ndarray, n_draws: int) -> RowMargins:
@@ -399,7 +412,7 @@ def row_margins(design: Design, qs, values: np.ndarray, f_hz: np.ndarray, budget
     """
     values = np.atleast_2d(np.asarray(values, float))
     f_hz = np.asarray(f_hz, float)
-    step = draws_per_chunk(design.operating.n_corners, f_hz.size, budget_bytes)
+    step = draws_per_chunk(design.operating.n_corners, f_hz.size, budget_bytes, bytes_per_row_point(design))
     out = []
     for start in range(0, values.shape[0], step):
         out.append(chunk_margins(design, qs, values[start:start + step], f_hz, controller))

@@ -23,7 +23,7 @@ from .bounds import MAX_CORNERS
 from .design import Design
 from .errors import DesignError
 from .result import LoopResult, apply_parts
-from .rows import BYTES_PER_ROW_POINT, MEMORY_BUDGET_BYTES, chunk_margins, fixed_controller, is_digital
+from .rows import MEMORY_BUDGET_BYTES, bytes_per_row_point, chunk_margins, fixed_controller, is_digital
 
 __all__ = ["VinSweep", "sweep_design", "vin_sweep"]
 
@@ -90,7 +90,7 @@ def vin_sweep(design: Design, result: LoopResult, vin_values, progress=None, can
         raise DesignError("vin", vin_values.size, "give at least one input voltage")
     controller, which = fixed_controller(result) if is_digital(design) else (None, "")
     n_load = len(design.operating.load)
-    rows = max(1, int(budget_bytes // (BYTES_PER_ROW_POINT * result.f_hz.size)))
+    rows = max(1, int(budget_bytes // (bytes_per_row_point(design) * result.f_hz.size)))
     size = max(1, min(rows // n_load, MAX_CORNERS // n_load))
     parts = {k: [] for k in ("vin", "load", "fc_hz", "pm_deg", "gm_db", "stable")}
     stopped = False
