@@ -229,3 +229,15 @@ def test_digital_study_chunks_and_pickles():
     again = pickle.loads(pickle.dumps(study))
     np.testing.assert_allclose(monte_carlo(again, 3, random_state=2).margins.pm_deg, whole.margins.pm_deg[:3],
                                rtol=1e-12)
+
+
+def test_without_a_fixed_point_controller_the_exact_one_is_kept():
+    """A given Q format that cannot hold the coefficients: no realisation, so the sweep keeps the exact C(z)
+    and says so; its margins at the design's corners are the design's own."""
+    d = _design("buck_dsp_5v")
+    d = replace(d, digital=replace(d.digital, word_length=16, frac_bits=15))
+    res = LoopSession(d).run()
+    assert res.feasible and res.digital.realisation.fixed is None
+    s = vin_sweep(d, res, d.operating.vin)
+    assert s.controller == "the exact controller (no fixed-point realisation)"
+    _same(s, res.margins)
