@@ -62,6 +62,7 @@ def test_sweep_dialog_on_a_digital_design(qtbot, tmp_path, monkeypatch):
         _close(w)
 
 
+@pytest.mark.slow
 def test_study_dialog_on_a_digital_design(qtbot, tmp_path, monkeypatch):
     from app.study_view import StudyDialog
 
