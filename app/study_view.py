@@ -120,7 +120,9 @@ class StudyDialog(BackgroundDialog):
         lo, hi = mc.wilson
         cl, ch = mc.clopper_pearson
         note = f" (cancelled after {mc.n} of {mc.requested} draws)" if mc.cancelled else ""
-        self.status.setText(f"{mc.n} draws, random state {mc.random_state}{note}.")
+        kept = data["study"].controller_note
+        self.status.setText(f"{mc.n} draws, random state {mc.random_state}{note}."
+                            + (f" Controller kept: {kept}; the plant varies." if kept else ""))
         self.yield_label.setText(
             f"Yield {100 * mc.yield_fraction:.1f} % ({int(np.sum(mc.passed))} of {mc.n} meet every target at every"
             f" corner); 95 % interval: Wilson {100 * lo:.1f}–{100 * hi:.1f} %, Clopper-Pearson"

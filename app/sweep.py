@@ -42,7 +42,7 @@ class SweepWorker(BackgroundWorker):
 
     def compute(self):
         swept = vin_sweep(self._design, self._result, self._vin, self.report, self.cancelled)
-        return None if swept.cancelled else swept.as_dict()
+        return None if swept.cancelled else {**swept.as_dict(), "controller": swept.controller}
 
 
 class SweepDialog(BackgroundDialog):
@@ -114,7 +114,8 @@ class SweepDialog(BackgroundDialog):
         no_gm = not np.any(np.isfinite(data["gm_db"]))  # an empty plot with made-up ticks would look like a fault
         self.gm_plot.getAxis("left").setStyle(showValues=not no_gm)
         if no_gm:
-            note = pg.TextItem("No gain margin at any swept point: the phase reaches -180° only above fsw/2, or"
+            where = "fs/2 (the sampled loop ends there)" if data.get("controller") else "fsw/2"
+            note = pg.TextItem(f"No gain margin at any swept point: the phase reaches -180° only above {where}, or"
                                " never (the corner table says which)", color=(90, 90, 90), anchor=(0.5, 0.5))
             self.gm_plot.addItem(note)
             note.setPos(0.5 * (data["vin"].min() + data["vin"].max()), 0.5)
@@ -124,4 +125,5 @@ class SweepDialog(BackgroundDialog):
         k = int(np.nanargmin(data["pm_deg"])) if np.any(np.isfinite(data["pm_deg"])) else 0
         self.status.setText(
             f"{len(data['vin'])} corners. Lowest phase margin {data['pm_deg'][k]:.1f}° at "
-            f"{format_value(data['vin'][k], 'V')}, {format_value(data['load'][k], 'A')}.")
+            f"{format_value(data['vin'][k], 'V')}, {format_value(data['load'][k], 'A')}."
+            + (f" Controller kept: {data['controller']}." if data.get("controller") else ""))

@@ -850,7 +850,8 @@ def _cmd_sweep(args) -> int:
                      format_value(np.nanmin(s.fc_hz[k]), "Hz"), format_value(np.nanmax(s.fc_hz[k]), "Hz"),
                      f"{gm.min():.1f}" if gm.size else "none", str(int(np.sum(~s.stable[k])))])
     lines = [wrap_note(f"input-voltage sweep of {args.file}: {vin.size} input voltages x"
-                       f" {len(design.operating.load)} loads, parts as built"), "",
+                       f" {len(design.operating.load)} loads, "
+                       + (f"controller kept: {s.controller}" if s.controller else "parts as built")), "",
              format_table([Column("load"), Column("lowest PM", "deg"), Column("at vin"), Column("fc min"),
                            Column("fc max"), Column("lowest GM", "dB"), Column("unstable")], rows), ""]
     if args.csv:
@@ -888,6 +889,10 @@ def _cmd_tolerance(args) -> int:
     for out in (args.csv, args.json):
         if out and out != "-":
             check_writable(out)
+    if args.robust:
+        from .robust import check_robust_applies
+
+        check_robust_applies(design)  # before the study's work
     study = prepare_study(design)
     mc = None
     if args.draws:

@@ -19,6 +19,12 @@ from :func:`loopkit.rows.row_margins`, the one path over rows.
 
 Chunks of draws are a pure function of (design, quantities, draws, grid): :func:`monte_carlo`
 runs them in this process, a process pool (``workers``) or on a Dask cluster (``client``).
+
+A digital design has no network parts: its controller ``C(z)`` is what stays fixed
+(``Study.controller``, :func:`loopkit.rows.fixed_controller`: the fixed-point one firmware runs where
+the realisation exists, else the exact one; ``Study.controller_note`` says which), the plant's
+quantities vary as for an analog design, and the study's grid ends at fs/2 (the margins are those of
+the sampled loop on the unit circle).
 """
 
 from __future__ import annotations
@@ -33,7 +39,17 @@ from .design import Design
 from .errors import DesignError
 from .loop import LoopSession
 from .result import Targets
-from .rows import MEMORY_BUDGET_BYTES, RowMargins, chunk_margins, draws_per_chunk, row_loop, row_margins
+from .rows import (
+    MEMORY_BUDGET_BYTES,
+    RowMargins,
+    bytes_per_row_point,
+    chunk_margins,
+    draws_per_chunk,
+    fixed_controller,
+    is_digital,
+    row_loop,
+    row_margins,
+)
 from .tolerances import Tolerances, draw_values, quantities, temperature_factors
 
 __all__ = [
@@ -87,6 +103,10 @@ class Study:
         outermost: column ``t * n_corners + c``.
     temperatures : tuple of str
         The temperature corners' names (empty without).
+    controller : Discrete or None
+        A digital design's fixed ``C(z)`` (None for an analog network).
+    controller_note : str
+        Which controller that is (empty for an analog network).
     """
 
     design: Design
@@ -96,6 +116,8 @@ class Study:
     nominal: RowMargins
     factors: np.ndarray = None
     temperatures: tuple = ()
+    controller: object = None
+    controller_note: str = ""
 
     @property
     def nominal_values(self) -> np.ndarray:
@@ -108,7 +130,8 @@ class Study:
     def expand(self, values: np.ndarray) -> np.ndarray:
         """Draws (n, q) as rows at every temperature corner, (n * temperatures, q), draw outermost."""
         values = np.atleast_2d(np.asarray(values, float))
-        return (values[:, None, :] * self.factors[None, :, :]).reshape(-1, values.shape[1])
+        n = values.shape[0] * self.factors.shape[0]
+        return (values[:, None, :] * self.factors[None, :, :]).reshape(n, values.shape[1])
 
 
 def _fold(m: RowMargins, n_draws: int) -> RowMargins:
@@ -116,17 +139,17 @@ def _fold(m: RowMargins, n_draws: int) -> RowMargins:
     return RowMargins(**{k: getattr(m, k).reshape(n_draws, -1) for k in RowMargins.__annotations__})
 
 
-def _chunk(design, qs, values, f_hz, factors) -> RowMargins:
+def _chunk(design, qs, values, f_hz, factors, controller=None) -> RowMargins:
     """One chunk of draws at every temperature corner (a pure function: runs in any process)."""
-    expanded = (values[:, None, :] * factors[None, :, :]).reshape(-1, values.shape[1])
-    return _fold(chunk_margins(design, qs, expanded, f_hz), values.shape[0])
+    expanded = (values[:, None, :] * factors[None, :, :]).reshape(values.shape[0] * factors.shape[0], values.shape[1])
+    return _fold(chunk_margins(design, qs, expanded, f_hz, controller), values.shape[0])
 
 
 def study_margins(study: Study, values: np.ndarray, budget_bytes: int = MEMORY_BUDGET_BYTES) -> RowMargins:
     """Margins of draws at every operating and temperature corner, (draws, temperatures x corners)."""
     values = np.atleast_2d(np.asarray(values, float))
-    return _fold(row_margins(study.design, study.quantities, study.expand(values), study.f_hz, budget_bytes),
-                 values.shape[0])
+    return _fold(row_margins(study.design, study.quantities, study.expand(values), study.f_hz, budget_bytes,
+                             controller=study.controller), values.shape[0])
 
 
 def prepare_study(design: Design, tolerances: Tolerances | None = None,
@@ -145,29 +168,56 @@ def prepare_study(design: Design, tolerances: Tolerances | None = None,
     ------
     DesignError
         No parts (the targets cannot be met at nominal values: the study has nothing to vary
-        about), or tolerances that do not fit the design.
+        about), tolerances that do not fit the design (a digital design: entries for network
+        parts or an amplifier), or nothing to vary.
     """
+    tolerances = design.tolerances if tolerances is None else tolerances
+    if is_digital(design):
+        _check_digital_tolerances(tolerances)
     session = LoopSession(design)
     result = session.run()
     if not result.feasible:
         reason = next((f.message for f in result.findings if f.code == "infeasible"), "no parts")
         raise DesignError("compensator", design.compensator.network, f"a study needs parts: {reason}")
     comp = replace(result.design.compensator, parts=dict(result.parts))
-    fixed = replace(result.design, compensator=comp,
-                    tolerances=design.tolerances if tolerances is None else tolerances)
+    fixed = replace(result.design, compensator=comp, tolerances=tolerances)
     if fixed.control.scheme == "peak-current":
         from .schemes.peak_current import slope_of
 
         se = slope_of(fixed, session.stage)
         fixed = replace(fixed, control=replace(fixed.control, slope=se, slope_amplitude=None, slope_ratio=None))
     qs = quantities(fixed, fixed.tolerances, comp.parts)
+    if not qs:
+        raise DesignError("tolerances", "(none)", "a study needs something to vary: give a [tolerances] table"
+                          " (e.g. inductance, output_caps capacitance and esr"
+                          + (")" if is_digital(design) else ", or parts with an E-series tolerance)"))
     lo, hi = session.f_hz[0], session.f_hz[-1]
     f_hz = np.geomspace(lo, hi, max(16, int(np.ceil(points_per_decade * np.log10(hi / lo))) + 1))
+    controller, note = None, ""
+    if is_digital(fixed):
+        f_hz[-1] = hi  # exactly fs/2: the sampled loop's margins need the grid to end there
+        controller, note = fixed_controller(result)
     factors = temperature_factors(qs, fixed.tolerances)
     names = tuple(c.name for c in fixed.tolerances.temperatures)
     values = np.array([[q.nominal for q in qs]])
-    nominal = _fold(row_margins(fixed, qs, (values[:, None, :] * factors[None]).reshape(-1, len(qs)), f_hz), 1)
-    return Study(fixed, qs, f_hz, Targets.from_design(fixed), nominal, factors, names)
+    nominal = _fold(row_margins(fixed, qs, (values[:, None, :] * factors[None]).reshape(factors.shape[0], len(qs)),
+                                f_hz, controller=controller), 1)
+    return Study(fixed, qs, f_hz, Targets.from_design(fixed), nominal, factors, names, controller, note)
+
+
+#: Tolerance entries that name a part of an analog network (a digital design has none).
+_NETWORK_ENTRIES = ("gbw", "ctr", "c_opto")
+
+
+def _check_digital_tolerances(tol: Tolerances) -> None:
+    """A digital design's tolerances vary the plant only: its controller is fixed, it has no network parts."""
+    for name in sorted(tol.parts):
+        raise DesignError(f"tolerances.parts.{name}", name, "a digital design has no network parts (its controller"
+                          " C(z) is fixed): vary the plant (inductance, dcr, r_switch, r_rectifier, output_caps)")
+    for key in _NETWORK_ENTRIES:
+        if key in tol.entries:
+            raise DesignError(f"tolerances.{key}", key, "a digital design has no analog network: vary the plant"
+                              " (inductance, dcr, r_switch, r_rectifier, output_caps)")
 
 
 # ------------------------------------------------------------------ targets and worst corners
@@ -323,7 +373,7 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
     qs = study.quantities
     values = draw_values(qs, int(n_draws), np.random.default_rng(random_state))
     n_t = study.factors.shape[0]
-    step = draws_per_chunk(study.n_corners * n_t, study.f_hz.size, budget_bytes)
+    step = draws_per_chunk(study.n_corners * n_t, study.f_hz.size, budget_bytes, bytes_per_row_point(study.design))
     if client is not None:
         workers = max(workers, len(client.scheduler_info().get("workers", {})) or 1)
     if workers > 1:  # several chunks per worker keep the pool busy
@@ -332,8 +382,8 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
     done: list[RowMargins] = []
     try:
         if client is not None:
-            futures = [client.submit(_chunk, study.design, qs, values[a:b], study.f_hz, study.factors, pure=False)
-                       for a, b in spans]
+            futures = [client.submit(_chunk, study.design, qs, values[a:b], study.f_hz, study.factors,
+                                     study.controller, pure=False) for a, b in spans]
             try:
                 for (a, b), fut in zip(spans, futures):
                     done.append(fut.result())
@@ -344,13 +394,13 @@ def monte_carlo(study: Study, n_draws: int, random_state: int = 0, workers: int 
                 raise
         elif workers <= 1:
             for a, b in spans:
-                done.append(_chunk(study.design, qs, values[a:b], study.f_hz, study.factors))
+                done.append(_chunk(study.design, qs, values[a:b], study.f_hz, study.factors, study.controller))
                 if progress is not None:
                     progress(b, n_draws)
         else:
             with ProcessPoolExecutor(max_workers=workers) as pool:
-                futures = [pool.submit(_chunk, study.design, qs, values[a:b], study.f_hz, study.factors)
-                           for a, b in spans]
+                futures = [pool.submit(_chunk, study.design, qs, values[a:b], study.f_hz, study.factors,
+                                       study.controller) for a, b in spans]
                 try:
                     for (a, b), fut in zip(spans, futures):
                         done.append(fut.result())
@@ -391,12 +441,12 @@ def loop_envelope(study: Study, values: np.ndarray, f_hz: np.ndarray | None = No
     """
     f = study.f_hz if f_hz is None else np.asarray(f_hz, float)
     values = study.expand(values)
-    step = draws_per_chunk(study.n_corners, f.size, budget_bytes)
+    step = draws_per_chunk(study.n_corners, f.size, budget_bytes, bytes_per_row_point(study.design))
     lo_m = np.full(f.size, np.inf)
     hi_m = np.full(f.size, -np.inf)
     lo_p, hi_p = lo_m.copy(), hi_m.copy()
     for a, b in _chunks(values.shape[0], step):
-        _, resp, phase, _ = row_loop(study.design, study.quantities, values[a:b], f)
+        _, resp, phase, _ = row_loop(study.design, study.quantities, values[a:b], f, study.controller)
         mag = 20.0 * np.log10(np.abs(resp))
         lo_m, hi_m = np.minimum(lo_m, mag.min(axis=0)), np.maximum(hi_m, mag.max(axis=0))
         lo_p, hi_p = np.minimum(lo_p, phase.min(axis=0)), np.maximum(hi_p, phase.max(axis=0))

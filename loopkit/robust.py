@@ -35,7 +35,8 @@ from .rational import Rational
 from .rows import draw_design, row_open_loop
 from .worst_corner import search_placement
 
-__all__ = ["FC_LIFTS", "MAX_VERTEX_PLANT", "N_CANDIDATES", "RobustResult", "robust_synthesis", "scenario_values"]
+__all__ = ["FC_LIFTS", "MAX_VERTEX_PLANT", "N_CANDIDATES", "RobustResult", "check_robust_applies", "robust_synthesis",
+           "scenario_values"]
 
 #: Up to this many plant quantities every vertex of their box is a scenario.
 MAX_VERTEX_PLANT = 8
@@ -124,6 +125,14 @@ def _score(study: Study, parts: dict, scenarios: np.ndarray) -> tuple[int, float
     return int(np.sum(bad)), float(np.min(pm)), float(pm[0])
 
 
+def check_robust_applies(design) -> None:
+    """Robust synthesis searches an analog network's zeros and poles: a digital controller is refused."""
+    if design.control.scheme == "digital":
+        raise DesignError("--robust", "control.scheme = \"digital\"", "robust synthesis searches an analog"
+                          " network's parts; a digital design's controller is designed in z (not searched over the"
+                          " tolerance box): leave out --robust, or use an analog control scheme")
+
+
 def robust_synthesis(study: Study) -> RobustResult:
     """The network that maximises the worst-case PM over corners and the plant's tolerance box.
 
@@ -135,8 +144,14 @@ def robust_synthesis(study: Study) -> RobustResult:
     Returns
     -------
     RobustResult
+
+    Raises
+    ------
+    DesignError
+        A digital design (:func:`check_robust_applies`).
     """
     design = study.design
+    check_robust_applies(design)
     module = network_module(design.compensator.network)
     nominal_parts = dict(design.compensator.parts)
     scenarios = scenario_values(study)

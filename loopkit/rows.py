@@ -17,6 +17,13 @@ quantities), and the stage, scheme and network code broadcast over them.  Where 
 hold yet -- the four-switch stage (its modes split the corners), a varied current-sense gain,
 the gm and optocoupler networks -- each draw of the chunk runs through :func:`draw_design` and
 the ordinary path, and the loops are stacked before the margins, which are always vectorised.
+
+A digital design (``control.scheme = "digital"``) has no network: what stays fixed over the rows is
+its controller ``C(z)`` (:func:`fixed_controller`: the fixed-point controller firmware runs, or the
+exact one where no realisation exists), passed as ``controller``.  Each row's loop is
+``Tu_row(z) C(z)`` with the sampled plant of :mod:`loopkit.schemes.digital` evaluated over the rows,
+and its margins come from :func:`loopkit.discrete_margins.discrete_loop_margins` (the grid must end
+at fs/2).
 """
 
 from __future__ import annotations
@@ -26,6 +33,9 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from .design import CapacitorBank, Control, Design, Modulator, OpAmp, Operating, Stage
+from .discrete import Discrete
+from .discrete_margins import discrete_loop_margins
+from .errors import DesignError
 from .margins import Margins, loop_margins
 from .networks import network_module
 from .powerstage import analyse_stage
@@ -36,8 +46,11 @@ from .schemes import scheme_module
 __all__ = [
     "MEMORY_BUDGET_BYTES",
     "RowMargins",
+    "bytes_per_row_point",
     "draw_design",
     "draws_per_chunk",
+    "fixed_controller",
+    "is_digital",
     "row_loop",
     "row_margins",
     "row_open_loop",
@@ -53,6 +66,11 @@ MEMORY_BUDGET_BYTES = 128 * 2**20
 #: tracemalloc's peak over one chunk, December, 112-141 points: 125 B (voltage-mode buck), 157 B
 #: (inverting buck-boost), 224 B (peak current mode boost); rounded up with room to spare.
 BYTES_PER_ROW_POINT = 400
+
+#: The same for a digital design's rows (``Tu(z) C(z)`` carries more factors: the sampled plant's
+#: delay poles and the controller's).  tracemalloc's peak over a chunk of 100 draws, December, 100-107
+#: points: 327 B (the DSP buck sample), 410 B (the microcontroller inverting sample); doubled.
+BYTES_PER_ROW_POINT_DIGITAL = 800
 
 _STAGE_KEYS = ("inductance", "dcr", "r_switch", "r_rectifier")
 
@@ -231,6 +249,9 @@ def _loop_one(design: Design, f_hz: np.ndarray):
 def row_open_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray) -> tuple[OpenLoop, np.ndarray]:
     """The uncompensated loop Tu of every row (on the grid too) and the rows' DCM flags; the network's
     quantities in ``qs`` play no part here (robust synthesis varies the plant and searches the network)."""
+    if is_digital(design):
+        raise DesignError("control.scheme", "digital", "an analog loop (the network's plant Tu(s)); a digital"
+                          " design's rows: row_loop with its controller")
     values = np.atleast_2d(np.asarray(values, float))
     keys = [q.key for q in qs]
     if design.stage.topology != "four-switch-buck-boost" and "sense_gain" not in keys:  # the plant broadcasts
@@ -249,7 +270,52 @@ def row_open_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray) -> t
     return OpenLoop(tu, tu.response(f_hz), tu.phase_deg(f_hz), tu, tu), dcm
 
 
-def row_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray):
+def is_digital(design: Design) -> bool:
+    """Whether the design's loop is sampled (a digital controller instead of a network)."""
+    return design.control.scheme == "digital"
+
+
+def fixed_controller(result) -> tuple[Discrete, str]:
+    """The controller a digital result's rows keep fixed, and a line saying which it is.
+
+    The fixed-point controller's ``C(z)`` with its integer coefficients
+    (:meth:`loopkit.fixedpoint.FixedPointController.quantised`, what firmware runs) where the
+    realisation exists; else the exact ``C(z)`` the synthesis gave.
+    """
+    dig = getattr(result, "digital", None)
+    if dig is None:
+        raise DesignError("control.scheme", result.design.control.scheme, "a digital result (\"digital\")")
+    real = dig.realisation
+    if real is not None and real.fixed is not None:
+        f = real.fixed
+        return f.quantised(), (f"the fixed-point controller as firmware runs it (Q{f.b_frac_bits}/Q{f.a_frac_bits},"
+                               f" {f.word_bits}-bit words)")
+    return dig.controller, "the exact controller (no fixed-point realisation)"
+
+
+def _digital_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray, controller):
+    """``Tu_row(z) C(z)`` over the rows: the sampled plant per row, the controller fixed."""
+    if not isinstance(controller, Discrete) or controller.n_corners != 1:
+        raise DesignError("controller", type(controller).__name__,
+                          "a digital design's rows need its controller C(z), one Discrete (fixed_controller)")
+    scheme = scheme_module(design.control.scheme)
+    if design.stage.topology != "four-switch-buck-boost":  # the sampled plant broadcasts over the rows
+        row, _ = _row_design(design, qs, values)
+        stage = analyse_stage(row, findings=False)
+        tu, dcm = scheme.uncompensated(row, stage).sampled, stage.dcm
+    else:
+        tus, dcms = [], []
+        for v in values:
+            one = draw_design(design, qs, v)
+            st = analyse_stage(one, findings=False)
+            tus.append(scheme.uncompensated(one, st).sampled)
+            dcms.append(st.dcm)
+        tu, dcm = Discrete.stack(tus), np.concatenate(dcms)
+    loop = tu * controller
+    return loop, loop.response(f_hz), loop.phase_deg(f_hz), dcm
+
+
+def row_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray, controller=None):
     """Loop gain of every row of some draws: (T, T on the grid, its continuous phase, DCM per row).
 
     Parameters
@@ -260,8 +326,13 @@ def row_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray):
     values : ndarray (draws, quantities)
     f_hz : ndarray
         Analysis grid, Hz.
+    controller : Discrete, optional
+        A digital design's fixed ``C(z)`` (required for one, ignored otherwise); T is then a
+        :class:`~loopkit.discrete.Discrete`.
     """
     values = np.atleast_2d(np.asarray(values, float))
+    if is_digital(design):
+        return _digital_loop(design, qs, values, f_hz, controller)
     if not vectorised(design, [q.key for q in qs]):
         loops = [_loop_one(draw_design(design, qs, row), f_hz) for row in values]
         return (Rational.stack([x[0] for x in loops]), np.concatenate([x[1] for x in loops]),
@@ -284,9 +355,16 @@ def row_loop(design: Design, qs, values: np.ndarray, f_hz: np.ndarray):
     return loop, resp, phase, stage.dcm
 
 
-def draws_per_chunk(n_corners: int, n_freq: int, budget_bytes: int = MEMORY_BUDGET_BYTES) -> int:
-    """Draws per chunk so that one chunk's rows stay within ``budget_bytes``."""
-    return max(1, int(budget_bytes // (BYTES_PER_ROW_POINT * n_freq * n_corners)))
+def draws_per_chunk(n_corners: int, n_freq: int, budget_bytes: int = MEMORY_BUDGET_BYTES,
+                    per_point: int = BYTES_PER_ROW_POINT) -> int:
+    """Draws per chunk so that one chunk's rows stay within ``budget_bytes`` (``per_point``: bytes per row and
+    grid point, :func:`bytes_per_row_point`)."""
+    return max(1, int(budget_bytes // (per_point * n_freq * n_corners)))
+
+
+def bytes_per_row_point(design: Design) -> int:
+    """Working memory of one row per grid point for this design's loop (analog or digital), bytes."""
+    return BYTES_PER_ROW_POINT_DIGITAL if is_digital(design) else BYTES_PER_ROW_POINT
 
 
 def _as_row_margins(m: Margins, dcm: np.ndarray, n_draws: int) -> RowMargins:
@@ -298,7 +376,7 @@ def _as_row_margins(m: Margins, dcm: np.ndarray, n_draws: int) -> RowMargins:
 
 
 def row_margins(design: Design, qs, values: np.ndarray, f_hz: np.ndarray, budget_bytes: int = MEMORY_BUDGET_BYTES,
-                progress=None) -> RowMargins:
+                progress=None, controller=None) -> RowMargins:
     """Margins at every corner of every draw, chunk by chunk.
 
     Parameters
@@ -315,6 +393,8 @@ def row_margins(design: Design, qs, values: np.ndarray, f_hz: np.ndarray, budget
         Called with the number of draws finished after each chunk; raising
         ``KeyboardInterrupt`` there (or anywhere) ends the run: what finished is lost only
         in this function; :func:`loopkit.montecarlo.monte_carlo` keeps it.
+    controller : Discrete, optional
+        A digital design's fixed ``C(z)`` (:func:`row_loop`).
 
     Returns
     -------
@@ -326,21 +406,26 @@ def row_margins(design: Design, qs, values: np.ndarray, f_hz: np.ndarray, budget
     The margins are :func:`loopkit.margins.loop_margins` of ``T = -Tu Gc`` per row: crossovers
     bracketed on the grid and refined on the exact factored loop, PM = 180 deg + phase(T) at
     the crossover, GM = -20 log10 |T| at the -180 deg crossing (Erickson & Maksimovic, 2nd ed.,
-    sec. 9.4), stability from the roots of 1 + T.
+    sec. 9.4), stability from the roots of 1 + T.  A digital design's rows:
+    :func:`loopkit.discrete_margins.discrete_loop_margins` of ``Tu_row(z) C(z)`` on the unit circle
+    (``f_hz`` ending at fs/2), stability from the z-plane roots of 1 + T.
     """
     values = np.atleast_2d(np.asarray(values, float))
     f_hz = np.asarray(f_hz, float)
-    step = draws_per_chunk(design.operating.n_corners, f_hz.size, budget_bytes)
+    step = draws_per_chunk(design.operating.n_corners, f_hz.size, budget_bytes, bytes_per_row_point(design))
     out = []
     for start in range(0, values.shape[0], step):
-        out.append(chunk_margins(design, qs, values[start:start + step], f_hz))
+        out.append(chunk_margins(design, qs, values[start:start + step], f_hz, controller))
         if progress is not None:
             progress(min(start + step, values.shape[0]))
     return RowMargins.concatenate(out)
 
 
-def chunk_margins(design: Design, qs, values: np.ndarray, f_hz: np.ndarray) -> RowMargins:
-    """Margins of one chunk of draws: a pure function of (design, quantities, draws, grid)."""
-    loop, resp, phase, dcm = row_loop(design, qs, values, f_hz)
-    m = loop_margins(loop, f_hz, resp, phase, design.stage.fsw / 2)
+def chunk_margins(design: Design, qs, values: np.ndarray, f_hz: np.ndarray, controller=None) -> RowMargins:
+    """Margins of one chunk of draws: a pure function of (design, quantities, draws, grid[, controller])."""
+    loop, resp, phase, dcm = row_loop(design, qs, values, f_hz, controller)
+    if is_digital(design):
+        m = discrete_loop_margins(loop, f_hz, resp, phase)
+    else:
+        m = loop_margins(loop, f_hz, resp, phase, design.stage.fsw / 2)
     return _as_row_margins(m, dcm, values.shape[0])

@@ -7,6 +7,10 @@ block's rows fit a memory budget, so time grows linearly with the number of inpu
 memory stays flat.  The grid is the result's own, so at the design's own corners the sweep gives
 the numbers of the corner table.  The app's sweep dialog and ``loopkit sweep`` call
 :func:`vin_sweep`.
+
+A digital design keeps its controller instead of parts (:func:`loopkit.rows.fixed_controller`: the
+fixed-point ``C(z)`` firmware runs where the realisation exists, else the exact one; ``VinSweep.controller``
+says which), and every swept corner's loop is ``Tu(z) C(z)`` with margins on the unit circle up to fs/2.
 """
 
 from __future__ import annotations
@@ -19,7 +23,7 @@ from .bounds import MAX_CORNERS
 from .design import Design
 from .errors import DesignError
 from .result import LoopResult, apply_parts
-from .rows import BYTES_PER_ROW_POINT, MEMORY_BUDGET_BYTES, chunk_margins
+from .rows import MEMORY_BUDGET_BYTES, bytes_per_row_point, chunk_margins, fixed_controller, is_digital
 
 __all__ = ["VinSweep", "sweep_design", "vin_sweep"]
 
@@ -40,7 +44,8 @@ class VinSweep:
     """Margins per (input voltage, load), input voltage outermost; ``cancelled`` when stopped early.
 
     Arrays ``vin``, ``load`` (V, A), ``fc_hz``, ``pm_deg``, ``gm_db``, ``stable`` have one entry per
-    swept corner (fewer than asked for when cancelled).
+    swept corner (fewer than asked for when cancelled).  ``controller``: for a digital design, which
+    controller was kept fixed (empty for an analog network's parts).
     """
 
     vin: np.ndarray
@@ -50,6 +55,7 @@ class VinSweep:
     gm_db: np.ndarray
     stable: np.ndarray
     cancelled: bool = False
+    controller: str = ""
 
     def as_dict(self) -> dict:
         return {k: getattr(self, k) for k in ("vin", "load", "fc_hz", "pm_deg", "gm_db", "stable")}
@@ -82,8 +88,9 @@ def vin_sweep(design: Design, result: LoopResult, vin_values, progress=None, can
     vin_values = np.asarray(vin_values, float)
     if vin_values.ndim != 1 or vin_values.size == 0:
         raise DesignError("vin", vin_values.size, "give at least one input voltage")
+    controller, which = fixed_controller(result) if is_digital(design) else (None, "")
     n_load = len(design.operating.load)
-    rows = max(1, int(budget_bytes // (BYTES_PER_ROW_POINT * result.f_hz.size)))
+    rows = max(1, int(budget_bytes // (bytes_per_row_point(design) * result.f_hz.size)))
     size = max(1, min(rows // n_load, MAX_CORNERS // n_load))
     parts = {k: [] for k in ("vin", "load", "fc_hz", "pm_deg", "gm_db", "stable")}
     stopped = False
@@ -92,7 +99,7 @@ def vin_sweep(design: Design, result: LoopResult, vin_values, progress=None, can
             stopped = True
             break
         block = sweep_design(design, result, vin_values[start:start + size])
-        m = chunk_margins(block, [], np.zeros((1, 0)), result.f_hz)
+        m = chunk_margins(block, [], np.zeros((1, 0)), result.f_hz, controller)
         vin, load = block.operating.corners()
         parts["vin"].append(vin)
         parts["load"].append(load)
@@ -102,4 +109,4 @@ def vin_sweep(design: Design, result: LoopResult, vin_values, progress=None, can
             progress(min(start + size, vin_values.size), vin_values.size)
     empty = {"stable": np.zeros(0, bool)}
     out = {k: np.concatenate(v) if v else empty.get(k, np.zeros(0)) for k, v in parts.items()}
-    return VinSweep(**out, cancelled=stopped)
+    return VinSweep(**out, cancelled=stopped, controller=which)

@@ -37,7 +37,8 @@ def study_text(study: Study, mc: MonteCarloResult | None, sens: list[Sensitivity
              wrap_note(f"targets: PM >= {t.pm_deg:g} deg, GM >= {t.gm_db:g} dB, fc {_value(t.fc_hz, 'Hz')}"
                        f" within x{t.fc_band:g} (CCM corners), at each of {study.n_corners} corners"
                        + (f" x {len(study.temperatures)} temperatures" if study.temperatures else "")),
-             wrap_note("parts: " + ", ".join(f"{k} {_value(v, 'Ω' if k.startswith('R') else 'F')}"
+             wrap_note(f"controller kept: {study.controller_note}; the plant varies" if study.controller_note else
+                       "parts: " + ", ".join(f"{k} {_value(v, 'Ω' if k.startswith('R') else 'F')}"
                                              for k, v in sorted(study.design.compensator.parts.items()))),
              ""]
     if study.temperatures:
@@ -116,6 +117,7 @@ def study_document(study: Study, mc: MonteCarloResult | None, sens: list[Sensiti
     doc = {
         "targets": {"pm_deg": t.pm_deg, "gm_db": t.gm_db, "fc_hz": t.fc_hz, "fc_band": t.fc_band},
         "parts": {k: float(v) for k, v in study.design.compensator.parts.items()},
+        **({"controller": _controller_doc(study)} if study.controller is not None else {}),
         "quantities": [{"key": q.key, "nominal": q.nominal, "low": q.low, "high": q.high,
                         "distribution": q.distribution, "sigmas": q.sigmas, "unit": q.unit}
                        for q in study.quantities],
@@ -154,6 +156,14 @@ def study_document(study: Study, mc: MonteCarloResult | None, sens: list[Sensiti
                          "kept_nominal": robust.kept_nominal}
     doc["caution"] = CAUTION
     return doc
+
+
+def _controller_doc(study: Study) -> dict:
+    """A digital study's fixed controller: which one, Ts and its difference equation (powers of z^-1)."""
+    c = study.controller
+    b, a = c.difference_equation(0)
+    return {"kept": study.controller_note, "ts_s": float(c.ts_s), "b": _num(np.asarray(b, float)),
+            "a": _num(np.asarray(a, float))}
 
 
 def study_json(study: Study, mc, sens, wc, robust=None) -> str:
