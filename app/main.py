@@ -94,6 +94,9 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="loopkit-gui", description="Design the loop of a DC-DC converter.")
     parser.add_argument("file", nargs="?", help="design file (TOML) to open")
     args = parser.parse_args(argv)
+    from loopkit.threads import limit_blas_threads
+
+    limit_blas_threads()
 
     from PySide6.QtWidgets import QApplication
 

@@ -1259,6 +1259,9 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_BAD_INPUT
     _ASCII = not _stdout_can("µΩ")
     args = build_parser().parse_args(argv)
+    from .threads import limit_blas_threads
+
+    limit_blas_threads()
     try:
         status = args.run(args)
         sys.stdout.flush()  # a write error shows here, not as a traceback at exit
