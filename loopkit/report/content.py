@@ -194,8 +194,16 @@ def limits_lines(result) -> list[str]:
     """The model's limits for this design, in sentences."""
     d = result.design
     fsw = d.stage.fsw
-    lines = [(f"The loop is the averaged small-signal model. Its margins are trustworthy up to about fsw/5"
-             f" ({num(FC_FSW_LIMIT * fsw, 'Hz')} here); above that the modulator's sampling makes them optimistic.")]
+    if result.digital is not None:
+        fs = result.digital.fs_hz
+        lines = [(f"The loop is the sampled loop T(z): the averaged plant with each duty change at the modulated PWM"
+                  f" edge after the loop delay, exact in z up to fs/2 ({num(fs / 2, 'Hz')}); a crossover above fs/10"
+                  f" ({num(0.1 * fs, 'Hz')}) is an error finding. The output ripple the ADC samples and the ADC and"
+                  " PWM steps are not in T(z): the resolution findings and the switching check show them.")]
+    else:
+        lines = [(f"The loop is the averaged small-signal model. Its margins are trustworthy up to about fsw/5"
+                  f" ({num(FC_FSW_LIMIT * fsw, 'Hz')} here); above that the modulator's sampling makes them"
+                  " optimistic.")]
     if result.feasible and result.margins is not None:
         fc_max = np.nanmax(result.margins.fc_hz) if np.any(np.isfinite(result.margins.fc_hz)) else np.nan
         if np.isfinite(fc_max):
@@ -209,9 +217,14 @@ def limits_lines(result) -> list[str]:
                          " averaged model does not hold; the table writes it as "
                          f"'{GM_WORDS['beyond-model']}' rather than a number.")
     if np.any(result.stage.dcm):
-        lines.append("DCM corners use the reduced-order averaged-switch model with the high-frequency pole"
-                     " 2 fsw/D2; the DCM right-half-plane zero of boost-type stages is not modelled.")
-    lines.append("Parts are ideal except the error amplifier's gain and bandwidth where given; part tolerances,"
-                 " temperature and capacitor DC-bias derating are not in these margins.")
+        lines.append("DCM corners use the full-order averaged model (J. Sun et al., IEEE TPEL 16(4), 2001) with the"
+                     " inductor current kept as a state, the boost-type right-half-plane zero included; peak current"
+                     " mode in DCM keeps the reduced-order output impedance its model was derived on.")
+    if result.digital is None:
+        lines.append("Parts are ideal except the error amplifier's gain and bandwidth where given; part tolerances,"
+                     " temperature and capacitor DC-bias derating are not in these margins.")
+    else:
+        lines.append("The controller's margins are given with its exact and its fixed-point coefficients; plant"
+                     " tolerances, temperature and capacitor DC-bias derating are not in these margins.")
     lines.append("Step responses are small-signal: a duty that would saturate is flagged and the answer is then wrong.")
     return lines

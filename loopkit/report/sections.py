@@ -256,18 +256,29 @@ def switching_section(result, loop_gain_corner: int | None = None, progress=None
     setup = closed_loop_setup(result)
     ss = steady_state(setup, np.arange(n), progress=progress)
     v_set = regulated_output(result)
+    lc = ss.limit_cycle  # a digital loop as built: does it settle?
     rows = []
     for k in range(n):
-        mode = ("DCM" if ss.dcm[k] else "CCM") + ("" if ss.settled[k] else "?")
-        rows.append((str(k), result.corner_labels[k], mode, num(ss.vout_v[k], "V", 5), num(ss.ripple_pp_v[k], "V"),
-                     num(ss.il_peak_a[k], "A"), num(stage.i_peak[k], "A"), f"{100 * ss.duty[k]:.2f}",
-                     f"{100 * stage.duty[k]:.2f}"))
-    tables = [Table(("#", "corner", "mode", "vout", "ripple p-p", "peak iL", "averaged peak iL", "duty (%)",
-                     "averaged duty (%)"), tuple(rows),
-                    f"Periodic steady state of the switching simulation (the divider regulates to"
-                    f" {num(v_set, 'V', 5)}) against the averaged operating point",
-                    "?: the run does not repeat from one period to the next (e.g. subharmonic oscillation); the"
-                    " figures are those of the last period." if not np.all(ss.settled) else "")]
+        mode = ("DCM" if ss.dcm[k] else "CCM") + ("" if ss.settled[k] or lc is not None else "?")
+        row = (str(k), result.corner_labels[k], mode, num(ss.vout_v[k], "V", 5), num(ss.ripple_pp_v[k], "V"),
+               num(ss.il_peak_a[k], "A"), num(stage.i_peak[k], "A"), f"{100 * ss.duty[k]:.2f}",
+               f"{100 * stage.duty[k]:.2f}")
+        if lc is not None:
+            row += ((f"{lc.u_span[k]:.0f} PWM steps, {lc.code_span[k]:.0f} codes, {num(lc.vo_span_v[k], 'V')}"
+                     if lc.hunting[k] else "none"),)
+        rows.append(row)
+    head = ("#", "corner", "mode", "vout", "ripple p-p", "peak iL", "averaged peak iL", "duty (%)", "averaged duty (%)")
+    if lc is None:
+        tables = [Table(head, tuple(rows), f"Periodic steady state of the switching simulation (the divider regulates to"
+                        f" {num(v_set, 'V', 5)}) against the averaged operating point",
+                        "?: the run does not repeat from one period to the next (e.g. subharmonic oscillation); the"
+                        " figures are those of the last period." if not np.all(ss.settled) else "")]
+    else:
+        tables = [Table(head + ("limit cycle",), tuple(rows), "Steady state of the loop as built (fixed-point"
+                        " controller, ADC and PWM steps) against the averaged operating point",
+                        f"Watched for {lc.periods} periods after settling. A limit cycle: the PWM value or the ADC code"
+                        " keeps moving (spans: PWM value, ADC code, the output's one-period mean; Peterchev & Sanders"
+                        " 2003).")]
     # A steady state more than 1 % off the set point does not regulate (common practice, no source).
     off = np.abs(ss.vout_v - v_set) > 0.01 * abs(v_set)
     max_duty = float(result.design.modulator.max_duty)
@@ -284,16 +295,23 @@ def switching_section(result, loop_gain_corner: int | None = None, progress=None
                      f"{np.degrees(np.angle(lg.t_switching[0, i])):.1f}",
                      f"{20 * np.log10(abs(lg.t_averaged[0, i])):.2f}", f"{np.degrees(np.angle(lg.t_averaged[0, i])):.1f}",
                      f"{lg.diff_db[0, i]:+.2f}", f"{lg.diff_deg[0, i]:+.1f}") for i, fi in enumerate(lg.f_hz))
-    tables.append(Table(("f", "|T| switching (dB)", "phase switching (deg)", "|T| averaged (dB)",
-                         "phase averaged (deg)", "difference (dB)", "difference (deg)"), lg_rows,
+    ref = "T(z)" if lc is not None else "averaged"
+    tables.append(Table(("f", "|T| switching (dB)", "phase switching (deg)", f"|T| {ref} (dB)",
+                         f"phase {ref} (deg)", "difference (dB)", "difference (deg)"), lg_rows,
                         f"Loop gain by injection at corner #{k0} ({result.corner_labels[k0]})"))
     lim = float(lg.limit_hz[0])
-    text = [("Every corner simulated cycle by cycle (exact piecewise-linear switching, the parts to build) to its"
-            " periodic steady state, beside the averaged model's operating point."),
-            (f"The loop gain by injection (a sine in series with the feedback, whole periods, single-bin Fourier) is"
+    digital = lc is not None
+    what = ("the controller as built: fixed point, ADC, counter PWM, run until it settles" if digital else
+            "the parts to build, to its periodic steady state")
+    how = ("a sine added to the ADC value the exact controller sees, against T(z)" if digital else
+           "a sine in series with the feedback")
+    model = "sampled model T(z)" if digital else "averaged model"
+    text = [(f"Every corner simulated cycle by cycle (exact piecewise-linear switching, {what}), beside the averaged"
+             " model's operating point."),
+            (f"The loop gain by injection ({how}, whole periods, single-bin Fourier) is"
             f" measured at corner #{k0} only ({'the design corner' if loop_gain_corner is None else 'chosen'}):"
             " one corner takes from seconds to about a minute; loopkit simulate --only K --loop-gain runs any other."),
-            (f"Model limit at corner #{k0}: the averaged model departs from the switching loop by more than"
+            (f"Model limit at corner #{k0}: the {model} departs from the switching loop by more than"
              f" {LIMIT_DB:g} dB or {LIMIT_DEG:g} deg from {num(lim, 'Hz')} on." if np.isfinite(lim) else
              f"Model limit at corner #{k0}: within {LIMIT_DB:g} dB and {LIMIT_DEG:g} deg at every frequency measured"
              f" (up to {num(float(np.max(lg.f_hz)), 'Hz')}).")] + notes
