@@ -92,7 +92,14 @@ def test_limit_cycle_appears_where_the_resolution_check_says(name, adc_bits, cou
     """[PS03] per topology: 8-bit ADC with 1024 counts and 4 dither bits passes (a), the loop settles at
     every load; a 12-bit ADC with 64 counts breaks it, and the output hunts (at some loads at least: where a
     PWM level happens to fall inside the zero-error bin it may settle, which is why [PS03] state it for
-    every operating point).  The check's verdict and the simulation's must agree."""
+    every operating point).  The check's verdict and the simulation's must agree.
+
+    The flyback is not in the list, on purpose: its digital variant (48 V, 2 A, 8-bit ADC, 1024 counts, 4
+    dither bits) passes (a) and still hunts in the switching simulation (the PWM value spans about 850
+    steps).  Its output is sampled just before the switch turns on, when the secondary current through the
+    electrolytics' 75 mOhm ESR is at its step, so the sampled loop gain is 4.4 dB above T(z) at every
+    frequency measured (with the ESR at 1 uOhm it is within 0.05 dB up to fc); the resolution check is
+    necessary, not sufficient, and the switching check is what shows this."""
     res = LoopSession(_one_point(name, adc_bits, counts, dither)).run()
     assert res.feasible
     assert bool(res.digital.realisation.resolution.fine_enough[0]) == (not breaks)
