@@ -103,6 +103,7 @@ class Lanes:
     beta_inj: list = field(default_factory=list)
     g: dict = field(default_factory=dict)
     inj: bool = False
+    pre: list = field(default_factory=list)
 
     def __post_init__(self):
         self.inj = bool(np.any(self.inj_amp))
@@ -155,6 +156,119 @@ def _e(lam, nu, t):
         safe_d = np.where(near, 1.0, d)
         b = (np.exp(nu * t) - np.exp(lam * t)) / safe_d
     return np.where(near, a, b)
+
+
+_UNIT_GRID = np.linspace(0.0, 1.0, SCAN_POINTS)[None, :]
+
+
+def _apply(mat, z):
+    """``mat @ z`` per lane: (lanes, n, n) by (lanes, n)."""
+    return np.matmul(mat, z[:, :, None])[:, :, 0]
+
+
+def _per_state(lanes: Lanes, s: int) -> dict:
+    """The lanes' gathered quantities of switch state ``s`` that every interval uses, once per load:
+    ``shift = b0/lam`` and ``lin = b0 [lam = 0]`` of the modal solution, the event rows, and the event
+    functions' constant parts (``const_g``, and ``gamma`` the slope of their part linear in time)."""
+    g = lanes.g
+    b0 = lanes.beta0[s]
+    lin = b0 * g["zero_lam"][:, s]
+    r_g = np.ascontiguousarray(g["r_g"][:, s])
+    r_il = np.ascontiguousarray(g["r_il"][:, s])
+    return {"lam": np.ascontiguousarray(g["lam"][:, s]), "inv": np.ascontiguousarray(g["inv"][:, s]),
+            "vec_t": np.ascontiguousarray(np.swapaxes(g["vec"][:, s], 1, 2)), "shift": b0 * g["inv_lam"][:, s],
+            "lin": lin, "bi": lanes.beta_inj[s], "r_g": r_g, "r_il": r_il,
+            "const_g": g["d_g"][:, s] + g["d_g_ix"][:, s] * lanes.i_x,
+            "gamma_g": np.sum(r_g * lin, axis=1).real - g["slope"], "gamma_il": np.sum(r_il * lin, axis=1).real,
+            "ginj": g["g_inj_coef"], "slope": g["slope"]}
+
+
+class _Event:
+    """One interval's event function for some lanes, in closed form on the exact modal solution.
+
+    With ``q(t) = q0 + expm1(lam t) (q0 + b0/lam) + b0 t [lam = 0]`` (+ the injected terms) and the
+    event row ``r`` (comparator or inductor current), ``f(t) = r q(t) + const - slope (t_in_cycle + t)``
+    is regrouped once per interval into::
+
+        f(t)  = f0 + Re(sum_j alpha_j expm1(lam_j t)) + gamma t     alpha = r (q0 + b0/lam)
+        f'(t) = Re(sum_j lam_j alpha_j e^{lam_j t}) + gamma
+
+    (the same sums as ``r q(t)``, so no new cancellation), and with the injected sine
+    ``+ Re(sum_j rho_j (a E(lam_j, jw, t) + a* E(lam_j, -jw, t)))`` and its derivative
+    ``dE/dt = lam E + e^{nu t}``, plus the comparator's own share of the sine.
+    """
+
+    __slots__ = ("alpha", "amp", "f0", "gamma", "inj", "lam", "lam_alpha", "rho_m", "rho_p", "sine", "t0", "w")
+
+    def __init__(self, lanes, s, kind, q0, t0_abs, t_in_cycle, sub):
+        p = lanes.pre[s]
+        full = sub.size == lanes.n
+
+        def take(a):
+            return a if full else a[sub]
+
+        row = take(p["r_g"] if kind == "g" else p["r_il"])
+        q0 = take(q0)
+        self.lam = take(p["lam"])
+        self.alpha = row * (q0 + take(p["shift"]))
+        self.lam_alpha = self.lam * self.alpha
+        f0 = np.sum(row * q0, axis=1).real
+        if kind == "g":
+            self.f0 = f0 + take(p["const_g"]) - take(p["slope"]) * take(t_in_cycle)
+            self.gamma = take(p["gamma_g"])
+        else:
+            self.f0, self.gamma = f0, take(p["gamma_il"])
+        self.inj = lanes.inj
+        if self.inj:
+            self.w, self.t0, self.amp = take(lanes.inj_w), take(t0_abs), take(lanes.inj_amp)
+            amp = self.amp * np.exp(1j * self.w * self.t0) / 2j
+            rho = row * take(p["bi"])
+            self.rho_p, self.rho_m = rho * amp[:, None], rho * np.conj(amp)[:, None]
+            self.sine = take(p["ginj"]) * self.amp if kind == "g" else np.zeros(self.amp.size)
+
+    def take(self, rows) -> _Event:
+        ev = object.__new__(_Event)
+        for nm in self.__slots__:
+            v = getattr(self, nm, None)
+            setattr(ev, nm, v[rows] if isinstance(v, np.ndarray) else v)
+        return ev
+
+    def value(self, t):
+        """``f`` at times ``t`` (lanes, m)."""
+        tt = t[:, :, None]
+        lam = self.lam[:, None, :]
+        f = self.f0[:, None] + np.matmul(np.expm1(lam * tt), self.alpha[:, :, None])[:, :, 0].real + self.gamma[:, None] * t
+        if self.inj:
+            w = self.w[:, None, None]
+            part = np.matmul(_e(lam, 1j * w, tt), self.rho_p[:, :, None]) + np.matmul(_e(lam, -1j * w, tt),
+                                                                                     self.rho_m[:, :, None])
+            f = f + part[:, :, 0].real + self.sine[:, None] * np.sin(self.w[:, None] * (self.t0[:, None] + t))
+        return f
+
+    def value_slope(self, t):
+        """``f`` and ``f'`` at one time per lane ``t`` (lanes,)."""
+        em = np.expm1(self.lam * t[:, None])
+        f = self.f0 + np.sum(em * self.alpha, axis=1).real + self.gamma * t
+        df = np.sum((em + 1.0) * self.lam_alpha, axis=1).real + self.gamma
+        if self.inj:
+            lam, tt, w = self.lam, t[:, None], self.w[:, None]
+            ep, en = _e(lam, 1j * w, tt), _e(lam, -1j * w, tt)
+            rot = np.exp(1j * w * tt)
+            f = f + np.sum(ep * self.rho_p + en * self.rho_m, axis=1).real
+            df = df + np.sum((lam * ep + rot) * self.rho_p + (lam * en + np.conj(rot)) * self.rho_m, axis=1).real
+            arg = self.w * (self.t0 + t)
+            f = f + self.sine * np.sin(arg)
+            df = df + self.sine * self.w * np.cos(arg)
+        return f, df
+
+    def curvature(self, t_hi):
+        """A bound on ``|f''|`` over ``[0, t_hi]``: ``sum_j |alpha_j| |lam_j|^2 max(1, e^{Re(lam_j) t_hi})``
+        (each term's modulus); infinite (no bound used) for a lane with an injected sine."""
+        grow = np.exp(np.maximum(self.lam.real, 0.0) * t_hi[:, None])
+        k = np.sum(np.abs(self.alpha) * np.abs(self.lam) ** 2 * grow, axis=1)
+        if self.inj:
+            k = np.where(self.amp != 0, np.inf, k)
+        return k
 
 
 class Engine:
@@ -246,74 +360,47 @@ class Engine:
         lanes.beta0 = [np.einsum("kij,kj->ki", lanes.g["inv"][:, s], self.b[c, s] + lanes.i_x[:, None] * self.b_ix[c, s])
                        for s in range(3)]
         lanes.beta_inj = [np.einsum("kij,kj->ki", lanes.g["inv"][:, s], self.g_inj[c, s]) for s in range(3)]
+        lanes.pre = [_per_state(lanes, s) for s in range(3)]
 
     # ------------------------------------------------------------------ exact solution
-    def _modal(self, lanes, s, z0, t0_abs, t):
-        """Modal state q at relative times ``t`` (lanes, m) of an interval in state ``s`` started at ``z0``."""
-        lam = lanes.g["lam"][:, s][:, None, :]
-        q0 = np.einsum("kij,kj->ki", lanes.g["inv"][:, s], z0)[:, None, :]
+    def _modal(self, lanes, s, z0, t0_abs, t, q0=None):
+        """Modal state q at relative times ``t`` (lanes, m) of an interval in state ``s`` started at ``z0``
+        (``q0``: its modal coordinates, when already known)."""
+        p = lanes.pre[s]
+        if q0 is None:
+            q0 = _apply(p["inv"], z0)
+        lam = p["lam"][:, None, :]
         tt = t[:, :, None]
         em = np.expm1(lam * tt)
-        b0 = lanes.beta0[s][:, None, :]
         # e^{lam t} q0 + b0 (e^{lam t} - 1)/lam, exact also at lam = 0 (then b0 t)
-        q = q0 + em * (q0 + b0 * lanes.g["inv_lam"][:, s][:, None, :]) + b0 * tt * lanes.g["zero_lam"][:, s][:, None, :]
+        q = q0[:, None, :] + em * (q0 + p["shift"])[:, None, :] + p["lin"][:, None, :] * tt
         if lanes.inj:
             w = lanes.inj_w[:, None, None]
             amp = (lanes.inj_amp * np.exp(1j * lanes.inj_w * t0_abs) / 2j)[:, None, None]
-            bi = lanes.beta_inj[s][:, None, :]
+            bi = p["bi"][:, None, :]
             q = q + bi * amp * _e(lam, 1j * w, tt) + bi * np.conj(amp) * _e(lam, -1j * w, tt)
         return q
-
-    def _dmodal(self, lanes, s, q, t0_abs, t):
-        lam = lanes.g["lam"][:, s][:, None, :]
-        dq = lam * q + lanes.beta0[s][:, None, :]
-        if lanes.inj:
-            w = lanes.inj_w[:, None, None]
-            amp = (lanes.inj_amp * np.exp(1j * lanes.inj_w * t0_abs) / 2j)[:, None, None]
-            bi = lanes.beta_inj[s][:, None, :]
-            tt = t[:, :, None]
-            dq = dq + bi * (amp * np.exp(1j * w * tt) + np.conj(amp) * np.exp(-1j * w * tt))
-        return dq
 
     def _inj(self, lanes, t_abs):
         return lanes.inj_amp[:, None] * np.sin(lanes.inj_w[:, None] * t_abs)
 
     def _state(self, lanes, s, q):
-        return np.einsum("kij,kmj->kmi", lanes.g["vec"][:, s], q).real
-
-    def _event_fn(self, lanes, s, kind, q, t0_abs, t, t_in_cycle):
-        """The event function (and its modal row) at ``t``: ``"g"`` the comparator, ``"il"`` the current."""
-        if kind == "il":
-            return np.einsum("kj,kmj->km", lanes.g["r_il"][:, s], q).real
-        val = np.einsum("kj,kmj->km", lanes.g["r_g"][:, s], q).real + (lanes.g["d_g"][:, s] + lanes.g["d_g_ix"][:, s] * lanes.i_x)[:, None]
-        val = val - lanes.g["slope"][:, None] * (t_in_cycle[:, None] + t)
-        if lanes.inj:
-            val = val + lanes.g["g_inj_coef"][:, None] * self._inj(lanes, t0_abs[:, None] + t)
-        return val
-
-    def _event_slope(self, lanes, s, kind, q, dq, t0_abs, t):
-        row = lanes.g["r_il"][:, s] if kind == "il" else lanes.g["r_g"][:, s]
-        val = np.einsum("kj,kmj->km", row, dq).real
-        if kind == "g":
-            val = val - lanes.g["slope"][:, None]
-            if lanes.inj:
-                val = val + (lanes.g["g_inj_coef"] * lanes.inj_amp * lanes.inj_w)[:, None] * np.cos(
-                    lanes.inj_w[:, None] * (t0_abs[:, None] + t))
-        return val
+        """The states ``V q`` (real part) at every time of ``q`` (lanes, m, n)."""
+        return np.matmul(q, lanes.pre[s]["vec_t"]).real
 
     def _interval(self, lanes, s, z0, t0_abs, t_max, kind, t_in_cycle, active):
         """End of an interval in state ``s``: the first fall of the event function to 0, or ``t_max``.
 
         Returns (duration (lanes,), state at the end (lanes, n)).
         """
+        q0 = _apply(lanes.pre[s]["inv"], z0)
         dur = t_max.copy()
         if kind is not None and np.any(active):
             sub = np.nonzero(active & (t_max > 0))[0]
             if sub.size:
-                ls = _take(lanes, sub)
-                grid = t_max[sub, None] * np.linspace(0.0, 1.0, SCAN_POINTS)[None, :]
-                q = self._modal(ls, s, z0[sub], t0_abs[sub], grid)
-                f = self._event_fn(ls, s, kind, q, t0_abs[sub], grid, t_in_cycle[sub])
+                ev = _Event(lanes, s, kind, q0, t0_abs, t_in_cycle, sub)
+                grid = t_max[sub, None] * _UNIT_GRID
+                f = ev.value(grid)
                 below = f <= 0.0
                 first = np.argmax(below, axis=1)
                 crosses = below.any(axis=1)
@@ -324,31 +411,40 @@ class Engine:
                     rows = np.nonzero(inner)[0]
                     lo = grid[rows, first[rows] - 1]
                     hi = grid[rows, first[rows]]
-                    dur[sub[rows]] = self._newton(_take(ls, rows), s, kind, z0[sub[rows]], t0_abs[sub[rows]],
-                                                  t_in_cycle[sub[rows]], lo, hi, f[rows, first[rows] - 1],
-                                                  f[rows, first[rows]])
-        q = self._modal(lanes, s, z0, t0_abs, dur[:, None])
+                    dur[sub[rows]] = self._newton(ev.take(rows), lo, hi, f[rows, first[rows] - 1], f[rows, first[rows]])
+        q = self._modal(lanes, s, z0, t0_abs, dur[:, None], q0=q0)
         return dur, self._state(lanes, s, q)[:, 0, :]
 
-    def _newton(self, ls, s, kind, z0, t0_abs, t_in_cycle, lo, hi, f_lo, f_hi):
+    def _newton(self, ev, lo, hi, f_lo, f_hi):
+        """The zero of the event ``ev`` in ``[lo, hi]`` (``f_lo > 0 >= f_hi``) to ``1e-12 Ts``.
+
+        Newton's method safeguarded by the bracket (a step that leaves it bisects, as Brent's method
+        does), started at the secant.  A lane stops when the step or the bracket is below the
+        tolerance, or when Newton's own error bound is: after a step ``d`` from ``t`` to ``t1``,
+        ``f(t1) = f''(xi) d^2 / 2`` (Taylor), and on the bracket ``|f'| >= |f'(t)| - K (hi - lo) = m``
+        with ``K >= max |f''|`` (:meth:`_Event.curvature`), so when ``m > 0`` the event function is
+        monotonic there and ``|t1 - root| <= |f(t1)| / m <= K d^2 / (2 m)`` (the quadratic convergence
+        of Newton's method, e.g. J. Stoer, R. Bulirsch, Introduction to Numerical Analysis, 3rd ed.,
+        Springer 2002, sec. 5.3, from memory); below the tolerance that saves the last evaluation.
+        """
         with np.errstate(divide="ignore", invalid="ignore"):
             t = lo + (hi - lo) * f_lo / (f_lo - f_hi)
         t = np.where(np.isfinite(t) & (t > lo) & (t < hi), t, 0.5 * (lo + hi))
         tol = 1e-12 * self.ts
+        curv = ev.curvature(hi)
         for _ in range(_NEWTON_STEPS):
-            tt = t[:, None]
-            q = self._modal(ls, s, z0, t0_abs, tt)
-            f = self._event_fn(ls, s, kind, q, t0_abs, tt, t_in_cycle)[:, 0]
-            df = self._event_slope(ls, s, kind, q, self._dmodal(ls, s, q, t0_abs, tt), t0_abs, tt)[:, 0]
+            f, df = ev.value_slope(t)
             pos = f > 0
             lo = np.where(pos, t, lo)
             hi = np.where(pos, hi, t)
-            with np.errstate(divide="ignore", invalid="ignore"):
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
                 step = np.where(df != 0, f / df, np.inf)
-            new = t - step
-            bad = ~np.isfinite(new) | (new <= lo) | (new >= hi)
-            new = np.where(bad, 0.5 * (lo + hi), new)
-            done = (np.abs(new - t) < tol) | (hi - lo < tol)
+                new = t - step
+                bad = ~np.isfinite(new) | (new <= lo) | (new >= hi)
+                new = np.where(bad, 0.5 * (lo + hi), new)
+                m = np.abs(df) - curv * (hi - lo)
+                sure = ~bad & (m > 0) & (curv * step * step < 2.0 * tol * m)
+            done = (np.abs(new - t) < tol) | (hi - lo < tol) | sure
             t = new
             if np.all(done):
                 break
@@ -454,4 +550,4 @@ def _take(lanes: Lanes, idx) -> Lanes:
         return lanes
     return Lanes(lanes.corner[idx], lanes.i_x[idx], lanes.inj_amp[idx], lanes.inj_w[idx],
                  [b[idx] for b in lanes.beta0], [b[idx] for b in lanes.beta_inj],
-                 {k: v[idx] for k, v in lanes.g.items()})
+                 {k: v[idx] for k, v in lanes.g.items()}, lanes.inj, [{k: v[idx] for k, v in p.items()} for p in lanes.pre])
