@@ -35,6 +35,7 @@ vectorised over lanes; each lane's events are its own.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -52,6 +53,8 @@ SCAN_POINTS = 8
 #: Simpson panels per switch interval for the recorded averages and Fourier integrals.
 PANELS = 8
 _NEWTON_STEPS = 60
+#: Newton stops without another evaluation when its error bound is below this part of the tolerance.
+_SURE = 1e-3
 
 
 class Cancelled(Exception):
@@ -104,6 +107,7 @@ class Lanes:
     g: dict = field(default_factory=dict)
     inj: bool = False
     pre: list = field(default_factory=list)
+    last: dict = field(default_factory=dict)
 
     def __post_init__(self):
         self.inj = bool(np.any(self.inj_amp))
@@ -261,6 +265,15 @@ class _Event:
             df = df + self.sine * self.w * np.cos(arg)
         return f, df
 
+    def value_slope_one(self, t: float) -> tuple[float, float]:
+        """:meth:`value_slope` of a single lane at the time ``t`` (s), as floats."""
+        if self.inj:
+            f, df = self.value_slope(np.array([t]))
+            return float(f[0]), float(df[0])
+        em = np.expm1(self.lam[0] * t)
+        return (float(self.f0[0] + (em @ self.alpha[0]).real + self.gamma[0] * t),
+                float(((em + 1.0) @ self.lam_alpha[0]).real + self.gamma[0]))
+
     def curvature(self, t_hi):
         """A bound on ``|f''|`` over ``[0, t_hi]``: ``sum_j |alpha_j| |lam_j|^2 max(1, e^{Re(lam_j) t_hi})``
         (each term's modulus); infinite (no bound used) for a lane with an injected sine."""
@@ -411,15 +424,20 @@ class Engine:
                     rows = np.nonzero(inner)[0]
                     lo = grid[rows, first[rows] - 1]
                     hi = grid[rows, first[rows]]
-                    dur[sub[rows]] = self._newton(ev.take(rows), lo, hi, f[rows, first[rows] - 1], f[rows, first[rows]])
+                    hint = lanes.last.get((s, kind))
+                    dur[sub[rows]] = self._newton(ev.take(rows), lo, hi, f[rows, first[rows] - 1], f[rows, first[rows]],
+                                                  None if hint is None else hint[sub[rows]])
+            lanes.last[(s, kind)] = dur.copy()
         q = self._modal(lanes, s, z0, t0_abs, dur[:, None], q0=q0)
         return dur, self._state(lanes, s, q)[:, 0, :]
 
-    def _newton(self, ev, lo, hi, f_lo, f_hi):
+    def _newton(self, ev, lo, hi, f_lo, f_hi, hint=None):
         """The zero of the event ``ev`` in ``[lo, hi]`` (``f_lo > 0 >= f_hi``) to ``1e-12 Ts``.
 
         Newton's method safeguarded by the bracket (a step that leaves it bisects, as Brent's method
-        does), started at the secant.  A lane stops when the step or the bracket is below the
+        does), started at ``hint`` (the lane's previous event: in steady operation it moves little)
+        where that lies inside the bracket, else at the secant.  The bracket comes from the scan, so
+        the hint never changes which crossing is found, only how fast.  A lane stops when the step or the bracket is below the
         tolerance, or when Newton's own error bound is: after a step ``d`` from ``t`` to ``t1``,
         ``f(t1) = f''(xi) d^2 / 2`` (Taylor), and on the bracket ``|f'| >= |f'(t)| - K (hi - lo) = m``
         with ``K >= max |f''|`` (:meth:`_Event.curvature`), so when ``m > 0`` the event function is
@@ -430,8 +448,13 @@ class Engine:
         with np.errstate(divide="ignore", invalid="ignore"):
             t = lo + (hi - lo) * f_lo / (f_lo - f_hi)
         t = np.where(np.isfinite(t) & (t > lo) & (t < hi), t, 0.5 * (lo + hi))
+        if hint is not None:
+            t = np.where((hint > lo) & (hint < hi), hint, t)
         tol = 1e-12 * self.ts
         curv = ev.curvature(hi)
+        if t.size == 1:
+            return np.array([_newton_one(ev, float(lo[0]), float(hi[0]), float(t[0]), float(curv[0]), tol)])
+        fin = np.zeros(t.size, bool)  # lanes done stay where they are while the others iterate
         for _ in range(_NEWTON_STEPS):
             f, df = ev.value_slope(t)
             pos = f > 0
@@ -443,10 +466,12 @@ class Engine:
                 bad = ~np.isfinite(new) | (new <= lo) | (new >= hi)
                 new = np.where(bad, 0.5 * (lo + hi), new)
                 m = np.abs(df) - curv * (hi - lo)
-                sure = ~bad & (m > 0) & (curv * step * step < 2.0 * tol * m)
-            done = (np.abs(new - t) < tol) | (hi - lo < tol) | sure
-            t = new
-            if np.all(done):
+                sure = ~bad & (m > 0) & (curv * step * step < 2.0 * _SURE * tol * m)
+            exact = f == 0
+            done = (np.abs(new - t) < tol) | (hi - lo < tol) | sure | exact
+            t = np.where(fin | exact, t, new)
+            fin |= done
+            if np.all(fin):
                 break
         return t
 
@@ -543,6 +568,31 @@ class Engine:
             if progress is not None and progress(k + 1, periods) is False:
                 raise Cancelled()
         return z
+
+
+def _newton_one(ev: _Event, lo: float, hi: float, t: float, curv: float, tol: float) -> float:
+    """:meth:`Engine._newton`'s iteration for a single lane, step for step, in Python floats (a lane alone
+    pays numpy's per-call cost on every scalar; this is the single-corner run's inner loop)."""
+    for _ in range(_NEWTON_STEPS):
+        f, df = ev.value_slope_one(t)
+        if f == 0:
+            break
+        if f > 0:
+            lo = t
+        else:
+            hi = t
+        step = f / df if df != 0 else math.inf
+        new = t - step
+        bad = not math.isfinite(new) or new <= lo or new >= hi
+        if bad:
+            new = 0.5 * (lo + hi)
+        m = abs(df) - curv * (hi - lo)
+        sure = not bad and m > 0 and curv * step * step < 2.0 * _SURE * tol * m
+        done = abs(new - t) < tol or hi - lo < tol or sure
+        t = new
+        if done:
+            break
+    return t
 
 
 def _take(lanes: Lanes, idx) -> Lanes:
