@@ -163,6 +163,7 @@ def _e(lam, nu, t):
 
 
 _UNIT_GRID = np.linspace(0.0, 1.0, SCAN_POINTS)[None, :]
+_ONE = np.zeros(1, int)
 
 
 def _apply(mat, z):
@@ -406,6 +407,8 @@ class Engine:
 
         Returns (duration (lanes,), state at the end (lanes, n)).
         """
+        if lanes.n == 1:
+            return self._interval_one(lanes, s, z0, t0_abs, t_max, kind, t_in_cycle, active)
         q0 = _apply(lanes.pre[s]["inv"], z0)
         dur = t_max.copy()
         if kind is not None and np.any(active):
@@ -430,6 +433,35 @@ class Engine:
             lanes.last[(s, kind)] = dur.copy()
         q = self._modal(lanes, s, z0, t0_abs, dur[:, None], q0=q0)
         return dur, self._state(lanes, s, q)[:, 0, :]
+
+    def _interval_one(self, lanes, s, z0, t0_abs, t_max, kind, t_in_cycle, active):
+        """:meth:`_interval` for a single lane, the same steps with Python scalars in the control flow (a
+        single-corner run spends its time in numpy's per-call cost, not in arithmetic)."""
+        p = lanes.pre[s]
+        q0 = p["inv"][0] @ z0[0]
+        dur = float(t_max[0])
+        if kind is not None and active[0] and dur > 0:
+            ev = _Event(lanes, s, kind, q0[None, :], t0_abs, t_in_cycle, _ONE)
+            grid = dur * _UNIT_GRID
+            f = ev.value(grid)[0].tolist()
+            j = next((i for i, v in enumerate(f) if v <= 0.0), None)
+            if j == 0:
+                dur = 0.0
+            elif j is not None:
+                lo, hi, f_lo, f_hi = float(grid[0, j - 1]), float(grid[0, j]), f[j - 1], f[j]
+                t = lo + (hi - lo) * f_lo / (f_lo - f_hi) if f_lo - f_hi > 0 else 0.5 * (lo + hi)
+                if not (math.isfinite(t) and lo < t < hi):
+                    t = 0.5 * (lo + hi)
+                hint = lanes.last.get((s, kind))
+                if hint is not None and lo < hint[0] < hi:
+                    t = float(hint[0])
+                dur = _newton_one(ev, lo, hi, t, float(ev.curvature(np.array([hi]))[0]), 1e-12 * self.ts)
+            lanes.last[(s, kind)] = np.array([dur])
+        if lanes.inj:
+            q = self._modal(lanes, s, z0, t0_abs, np.array([[dur]]), q0=q0[None, :])
+            return np.array([dur]), self._state(lanes, s, q)[:, 0, :]
+        q = q0 + np.expm1(p["lam"][0] * dur) * (q0 + p["shift"][0]) + p["lin"][0] * dur
+        return np.array([dur]), (q @ p["vec_t"][0]).real[None, :]
 
     def _newton(self, ev, lo, hi, f_lo, f_hi, hint=None):
         """The zero of the event ``ev`` in ``[lo, hi]`` (``f_lo > 0 >= f_hi``) to ``1e-12 Ts``.
