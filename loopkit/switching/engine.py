@@ -185,7 +185,8 @@ def _per_state(lanes: Lanes, s: int) -> dict:
             "lin": lin, "bi": lanes.beta_inj[s], "r_g": r_g, "r_il": r_il,
             "const_g": g["d_g"][:, s] + g["d_g_ix"][:, s] * lanes.i_x,
             "gamma_g": np.sum(r_g * lin, axis=1).real - g["slope"], "gamma_il": np.sum(r_il * lin, axis=1).real,
-            "ginj": g["g_inj_coef"], "slope": g["slope"]}
+            "ginj": g["g_inj_coef"], "slope": g["slope"], "lam2": np.abs(g["lam"][:, s]) ** 2,
+            "grows": np.any(g["lam"][:, s].real > 0, axis=1)}
 
 
 class _Event:
@@ -278,8 +279,8 @@ class _Event:
     def curvature(self, t_hi):
         """A bound on ``|f''|`` over ``[0, t_hi]``: ``sum_j |alpha_j| |lam_j|^2 max(1, e^{Re(lam_j) t_hi})``
         (each term's modulus); infinite (no bound used) for a lane with an injected sine."""
-        grow = np.exp(np.maximum(self.lam.real, 0.0) * t_hi[:, None])
-        k = np.sum(np.abs(self.alpha) * np.abs(self.lam) ** 2 * grow, axis=1)
+        k = np.sum(np.abs(self.alpha) * np.abs(self.lam) ** 2 * np.exp(np.maximum(self.lam.real, 0.0) * t_hi[:, None]),
+                   axis=1)
         if self.inj:
             k = np.where(self.amp != 0, np.inf, k)
         return k
@@ -441,21 +442,27 @@ class Engine:
         q0 = p["inv"][0] @ z0[0]
         dur = float(t_max[0])
         if kind is not None and active[0] and dur > 0:
-            ev = _Event(lanes, s, kind, q0[None, :], t0_abs, t_in_cycle, _ONE)
-            grid = dur * _UNIT_GRID
-            f = ev.value(grid)[0].tolist()
+            if lanes.inj:
+                ev = _Event(lanes, s, kind, q0[None, :], t0_abs, t_in_cycle, _ONE)
+                grid = dur * _UNIT_GRID[0]
+                f = ev.value(grid[None, :])[0].tolist()
+            else:
+                ev = _EventOne(p, kind, q0, float(t_in_cycle[0]))
+                grid = dur * _UNIT_GRID[0]
+                f = ev.value(grid)
             j = next((i for i, v in enumerate(f) if v <= 0.0), None)
             if j == 0:
                 dur = 0.0
             elif j is not None:
-                lo, hi, f_lo, f_hi = float(grid[0, j - 1]), float(grid[0, j]), f[j - 1], f[j]
+                lo, hi, f_lo, f_hi = float(grid[j - 1]), float(grid[j]), f[j - 1], f[j]
                 t = lo + (hi - lo) * f_lo / (f_lo - f_hi) if f_lo - f_hi > 0 else 0.5 * (lo + hi)
                 if not (math.isfinite(t) and lo < t < hi):
                     t = 0.5 * (lo + hi)
                 hint = lanes.last.get((s, kind))
                 if hint is not None and lo < hint[0] < hi:
                     t = float(hint[0])
-                dur = _newton_one(ev, lo, hi, t, float(ev.curvature(np.array([hi]))[0]), 1e-12 * self.ts)
+                curv = float(ev.curvature(np.array([hi]))[0]) if lanes.inj else ev.curvature_one(hi)
+                dur = _newton_one(ev, lo, hi, t, curv, 1e-12 * self.ts)
             lanes.last[(s, kind)] = np.array([dur])
         if lanes.inj:
             q = self._modal(lanes, s, z0, t0_abs, np.array([[dur]]), q0=q0[None, :])
@@ -495,7 +502,8 @@ class Engine:
             with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
                 step = np.where(df != 0, f / df, np.inf)
                 new = t - step
-                bad = ~np.isfinite(new) | (new <= lo) | (new >= hi)
+                # a step below the tolerance is taken even onto the bracket's end (the root is within it)
+                bad = ~np.isfinite(new) | (((new <= lo) | (new >= hi)) & ~(np.abs(step) < tol))
                 new = np.where(bad, 0.5 * (lo + hi), new)
                 m = np.abs(df) - curv * (hi - lo)
                 sure = ~bad & (m > 0) & (curv * step * step < 2.0 * _SURE * tol * m)
@@ -602,7 +610,42 @@ class Engine:
         return z
 
 
-def _newton_one(ev: _Event, lo: float, hi: float, t: float, curv: float, tol: float) -> float:
+class _EventOne:
+    """:class:`_Event` of a single lane without an injected sine, on 1-D arrays and floats."""
+
+    __slots__ = ("alpha", "f0", "gamma", "lam", "lam_alpha", "size")
+
+    def __init__(self, p, kind, q0, t_in_cycle):
+        row = p["r_g"][0] if kind == "g" else p["r_il"][0]
+        self.lam = p["lam"][0]
+        self.alpha = row * (q0 + p["shift"][0])
+        self.lam_alpha = self.lam * self.alpha
+        f0 = float((row @ q0).real)
+        if kind == "g":
+            self.f0 = f0 + float(p["const_g"][0]) - float(p["slope"][0]) * t_in_cycle
+            self.gamma = float(p["gamma_g"][0])
+        else:
+            self.f0, self.gamma = f0, float(p["gamma_il"][0])
+        # |f''| <= sum_j |alpha_j| |lam_j|^2 on [0, t] when no mode grows (else :meth:`_Event.curvature`)
+        self.size = None if p["grows"][0] else float(np.abs(self.alpha) @ p["lam2"][0])
+
+    def value(self, t):
+        """``f`` at the times ``t`` (m,), as a list."""
+        return ((np.expm1(np.multiply.outer(t, self.lam)) @ self.alpha).real + (self.f0 + self.gamma * t)).tolist()
+
+    def value_slope_one(self, t: float) -> tuple[float, float]:
+        em = np.expm1(self.lam * t)
+        return (self.f0 + float((em @ self.alpha).real) + self.gamma * t,
+                float(((em + 1.0) @ self.lam_alpha).real) + self.gamma)
+
+    def curvature_one(self, t_hi: float) -> float:
+        if self.size is not None:
+            return self.size
+        grow = np.exp(np.maximum(self.lam.real, 0.0) * t_hi)
+        return float(np.abs(self.alpha) @ (np.abs(self.lam) ** 2 * grow))
+
+
+def _newton_one(ev: _Event | _EventOne, lo: float, hi: float, t: float, curv: float, tol: float) -> float:
     """:meth:`Engine._newton`'s iteration for a single lane, step for step, in Python floats (a lane alone
     pays numpy's per-call cost on every scalar; this is the single-corner run's inner loop)."""
     for _ in range(_NEWTON_STEPS):
@@ -615,7 +658,7 @@ def _newton_one(ev: _Event, lo: float, hi: float, t: float, curv: float, tol: fl
             hi = t
         step = f / df if df != 0 else math.inf
         new = t - step
-        bad = not math.isfinite(new) or new <= lo or new >= hi
+        bad = not math.isfinite(new) or ((new <= lo or new >= hi) and not abs(step) < tol)
         if bad:
             new = 0.5 * (lo + hi)
         m = abs(df) - curv * (hi - lo)
