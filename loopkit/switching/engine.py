@@ -167,6 +167,23 @@ def _e(lam, nu, t):
     return np.where(near, a, b)
 
 
+def _e_pair(lam, w, t):
+    """``_e(lam, jw, t)``, ``_e(lam, -jw, t)`` and ``e^{jwt}`` (broadcast; ``w``, ``t`` real): the same two forms
+    as :func:`_e`, with ``e^{lam t}`` and ``e^{jwt}`` computed once for both."""
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        elt = np.exp(lam * t)
+        rot = np.exp(1j * (w * t))
+        out = []
+        for e_nu, nu in ((rot, 1j * w), (np.conj(rot), -1j * w)):
+            d = nu - lam
+            x = d * t
+            near = np.abs(x) < 0.5
+            a = elt * t * _phi1(np.where(near, x, 0.0))
+            b = (e_nu - elt) / np.where(near, 1.0, d)
+            out.append(np.where(near, a, b))
+    return out[0], out[1], rot
+
+
 _UNIT_GRID = np.linspace(0.0, 1.0, SCAN_POINTS)[None, :]
 _ONE = np.zeros(1, int)
 
@@ -253,8 +270,8 @@ class _Event:
         f = self.f0[:, None] + np.matmul(np.expm1(lam * tt), self.alpha[:, :, None])[:, :, 0].real + self.gamma[:, None] * t
         if self.inj:
             w = self.w[:, None, None]
-            part = np.matmul(_e(lam, 1j * w, tt), self.rho_p[:, :, None]) + np.matmul(_e(lam, -1j * w, tt),
-                                                                                     self.rho_m[:, :, None])
+            ep, en, _ = _e_pair(lam, w, tt)
+            part = np.matmul(ep, self.rho_p[:, :, None]) + np.matmul(en, self.rho_m[:, :, None])
             f = f + part[:, :, 0].real + self.sine[:, None] * np.sin(self.w[:, None] * (self.t0[:, None] + t))
         return f
 
@@ -265,8 +282,7 @@ class _Event:
         df = np.sum((em + 1.0) * self.lam_alpha, axis=1).real + self.gamma
         if self.inj:
             lam, tt, w = self.lam, t[:, None], self.w[:, None]
-            ep, en = _e(lam, 1j * w, tt), _e(lam, -1j * w, tt)
-            rot = np.exp(1j * w * tt)
+            ep, en, rot = _e_pair(lam, w, tt)
             f = f + np.sum(ep * self.rho_p + en * self.rho_m, axis=1).real
             df = df + np.sum((lam * ep + rot) * self.rho_p + (lam * en + np.conj(rot)) * self.rho_m, axis=1).real
             arg = self.w * (self.t0 + t)
@@ -400,7 +416,8 @@ class Engine:
             w = lanes.inj_w[:, None, None]
             amp = (lanes.inj_amp * np.exp(1j * lanes.inj_w * t0_abs) / 2j)[:, None, None]
             bi = p["bi"][:, None, :]
-            q = q + bi * amp * _e(lam, 1j * w, tt) + bi * np.conj(amp) * _e(lam, -1j * w, tt)
+            ep, en, _ = _e_pair(lam, w, tt)
+            q = q + bi * amp * ep + bi * np.conj(amp) * en
         return q
 
     def _inj(self, lanes, t_abs):
