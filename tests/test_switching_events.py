@@ -119,3 +119,26 @@ def test_event_instants_match_brentq(name, s, kind, inject):
     assert np.sum(inner) >= DRAWS // 4  # most draws do cross inside the interval: the check is not vacuous
     for nm, got in zip(("together", "alone", "warm", "wild", "wild_alone"), (together, alone, warm, wild, wild_alone)):
         assert np.all(np.abs(got - ref) <= TOL_TS * ts + slack), nm
+
+
+@pytest.mark.parametrize("name", ["buck_24v_3v3", "boost_pcm_12v_24v", "buck_diode_12v_5v"])
+def test_single_lane_run_is_period_by_period(name):
+    """``Engine.run`` of a lane alone takes a scalar shortcut past ``Engine.period``; it must give the same
+    numbers bit for bit, in CCM and DCM corners (the samples have both), through a load step."""
+    setup, _ = _setup(name)
+    eng = setup.engine
+    for k in range(setup.n_corners):
+        fast_lanes, slow_lanes = eng.lanes([k]), eng.lanes([k])
+        fast = eng.run(fast_lanes, setup.z0[[k]].copy(), 30)
+        slow = setup.z0[[k]].copy()
+        for j in range(30):
+            slow = eng.period(slow_lanes, slow, np.full(1, j * eng.ts))
+        np.testing.assert_array_equal(fast, slow)
+        step = 0.3 * setup.stage.load[k]
+        eng.set_load(fast_lanes, step)
+        eng.set_load(slow_lanes, step)
+        fast = eng.run(fast_lanes, fast, 20, first_period=30)
+        for j in range(20):
+            slow = eng.period(slow_lanes, slow, np.full(1, (30 + j) * eng.ts))
+        np.testing.assert_array_equal(fast, slow)
+        assert fast_lanes.last.keys() == slow_lanes.last.keys()

@@ -460,19 +460,24 @@ class Engine:
         return dur, self._state(lanes, s, q)[:, 0, :]
 
     def _interval_one(self, lanes, s, z0, t0_abs, t_max, kind, t_in_cycle, active):
-        """:meth:`_interval` for a single lane, the same steps with Python scalars in the control flow (a
-        single-corner run spends its time in numpy's per-call cost, not in arithmetic)."""
+        """:meth:`_interval` for a single lane (arrays of one), by :meth:`_scalar_interval`."""
+        dur, z1 = self._scalar_interval(lanes, s, z0[0], float(t0_abs[0]), float(t_max[0]), kind,
+                                        float(t_in_cycle[0]), bool(active[0]))
+        return np.array([dur]), z1[None, :]
+
+    def _scalar_interval(self, lanes, s, z0, t0_abs, dur, kind, t_in_cycle, active):
+        """:meth:`_interval` of a single lane with Python scalars in the control flow (a single-corner run
+        spends its time in numpy's per-call cost, not in arithmetic): state (n,) and floats in, the
+        duration and the end state (n,) out."""
         p = lanes.pre[s]
-        q0 = p["inv"][0] @ z0[0]
-        dur = float(t_max[0])
-        if kind is not None and active[0] and dur > 0:
+        q0 = p["inv"][0] @ z0
+        if kind is not None and active and dur > 0:
+            grid = dur * _UNIT_GRID[0]
             if lanes.inj:
-                ev = _Event(lanes, s, kind, q0[None, :], t0_abs, t_in_cycle, _ONE)
-                grid = dur * _UNIT_GRID[0]
+                ev = _Event(lanes, s, kind, q0[None, :], np.array([t0_abs]), np.array([t_in_cycle]), _ONE)
                 f = ev.value(grid[None, :])[0].tolist()
             else:
-                ev = _EventOne(p, kind, q0, float(t_in_cycle[0]))
-                grid = dur * _UNIT_GRID[0]
+                ev = _EventOne(p, kind, q0, t_in_cycle)
                 f = ev.value(grid)
             j = next((i for i, v in enumerate(f) if v <= 0.0), None)
             if j == 0:
@@ -489,10 +494,26 @@ class Engine:
                 dur = _newton_one(ev, lo, hi, t, curv, 1e-12 * self.ts)
             lanes.last[(s, kind)] = np.array([dur])
         if lanes.inj:
-            q = self._modal(lanes, s, z0, t0_abs, np.array([[dur]]), q0=q0[None, :])
-            return np.array([dur]), self._state(lanes, s, q)[:, 0, :]
+            q = self._modal(lanes, s, z0[None, :], np.array([t0_abs]), np.array([[dur]]), q0=q0[None, :])
+            return dur, self._state(lanes, s, q)[0, 0, :]
         q = q0 + np.expm1(p["lam"][0] * dur) * (q0 + p["shift"][0]) + p["lin"][0] * dur
-        return np.array([dur]), (q @ p["vec_t"][0]).real[None, :]
+        return dur, (q @ p["vec_t"][0]).real
+
+    def _period_one(self, lanes: Lanes, z: np.ndarray, t0_abs: np.ndarray) -> np.ndarray:
+        """:meth:`period` of a single lane without a record: the same intervals and decisions on scalars, so
+        the same numbers (``tests/test_switching_events.py`` checks it against :meth:`period`, bit for bit;
+        keep the two alike).  ``period``'s own bookkeeping, over arrays of one, was a third of a
+        single-corner run."""
+        ts, t0 = self.ts, float(t0_abs[0])
+        d_on, z1 = self._scalar_interval(lanes, ON, z[0], t0, self.law.max_duty * ts, "g", 0.0, True)
+        dcm = bool(self.dcm_capable[lanes.corner[0]])
+        positive = bool(z1[0] > 0)
+        t_off_max = 0.0 if dcm and not positive else ts - d_on
+        d_off, z2 = self._scalar_interval(lanes, OFF, z1, t0 + d_on, t_off_max, "il", d_on, dcm and positive)
+        if dcm and d_on + d_off < ts * (1 - 1e-12):
+            z2[0] = 0.0
+            _, z2 = self._scalar_interval(lanes, IDLE, z2, t0 + d_on + d_off, ts - d_on - d_off, None, 0.0, False)
+        return z2[None, :]
 
     def _newton(self, ev, lo, hi, f_lo, f_hi, hint=None):
         """The zero of the event ``ev`` in ``[lo, hi]`` (``f_lo > 0 >= f_hi``) to ``1e-12 Ts``.
@@ -626,9 +647,10 @@ class Engine:
     def run(self, lanes: Lanes, z: np.ndarray, periods: int, first_period: int = 0, record: Record | None = None,
             waveform: bool = False, progress=None) -> np.ndarray:
         """Advance ``periods`` switching periods; ``progress(done, total)`` returning False cancels."""
+        alone = lanes.n == 1 and record is None
         for k in range(int(periods)):
             t0 = np.full(lanes.n, (first_period + k) * self.ts)
-            z = self.period(lanes, z, t0, record, waveform)
+            z = self._period_one(lanes, z, t0) if alone else self.period(lanes, z, t0, record, waveform)
             if progress is not None and progress(k + 1, periods) is False:
                 raise Cancelled()
         return z
