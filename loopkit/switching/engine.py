@@ -521,13 +521,15 @@ class Engine:
         Newton's method safeguarded by the bracket (a step that leaves it bisects, as Brent's method
         does), started at ``hint`` (the lane's previous event: in steady operation it moves little)
         where that lies inside the bracket, else at the secant.  The bracket comes from the scan, so
-        the hint never changes which crossing is found, only how fast.  A lane stops when the step or the bracket is below the
-        tolerance, or when Newton's own error bound is: after a step ``d`` from ``t`` to ``t1``,
+        the hint never changes which crossing is found, only how fast.  A lane stops when the step
+        (taken even onto the bracket's end) or the bracket is below the tolerance, or when Newton's
+        own error bound is below ``_SURE`` of it: after a step ``d`` from ``t`` to ``t1``,
         ``f(t1) = f''(xi) d^2 / 2`` (Taylor), and on the bracket ``|f'| >= |f'(t)| - K (hi - lo) = m``
         with ``K >= max |f''|`` (:meth:`_Event.curvature`), so when ``m > 0`` the event function is
         monotonic there and ``|t1 - root| <= |f(t1)| / m <= K d^2 / (2 m)`` (the quadratic convergence
         of Newton's method, e.g. J. Stoer, R. Bulirsch, Introduction to Numerical Analysis, 3rd ed.,
-        Springer 2002, sec. 5.3, from memory); below the tolerance that saves the last evaluation.
+        Springer 2002, sec. 5.3, from memory); that saves the last evaluation.  Lanes done stay put
+        while the others iterate.  A single lane runs :func:`_newton_one`, the same steps on floats.
         """
         with np.errstate(divide="ignore", invalid="ignore"):
             t = lo + (hi - lo) * f_lo / (f_lo - f_hi)
