@@ -27,7 +27,7 @@ solution on a grid, then a bracketed Newton iteration on the exact solution (eac
 Newton step that leaves the bracket falls back to bisection, as Brent's method does),
 to 1e-12 Ts.  For speed (a single corner's run is per-call overhead, not arithmetic):
 the event function is put once per interval in a closed form with one exponential per
-mode (``_Event``); Newton starts at the lane's previous instant when that lies in the
+mode (``events.EventFunction``); Newton starts at the lane's previous instant when that lies in the
 scan's bracket (the bracket, not the start, decides which crossing is found) and stops
 on its own error bound; a lane alone runs the iteration in Python floats.
 ``tests/test_switching.py`` and ``tests/test_switching_events.py`` check the instants
@@ -47,6 +47,7 @@ import numpy as np
 
 from ..errors import DesignError
 from .circuit import IDLE, OFF, ON, PlantCircuit
+from .events import SURE, EventFunction, LaneEvent, e_pair, newton_one, phi1
 
 _GATHERED = ("lam", "inv", "inv_lam", "zero_lam", "vec", "r_g", "r_il", "d_g", "d_g_ix", "c_vo", "d_vo",
              "d_vo_ix", "g_inj_coef")
@@ -58,8 +59,6 @@ SCAN_POINTS = 8
 #: Simpson panels per switch interval for the recorded averages and Fourier integrals.
 PANELS = 8
 _NEWTON_STEPS = 60
-#: Newton stops without another evaluation when its error bound is below this part of the tolerance.
-_SURE = 1e-3
 
 
 class Cancelled(Exception):
@@ -149,39 +148,16 @@ class Record:
         return out
 
 
-def _phi1(x):
-    small = np.abs(x) < 1e-5
-    safe = np.where(small, 1.0, x)
-    return np.where(small, 1.0 + x / 2.0 + x * x / 6.0, np.expm1(safe) / safe)
-
-
 def _e(lam, nu, t):
     """``int_0^t e^{lam (t-u)} e^{nu u} du`` (broadcast), without cancellation or overflow."""
     d = nu - lam
     x = d * t
     near = np.abs(x) < 0.5
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        a = np.exp(np.where(near, lam * t, 0.0)) * t * _phi1(np.where(near, x, 0.0))
+        a = np.exp(np.where(near, lam * t, 0.0)) * t * phi1(np.where(near, x, 0.0))
         safe_d = np.where(near, 1.0, d)
         b = (np.exp(nu * t) - np.exp(lam * t)) / safe_d
     return np.where(near, a, b)
-
-
-def _e_pair(lam, w, t):
-    """``_e(lam, jw, t)``, ``_e(lam, -jw, t)`` and ``e^{jwt}`` (broadcast; ``w``, ``t`` real): the same two forms
-    as :func:`_e`, with ``e^{lam t}`` and ``e^{jwt}`` computed once for both."""
-    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        elt = np.exp(lam * t)
-        rot = np.exp(1j * (w * t))
-        out = []
-        for e_nu, nu in ((rot, 1j * w), (np.conj(rot), -1j * w)):
-            d = nu - lam
-            x = d * t
-            near = np.abs(x) < 0.5
-            a = elt * t * _phi1(np.where(near, x, 0.0))
-            b = (e_nu - elt) / np.where(near, 1.0, d)
-            out.append(np.where(near, a, b))
-    return out[0], out[1], rot
 
 
 _UNIT_GRID = np.linspace(0.0, 1.0, SCAN_POINTS)[None, :]
@@ -209,104 +185,6 @@ def _per_state(lanes: Lanes, s: int) -> dict:
             "gamma_g": np.sum(r_g * lin, axis=1).real - g["slope"], "gamma_il": np.sum(r_il * lin, axis=1).real,
             "ginj": g["g_inj_coef"], "slope": g["slope"], "lam2": np.abs(g["lam"][:, s]) ** 2,
             "grows": np.any(g["lam"][:, s].real > 0, axis=1)}
-
-
-class _Event:
-    """One interval's event function for some lanes, in closed form on the exact modal solution.
-
-    With ``q(t) = q0 + expm1(lam t) (q0 + b0/lam) + b0 t [lam = 0]`` (+ the injected terms) and the
-    event row ``r`` (comparator or inductor current), ``f(t) = r q(t) + const - slope (t_in_cycle + t)``
-    is regrouped once per interval into::
-
-        f(t)  = f0 + Re(sum_j alpha_j expm1(lam_j t)) + gamma t     alpha = r (q0 + b0/lam)
-        f'(t) = Re(sum_j lam_j alpha_j e^{lam_j t}) + gamma
-
-    (the same sums as ``r q(t)``, so no new cancellation), and with the injected sine
-    ``+ Re(sum_j rho_j (a E(lam_j, jw, t) + a* E(lam_j, -jw, t)))`` and its derivative
-    ``dE/dt = lam E + e^{nu t}``, plus the comparator's own share of the sine.
-    """
-
-    __slots__ = ("alpha", "amp", "f0", "gamma", "inj", "lam", "lam_alpha", "rho_m", "rho_p", "sine", "t0", "w")
-
-    def __init__(self, lanes, s, kind, q0, t0_abs, t_in_cycle, sub):
-        p = lanes.pre[s]
-        full = sub.size == lanes.n
-
-        def take(a):
-            return a if full else a[sub]
-
-        row = take(p["r_g"] if kind == "g" else p["r_il"])
-        q0 = take(q0)
-        self.lam = take(p["lam"])
-        self.alpha = row * (q0 + take(p["shift"]))
-        self.lam_alpha = self.lam * self.alpha
-        f0 = np.sum(row * q0, axis=1).real
-        if kind == "g":
-            self.f0 = f0 + take(p["const_g"]) - take(p["slope"]) * take(t_in_cycle)
-            self.gamma = take(p["gamma_g"])
-        else:
-            self.f0, self.gamma = f0, take(p["gamma_il"])
-        self.inj = lanes.inj
-        if self.inj:
-            self.w, self.t0, self.amp = take(lanes.inj_w), take(t0_abs), take(lanes.inj_amp)
-            amp = self.amp * np.exp(1j * self.w * self.t0) / 2j
-            rho = row * take(p["bi"])
-            self.rho_p, self.rho_m = rho * amp[:, None], rho * np.conj(amp)[:, None]
-            self.sine = take(p["ginj"]) * self.amp if kind == "g" else np.zeros(self.amp.size)
-
-    def take(self, rows) -> _Event:
-        if rows.size == self.f0.size:  # every lane, in order (np.nonzero gives sorted indices)
-            return self
-        ev = object.__new__(_Event)
-        for nm in self.__slots__:
-            v = getattr(self, nm, None)
-            setattr(ev, nm, v[rows] if isinstance(v, np.ndarray) else v)
-        return ev
-
-    def value(self, t):
-        """``f`` at times ``t`` (lanes, m)."""
-        tt = t[:, :, None]
-        lam = self.lam[:, None, :]
-        f = self.f0[:, None] + np.matmul(np.expm1(lam * tt), self.alpha[:, :, None])[:, :, 0].real + self.gamma[:, None] * t
-        if self.inj:
-            w = self.w[:, None, None]
-            ep, en, _ = _e_pair(lam, w, tt)
-            part = np.matmul(ep, self.rho_p[:, :, None]) + np.matmul(en, self.rho_m[:, :, None])
-            f = f + part[:, :, 0].real + self.sine[:, None] * np.sin(self.w[:, None] * (self.t0[:, None] + t))
-        return f
-
-    def value_slope(self, t):
-        """``f`` and ``f'`` at one time per lane ``t`` (lanes,)."""
-        em = np.expm1(self.lam * t[:, None])
-        f = self.f0 + np.sum(em * self.alpha, axis=1).real + self.gamma * t
-        df = np.sum((em + 1.0) * self.lam_alpha, axis=1).real + self.gamma
-        if self.inj:
-            lam, tt, w = self.lam, t[:, None], self.w[:, None]
-            ep, en, rot = _e_pair(lam, w, tt)
-            f = f + np.sum(ep * self.rho_p + en * self.rho_m, axis=1).real
-            df = df + np.sum((lam * ep + rot) * self.rho_p + (lam * en + np.conj(rot)) * self.rho_m, axis=1).real
-            arg = self.w * (self.t0 + t)
-            f = f + self.sine * np.sin(arg)
-            df = df + self.sine * self.w * np.cos(arg)
-        return f, df
-
-    def value_slope_one(self, t: float) -> tuple[float, float]:
-        """:meth:`value_slope` of a single lane at the time ``t`` (s), as floats."""
-        if self.inj:
-            f, df = self.value_slope(np.array([t]))
-            return float(f[0]), float(df[0])
-        em = np.expm1(self.lam[0] * t)
-        return (float(self.f0[0] + (em @ self.alpha[0]).real + self.gamma[0] * t),
-                float(((em + 1.0) @ self.lam_alpha[0]).real + self.gamma[0]))
-
-    def curvature(self, t_hi):
-        """A bound on ``|f''|`` over ``[0, t_hi]``: ``sum_j |alpha_j| |lam_j|^2 max(1, e^{Re(lam_j) t_hi})``
-        (each term's modulus); infinite (no bound used) for a lane with an injected sine."""
-        k = np.sum(np.abs(self.alpha) * np.abs(self.lam) ** 2 * np.exp(np.maximum(self.lam.real, 0.0) * t_hi[:, None]),
-                   axis=1)
-        if self.inj:
-            k = np.where(self.amp != 0, np.inf, k)
-        return k
 
 
 class Engine:
@@ -416,7 +294,7 @@ class Engine:
             w = lanes.inj_w[:, None, None]
             amp = (lanes.inj_amp * np.exp(1j * lanes.inj_w * t0_abs) / 2j)[:, None, None]
             bi = p["bi"][:, None, :]
-            ep, en, _ = _e_pair(lam, w, tt)
+            ep, en, _ = e_pair(lam, w, tt)
             q = q + bi * amp * ep + bi * np.conj(amp) * en
         return q
 
@@ -439,7 +317,7 @@ class Engine:
         if kind is not None and np.any(active):
             sub = np.nonzero(active & (t_max > 0))[0]
             if sub.size:
-                ev = _Event(lanes, s, kind, q0, t0_abs, t_in_cycle, sub)
+                ev = EventFunction(lanes, s, kind, q0, t0_abs, t_in_cycle, sub)
                 grid = t_max[sub, None] * _UNIT_GRID
                 f = ev.value(grid)
                 below = f <= 0.0
@@ -474,10 +352,10 @@ class Engine:
         if kind is not None and active and dur > 0:
             grid = dur * _UNIT_GRID[0]
             if lanes.inj:
-                ev = _Event(lanes, s, kind, q0[None, :], np.array([t0_abs]), np.array([t_in_cycle]), _ONE)
+                ev = EventFunction(lanes, s, kind, q0[None, :], np.array([t0_abs]), np.array([t_in_cycle]), _ONE)
                 f = ev.value(grid[None, :])[0].tolist()
             else:
-                ev = _EventOne(p, kind, q0, t_in_cycle)
+                ev = LaneEvent(p, kind, q0, t_in_cycle)
                 f = ev.value(grid)
             j = next((i for i, v in enumerate(f) if v <= 0.0), None)
             if j == 0:
@@ -491,7 +369,7 @@ class Engine:
                 if hint is not None and lo < hint[0] < hi:
                     t = float(hint[0])
                 curv = float(ev.curvature(np.array([hi]))[0]) if lanes.inj else ev.curvature_one(hi)
-                dur = _newton_one(ev, lo, hi, t, curv, 1e-12 * self.ts)
+                dur = newton_one(ev, lo, hi, t, curv, 1e-12 * self.ts, _NEWTON_STEPS)
             lanes.last[(s, kind)] = np.array([dur])
         if lanes.inj:
             q = self._modal(lanes, s, z0[None, :], np.array([t0_abs]), np.array([[dur]]), q0=q0[None, :])
@@ -523,13 +401,13 @@ class Engine:
         where that lies inside the bracket, else at the secant.  The bracket comes from the scan, so
         the hint never changes which crossing is found, only how fast.  A lane stops when the step
         (taken even onto the bracket's end) or the bracket is below the tolerance, or when Newton's
-        own error bound is below ``_SURE`` of it: after a step ``d`` from ``t`` to ``t1``,
+        own error bound is below ``SURE`` of it: after a step ``d`` from ``t`` to ``t1``,
         ``f(t1) = f''(xi) d^2 / 2`` (Taylor), and on the bracket ``|f'| >= |f'(t)| - K (hi - lo) = m``
-        with ``K >= max |f''|`` (:meth:`_Event.curvature`), so when ``m > 0`` the event function is
+        with ``K >= max |f''|`` (:meth:`EventFunction.curvature`), so when ``m > 0`` the event function is
         monotonic there and ``|t1 - root| <= |f(t1)| / m <= K d^2 / (2 m)`` (the quadratic convergence
         of Newton's method, e.g. J. Stoer, R. Bulirsch, Introduction to Numerical Analysis, 3rd ed.,
         Springer 2002, sec. 5.3, from memory); that saves the last evaluation.  Lanes done stay put
-        while the others iterate.  A single lane runs :func:`_newton_one`, the same steps on floats.
+        while the others iterate.  A single lane runs :func:`newton_one`, the same steps on floats.
         """
         with np.errstate(divide="ignore", invalid="ignore"):
             t = lo + (hi - lo) * f_lo / (f_lo - f_hi)
@@ -539,7 +417,7 @@ class Engine:
         tol = 1e-12 * self.ts
         curv = ev.curvature(hi)
         if t.size == 1:
-            return np.array([_newton_one(ev, float(lo[0]), float(hi[0]), float(t[0]), float(curv[0]), tol)])
+            return np.array([newton_one(ev, float(lo[0]), float(hi[0]), float(t[0]), float(curv[0]), tol, _NEWTON_STEPS)])
         fin = np.zeros(t.size, bool)  # lanes done stay where they are while the others iterate
         for _ in range(_NEWTON_STEPS):
             f, df = ev.value_slope(t)
@@ -553,7 +431,7 @@ class Engine:
                 bad = ~np.isfinite(new) | (((new <= lo) | (new >= hi)) & ~(np.abs(step) < tol))
                 new = np.where(bad, 0.5 * (lo + hi), new)
                 m = np.abs(df) - curv * (hi - lo)
-                sure = ~bad & (m > 0) & (curv * step * step < 2.0 * _SURE * tol * m)
+                sure = ~bad & (m > 0) & (curv * step * step < 2.0 * SURE * tol * m)
             exact = f == 0
             done = (np.abs(new - t) < tol) | (hi - lo < tol) | sure | exact
             t = np.where(fin | exact, t, new)
@@ -656,66 +534,6 @@ class Engine:
             if progress is not None and progress(k + 1, periods) is False:
                 raise Cancelled()
         return z
-
-
-class _EventOne:
-    """:class:`_Event` of a single lane without an injected sine, on 1-D arrays and floats."""
-
-    __slots__ = ("alpha", "f0", "gamma", "lam", "lam_alpha", "size")
-
-    def __init__(self, p, kind, q0, t_in_cycle):
-        row = p["r_g"][0] if kind == "g" else p["r_il"][0]
-        self.lam = p["lam"][0]
-        self.alpha = row * (q0 + p["shift"][0])
-        self.lam_alpha = self.lam * self.alpha
-        f0 = float((row @ q0).real)
-        if kind == "g":
-            self.f0 = f0 + float(p["const_g"][0]) - float(p["slope"][0]) * t_in_cycle
-            self.gamma = float(p["gamma_g"][0])
-        else:
-            self.f0, self.gamma = f0, float(p["gamma_il"][0])
-        # |f''| <= sum_j |alpha_j| |lam_j|^2 on [0, t] when no mode grows (else :meth:`_Event.curvature`)
-        self.size = None if p["grows"][0] else float(np.abs(self.alpha) @ p["lam2"][0])
-
-    def value(self, t):
-        """``f`` at the times ``t`` (m,), as a list."""
-        return ((np.expm1(np.multiply.outer(t, self.lam)) @ self.alpha).real + (self.f0 + self.gamma * t)).tolist()
-
-    def value_slope_one(self, t: float) -> tuple[float, float]:
-        em = np.expm1(self.lam * t)
-        return (self.f0 + float((em @ self.alpha).real) + self.gamma * t,
-                float(((em + 1.0) @ self.lam_alpha).real) + self.gamma)
-
-    def curvature_one(self, t_hi: float) -> float:
-        if self.size is not None:
-            return self.size
-        grow = np.exp(np.maximum(self.lam.real, 0.0) * t_hi)
-        return float(np.abs(self.alpha) @ (np.abs(self.lam) ** 2 * grow))
-
-
-def _newton_one(ev: _Event | _EventOne, lo: float, hi: float, t: float, curv: float, tol: float) -> float:
-    """:meth:`Engine._newton`'s iteration for a single lane, step for step, in Python floats (a lane alone
-    pays numpy's per-call cost on every scalar; this is the single-corner run's inner loop)."""
-    for _ in range(_NEWTON_STEPS):
-        f, df = ev.value_slope_one(t)
-        if f == 0:
-            break
-        if f > 0:
-            lo = t
-        else:
-            hi = t
-        step = f / df if df != 0 else math.inf
-        new = t - step
-        bad = not math.isfinite(new) or ((new <= lo or new >= hi) and not abs(step) < tol)
-        if bad:
-            new = 0.5 * (lo + hi)
-        m = abs(df) - curv * (hi - lo)
-        sure = not bad and m > 0 and curv * step * step < 2.0 * _SURE * tol * m
-        done = abs(new - t) < tol or hi - lo < tol or sure
-        t = new
-        if done:
-            break
-    return t
 
 
 def _take(lanes: Lanes, idx) -> Lanes:
