@@ -3,14 +3,18 @@
 The engine finds each switching instant (the comparator ending the on-time, the rectifier current
 reaching zero in DCM) by a scan of the event function and a bracketed Newton iteration on its closed
 form, warm-started at the lane's previous instant, stopped by Newton's own error bound, and run in
-Python floats for a lane alone (``loopkit/switching/engine.py``).  Every one of those shortcuts must
-leave the instant where it was.  Reference, per random state: the event function evaluated from the
-engine's modal solution ``Engine._modal`` (which tests/test_switching.py checks against
-``scipy.linalg.expm``), its first sign change on a grid of 4001 points, and ``scipy.optimize.brentq``
-there (R. P. Brent, Algorithms for Minimization without Derivatives, Prentice-Hall 1973, ch. 4) to
-scipy's smallest tolerance.  The engine's instants (all lanes together, each lane alone, and with
-arbitrary previous instants as warm starts) must agree with it to 1e-12 Ts, the engine's stated
-tolerance; intervals without a crossing must end at their limit in both.
+Python floats for a lane alone (``loopkit/switching/engine.py``, ``events.py``).  Every one of those
+shortcuts must leave the instant where it was.  Reference, per random state: the event function
+evaluated from the engine's modal solution ``Engine._modal`` (which tests/test_switching.py checks
+against ``scipy.linalg.expm``), its first sign change on a grid of 4001 points, and
+``scipy.optimize.brentq`` there (R. P. Brent, Algorithms for Minimization without Derivatives,
+Prentice-Hall 1973, ch. 4) to scipy's smallest tolerance.  The engine's instants (all lanes together,
+each lane alone, and with good and arbitrary previous instants as warm starts) must agree with it to
+1e-12 Ts, the engine's stated tolerance, plus the zero's own rounding spread ``16 eps S / |f'|`` (``S``
+the sum of the moduli of the event function's terms; it matters only where modal terms cancel, as
+for the split double pole of a Type III network, and is below 1e-14 Ts elsewhere); intervals without
+a crossing must end at their limit in both.  And ``Engine.run``'s shortcut for a lane alone must give
+``Engine.period``'s numbers bit for bit.
 """
 
 from __future__ import annotations
