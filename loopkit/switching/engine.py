@@ -24,9 +24,14 @@ comparator (voltage mode ``vc - Vramp t/Ts``, peak current mode ``vc - Ri iL - S
 a fixed duty ``D Ts - t``) ends the on-time; the rectifier current reaching zero ends
 the off-time in DCM; the clock ends the period.  Each is found by a scan of the exact
 solution on a grid, then a bracketed Newton iteration on the exact solution (each
-Newton step that leaves the bracket falls back to bisection, as Brent's method does);
-``tests/test_switching_engine.py`` checks the instants against
-``scipy.optimize.brentq`` on the same exact solution.
+Newton step that leaves the bracket falls back to bisection, as Brent's method does),
+to 1e-12 Ts.  For speed (a single corner's run is per-call overhead, not arithmetic):
+the event function is put once per interval in a closed form with one exponential per
+mode (``events.EventFunction``); Newton starts at the lane's previous instant when that lies in the
+scan's bracket (the bracket, not the start, decides which crossing is found) and stops
+on its own error bound; a lane alone runs the iteration in Python floats.
+``tests/test_switching.py`` and ``tests/test_switching_events.py`` check the instants
+against ``scipy.optimize.brentq`` on the same exact solution, on many random states.
 
 Lanes: the engine advances many independent runs together (corners, and copies of
 corners with another load step or injected frequency), one switching period at a time,
@@ -35,12 +40,14 @@ vectorised over lanes; each lane's events are its own.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..errors import DesignError
 from .circuit import IDLE, OFF, ON, PlantCircuit
+from .events import SURE, EventFunction, LaneEvent, e_pair, newton_one, phi1
 
 _GATHERED = ("lam", "inv", "inv_lam", "zero_lam", "vec", "r_g", "r_il", "d_g", "d_g_ix", "c_vo", "d_vo",
              "d_vo_ix", "g_inj_coef")
@@ -103,6 +110,8 @@ class Lanes:
     beta_inj: list = field(default_factory=list)
     g: dict = field(default_factory=dict)
     inj: bool = False
+    pre: list = field(default_factory=list)
+    last: dict = field(default_factory=dict)
 
     def __post_init__(self):
         self.inj = bool(np.any(self.inj_amp))
@@ -139,22 +148,43 @@ class Record:
         return out
 
 
-def _phi1(x):
-    small = np.abs(x) < 1e-5
-    safe = np.where(small, 1.0, x)
-    return np.where(small, 1.0 + x / 2.0 + x * x / 6.0, np.expm1(safe) / safe)
-
-
 def _e(lam, nu, t):
     """``int_0^t e^{lam (t-u)} e^{nu u} du`` (broadcast), without cancellation or overflow."""
     d = nu - lam
     x = d * t
     near = np.abs(x) < 0.5
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        a = np.exp(np.where(near, lam * t, 0.0)) * t * _phi1(np.where(near, x, 0.0))
+        a = np.exp(np.where(near, lam * t, 0.0)) * t * phi1(np.where(near, x, 0.0))
         safe_d = np.where(near, 1.0, d)
         b = (np.exp(nu * t) - np.exp(lam * t)) / safe_d
     return np.where(near, a, b)
+
+
+_UNIT_GRID = np.linspace(0.0, 1.0, SCAN_POINTS)[None, :]
+_ONE = np.zeros(1, int)
+
+
+def _apply(mat, z):
+    """``mat @ z`` per lane: (lanes, n, n) by (lanes, n)."""
+    return np.matmul(mat, z[:, :, None])[:, :, 0]
+
+
+def _per_state(lanes: Lanes, s: int) -> dict:
+    """The lanes' gathered quantities of switch state ``s`` that every interval uses, once per load:
+    ``shift = b0/lam`` and ``lin = b0 [lam = 0]`` of the modal solution, the event rows, and the event
+    functions' constant parts (``const_g``, and ``gamma`` the slope of their part linear in time)."""
+    g = lanes.g
+    b0 = lanes.beta0[s]
+    lin = b0 * g["zero_lam"][:, s]
+    r_g = np.ascontiguousarray(g["r_g"][:, s])
+    r_il = np.ascontiguousarray(g["r_il"][:, s])
+    return {"lam": np.ascontiguousarray(g["lam"][:, s]), "inv": np.ascontiguousarray(g["inv"][:, s]),
+            "vec_t": np.ascontiguousarray(np.swapaxes(g["vec"][:, s], 1, 2)), "shift": b0 * g["inv_lam"][:, s],
+            "lin": lin, "bi": lanes.beta_inj[s], "r_g": r_g, "r_il": r_il,
+            "const_g": g["d_g"][:, s] + g["d_g_ix"][:, s] * lanes.i_x,
+            "gamma_g": np.sum(r_g * lin, axis=1).real - g["slope"], "gamma_il": np.sum(r_il * lin, axis=1).real,
+            "ginj": g["g_inj_coef"], "slope": g["slope"], "lam2": np.abs(g["lam"][:, s]) ** 2,
+            "grows": np.any(g["lam"][:, s].real > 0, axis=1)}
 
 
 class Engine:
@@ -246,74 +276,50 @@ class Engine:
         lanes.beta0 = [np.einsum("kij,kj->ki", lanes.g["inv"][:, s], self.b[c, s] + lanes.i_x[:, None] * self.b_ix[c, s])
                        for s in range(3)]
         lanes.beta_inj = [np.einsum("kij,kj->ki", lanes.g["inv"][:, s], self.g_inj[c, s]) for s in range(3)]
+        lanes.pre = [_per_state(lanes, s) for s in range(3)]
 
     # ------------------------------------------------------------------ exact solution
-    def _modal(self, lanes, s, z0, t0_abs, t):
-        """Modal state q at relative times ``t`` (lanes, m) of an interval in state ``s`` started at ``z0``."""
-        lam = lanes.g["lam"][:, s][:, None, :]
-        q0 = np.einsum("kij,kj->ki", lanes.g["inv"][:, s], z0)[:, None, :]
+    def _modal(self, lanes, s, z0, t0_abs, t, q0=None):
+        """Modal state q at relative times ``t`` (lanes, m) of an interval in state ``s`` started at ``z0``
+        (``q0``: its modal coordinates, when already known)."""
+        p = lanes.pre[s]
+        if q0 is None:
+            q0 = _apply(p["inv"], z0)
+        lam = p["lam"][:, None, :]
         tt = t[:, :, None]
         em = np.expm1(lam * tt)
-        b0 = lanes.beta0[s][:, None, :]
         # e^{lam t} q0 + b0 (e^{lam t} - 1)/lam, exact also at lam = 0 (then b0 t)
-        q = q0 + em * (q0 + b0 * lanes.g["inv_lam"][:, s][:, None, :]) + b0 * tt * lanes.g["zero_lam"][:, s][:, None, :]
+        q = q0[:, None, :] + em * (q0 + p["shift"])[:, None, :] + p["lin"][:, None, :] * tt
         if lanes.inj:
             w = lanes.inj_w[:, None, None]
             amp = (lanes.inj_amp * np.exp(1j * lanes.inj_w * t0_abs) / 2j)[:, None, None]
-            bi = lanes.beta_inj[s][:, None, :]
-            q = q + bi * amp * _e(lam, 1j * w, tt) + bi * np.conj(amp) * _e(lam, -1j * w, tt)
+            bi = p["bi"][:, None, :]
+            ep, en, _ = e_pair(lam, w, tt)
+            q = q + bi * amp * ep + bi * np.conj(amp) * en
         return q
-
-    def _dmodal(self, lanes, s, q, t0_abs, t):
-        lam = lanes.g["lam"][:, s][:, None, :]
-        dq = lam * q + lanes.beta0[s][:, None, :]
-        if lanes.inj:
-            w = lanes.inj_w[:, None, None]
-            amp = (lanes.inj_amp * np.exp(1j * lanes.inj_w * t0_abs) / 2j)[:, None, None]
-            bi = lanes.beta_inj[s][:, None, :]
-            tt = t[:, :, None]
-            dq = dq + bi * (amp * np.exp(1j * w * tt) + np.conj(amp) * np.exp(-1j * w * tt))
-        return dq
 
     def _inj(self, lanes, t_abs):
         return lanes.inj_amp[:, None] * np.sin(lanes.inj_w[:, None] * t_abs)
 
     def _state(self, lanes, s, q):
-        return np.einsum("kij,kmj->kmi", lanes.g["vec"][:, s], q).real
-
-    def _event_fn(self, lanes, s, kind, q, t0_abs, t, t_in_cycle):
-        """The event function (and its modal row) at ``t``: ``"g"`` the comparator, ``"il"`` the current."""
-        if kind == "il":
-            return np.einsum("kj,kmj->km", lanes.g["r_il"][:, s], q).real
-        val = np.einsum("kj,kmj->km", lanes.g["r_g"][:, s], q).real + (lanes.g["d_g"][:, s] + lanes.g["d_g_ix"][:, s] * lanes.i_x)[:, None]
-        val = val - lanes.g["slope"][:, None] * (t_in_cycle[:, None] + t)
-        if lanes.inj:
-            val = val + lanes.g["g_inj_coef"][:, None] * self._inj(lanes, t0_abs[:, None] + t)
-        return val
-
-    def _event_slope(self, lanes, s, kind, q, dq, t0_abs, t):
-        row = lanes.g["r_il"][:, s] if kind == "il" else lanes.g["r_g"][:, s]
-        val = np.einsum("kj,kmj->km", row, dq).real
-        if kind == "g":
-            val = val - lanes.g["slope"][:, None]
-            if lanes.inj:
-                val = val + (lanes.g["g_inj_coef"] * lanes.inj_amp * lanes.inj_w)[:, None] * np.cos(
-                    lanes.inj_w[:, None] * (t0_abs[:, None] + t))
-        return val
+        """The states ``V q`` (real part) at every time of ``q`` (lanes, m, n)."""
+        return np.matmul(q, lanes.pre[s]["vec_t"]).real
 
     def _interval(self, lanes, s, z0, t0_abs, t_max, kind, t_in_cycle, active):
         """End of an interval in state ``s``: the first fall of the event function to 0, or ``t_max``.
 
         Returns (duration (lanes,), state at the end (lanes, n)).
         """
+        if lanes.n == 1:
+            return self._interval_one(lanes, s, z0, t0_abs, t_max, kind, t_in_cycle, active)
+        q0 = _apply(lanes.pre[s]["inv"], z0)
         dur = t_max.copy()
         if kind is not None and np.any(active):
             sub = np.nonzero(active & (t_max > 0))[0]
             if sub.size:
-                ls = _take(lanes, sub)
-                grid = t_max[sub, None] * np.linspace(0.0, 1.0, SCAN_POINTS)[None, :]
-                q = self._modal(ls, s, z0[sub], t0_abs[sub], grid)
-                f = self._event_fn(ls, s, kind, q, t0_abs[sub], grid, t_in_cycle[sub])
+                ev = EventFunction(lanes, s, kind, q0, t0_abs, t_in_cycle, sub)
+                grid = t_max[sub, None] * _UNIT_GRID
+                f = ev.value(grid)
                 below = f <= 0.0
                 first = np.argmax(below, axis=1)
                 crosses = below.any(axis=1)
@@ -324,33 +330,113 @@ class Engine:
                     rows = np.nonzero(inner)[0]
                     lo = grid[rows, first[rows] - 1]
                     hi = grid[rows, first[rows]]
-                    dur[sub[rows]] = self._newton(_take(ls, rows), s, kind, z0[sub[rows]], t0_abs[sub[rows]],
-                                                  t_in_cycle[sub[rows]], lo, hi, f[rows, first[rows] - 1],
-                                                  f[rows, first[rows]])
-        q = self._modal(lanes, s, z0, t0_abs, dur[:, None])
+                    hint = lanes.last.get((s, kind))
+                    dur[sub[rows]] = self._newton(ev.take(rows), lo, hi, f[rows, first[rows] - 1], f[rows, first[rows]],
+                                                  None if hint is None else hint[sub[rows]])
+            lanes.last[(s, kind)] = dur.copy()
+        q = self._modal(lanes, s, z0, t0_abs, dur[:, None], q0=q0)
         return dur, self._state(lanes, s, q)[:, 0, :]
 
-    def _newton(self, ls, s, kind, z0, t0_abs, t_in_cycle, lo, hi, f_lo, f_hi):
+    def _interval_one(self, lanes, s, z0, t0_abs, t_max, kind, t_in_cycle, active):
+        """:meth:`_interval` for a single lane (arrays of one), by :meth:`_scalar_interval`."""
+        dur, z1 = self._scalar_interval(lanes, s, z0[0], float(t0_abs[0]), float(t_max[0]), kind,
+                                        float(t_in_cycle[0]), bool(active[0]))
+        return np.array([dur]), z1[None, :]
+
+    def _scalar_interval(self, lanes, s, z0, t0_abs, dur, kind, t_in_cycle, active):
+        """:meth:`_interval` of a single lane with Python scalars in the control flow (a single-corner run
+        spends its time in numpy's per-call cost, not in arithmetic): state (n,) and floats in, the
+        duration and the end state (n,) out."""
+        p = lanes.pre[s]
+        q0 = p["inv"][0] @ z0
+        if kind is not None and active and dur > 0:
+            grid = dur * _UNIT_GRID[0]
+            if lanes.inj:
+                ev = EventFunction(lanes, s, kind, q0[None, :], np.array([t0_abs]), np.array([t_in_cycle]), _ONE)
+                f = ev.value(grid[None, :])[0].tolist()
+            else:
+                ev = LaneEvent(p, kind, q0, t_in_cycle)
+                f = ev.value(grid)
+            j = next((i for i, v in enumerate(f) if v <= 0.0), None)
+            if j == 0:
+                dur = 0.0
+            elif j is not None:
+                lo, hi, f_lo, f_hi = float(grid[j - 1]), float(grid[j]), f[j - 1], f[j]
+                t = lo + (hi - lo) * f_lo / (f_lo - f_hi) if f_lo - f_hi > 0 else 0.5 * (lo + hi)
+                if not (math.isfinite(t) and lo < t < hi):
+                    t = 0.5 * (lo + hi)
+                hint = lanes.last.get((s, kind))
+                if hint is not None and lo < hint[0] < hi:
+                    t = float(hint[0])
+                curv = float(ev.curvature(np.array([hi]))[0]) if lanes.inj else ev.curvature_one(hi)
+                dur = newton_one(ev, lo, hi, t, curv, 1e-12 * self.ts, _NEWTON_STEPS)
+            lanes.last[(s, kind)] = np.array([dur])
+        if lanes.inj:
+            q = self._modal(lanes, s, z0[None, :], np.array([t0_abs]), np.array([[dur]]), q0=q0[None, :])
+            return dur, self._state(lanes, s, q)[0, 0, :]
+        q = q0 + np.expm1(p["lam"][0] * dur) * (q0 + p["shift"][0]) + p["lin"][0] * dur
+        return dur, (q @ p["vec_t"][0]).real
+
+    def _period_one(self, lanes: Lanes, z: np.ndarray, t0_abs: np.ndarray) -> np.ndarray:
+        """:meth:`period` of a single lane without a record: the same intervals and decisions on scalars, so
+        the same numbers (``tests/test_switching_events.py`` checks it against :meth:`period`, bit for bit;
+        keep the two alike).  ``period``'s own bookkeeping, over arrays of one, was a third of a
+        single-corner run."""
+        ts, t0 = self.ts, float(t0_abs[0])
+        d_on, z1 = self._scalar_interval(lanes, ON, z[0], t0, self.law.max_duty * ts, "g", 0.0, True)
+        dcm = bool(self.dcm_capable[lanes.corner[0]])
+        positive = bool(z1[0] > 0)
+        t_off_max = 0.0 if dcm and not positive else ts - d_on
+        d_off, z2 = self._scalar_interval(lanes, OFF, z1, t0 + d_on, t_off_max, "il", d_on, dcm and positive)
+        if dcm and d_on + d_off < ts * (1 - 1e-12):
+            z2[0] = 0.0
+            _, z2 = self._scalar_interval(lanes, IDLE, z2, t0 + d_on + d_off, ts - d_on - d_off, None, 0.0, False)
+        return z2[None, :]
+
+    def _newton(self, ev, lo, hi, f_lo, f_hi, hint=None):
+        """The zero of the event ``ev`` in ``[lo, hi]`` (``f_lo > 0 >= f_hi``) to ``1e-12 Ts``.
+
+        Newton's method safeguarded by the bracket (a step that leaves it bisects, as Brent's method
+        does), started at ``hint`` (the lane's previous event: in steady operation it moves little)
+        where that lies inside the bracket, else at the secant.  The bracket comes from the scan, so
+        the hint never changes which crossing is found, only how fast.  A lane stops when the step
+        (taken even onto the bracket's end) or the bracket is below the tolerance, or when Newton's
+        own error bound is below ``SURE`` of it: after a step ``d`` from ``t`` to ``t1``,
+        ``f(t1) = f''(xi) d^2 / 2`` (Taylor), and on the bracket ``|f'| >= |f'(t)| - K (hi - lo) = m``
+        with ``K >= max |f''|`` (:meth:`EventFunction.curvature`), so when ``m > 0`` the event function is
+        monotonic there and ``|t1 - root| <= |f(t1)| / m <= K d^2 / (2 m)`` (the quadratic convergence
+        of Newton's method, e.g. J. Stoer, R. Bulirsch, Introduction to Numerical Analysis, 3rd ed.,
+        Springer 2002, sec. 5.3, from memory); that saves the last evaluation.  Lanes done stay put
+        while the others iterate.  A single lane runs :func:`newton_one`, the same steps on floats.
+        """
         with np.errstate(divide="ignore", invalid="ignore"):
             t = lo + (hi - lo) * f_lo / (f_lo - f_hi)
         t = np.where(np.isfinite(t) & (t > lo) & (t < hi), t, 0.5 * (lo + hi))
+        if hint is not None:
+            t = np.where((hint > lo) & (hint < hi), hint, t)
         tol = 1e-12 * self.ts
+        curv = ev.curvature(hi)
+        if t.size == 1:
+            return np.array([newton_one(ev, float(lo[0]), float(hi[0]), float(t[0]), float(curv[0]), tol, _NEWTON_STEPS)])
+        fin = np.zeros(t.size, bool)  # lanes done stay where they are while the others iterate
         for _ in range(_NEWTON_STEPS):
-            tt = t[:, None]
-            q = self._modal(ls, s, z0, t0_abs, tt)
-            f = self._event_fn(ls, s, kind, q, t0_abs, tt, t_in_cycle)[:, 0]
-            df = self._event_slope(ls, s, kind, q, self._dmodal(ls, s, q, t0_abs, tt), t0_abs, tt)[:, 0]
+            f, df = ev.value_slope(t)
             pos = f > 0
             lo = np.where(pos, t, lo)
             hi = np.where(pos, hi, t)
-            with np.errstate(divide="ignore", invalid="ignore"):
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
                 step = np.where(df != 0, f / df, np.inf)
-            new = t - step
-            bad = ~np.isfinite(new) | (new <= lo) | (new >= hi)
-            new = np.where(bad, 0.5 * (lo + hi), new)
-            done = (np.abs(new - t) < tol) | (hi - lo < tol)
-            t = new
-            if np.all(done):
+                new = t - step
+                # a step below the tolerance is taken even onto the bracket's end (the root is within it)
+                bad = ~np.isfinite(new) | (((new <= lo) | (new >= hi)) & ~(np.abs(step) < tol))
+                new = np.where(bad, 0.5 * (lo + hi), new)
+                m = np.abs(df) - curv * (hi - lo)
+                sure = ~bad & (m > 0) & (curv * step * step < 2.0 * SURE * tol * m)
+            exact = f == 0
+            done = (np.abs(new - t) < tol) | (hi - lo < tol) | sure | exact
+            t = np.where(fin | exact, t, new)
+            fin |= done
+            if np.all(fin):
                 break
         return t
 
@@ -492,9 +578,10 @@ class Engine:
     def run(self, lanes: Lanes, z: np.ndarray, periods: int, first_period: int = 0, record: Record | None = None,
             waveform: bool = False, progress=None) -> np.ndarray:
         """Advance ``periods`` switching periods; ``progress(done, total)`` returning False cancels."""
+        alone = lanes.n == 1 and record is None
         for k in range(int(periods)):
             t0 = np.full(lanes.n, (first_period + k) * self.ts)
-            z = self.period(lanes, z, t0, record, waveform)
+            z = self._period_one(lanes, z, t0) if alone else self.period(lanes, z, t0, record, waveform)
             if progress is not None and progress(k + 1, periods) is False:
                 raise Cancelled()
         return z
@@ -505,4 +592,4 @@ def _take(lanes: Lanes, idx) -> Lanes:
         return lanes
     return Lanes(lanes.corner[idx], lanes.i_x[idx], lanes.inj_amp[idx], lanes.inj_w[idx],
                  [b[idx] for b in lanes.beta0], [b[idx] for b in lanes.beta_inj],
-                 {k: v[idx] for k, v in lanes.g.items()})
+                 {k: v[idx] for k, v in lanes.g.items()}, lanes.inj, [{k: v[idx] for k, v in p.items()} for p in lanes.pre])

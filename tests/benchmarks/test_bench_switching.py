@@ -9,6 +9,12 @@
    tests/test_switching_ngspice.py).  Reported as medians and ratios (extra_info), never asserted.
    Also reported: the periodic steady state of all 9 corners by shooting (``steady_state``),
    which is what ``loopkit simulate`` does instead of simulating the settling.
+   Measured 2026-12-03 on the shared 2-core machine (load average 3-4, so both sides vary by up
+   to 2x between runs; the ratio moves less), five runs: one corner, ngspice 0.65-1.12 s, loopkit
+   0.029-0.059 s, ratio 16-23 (before that day's event-search rework: 0.41 s, ratio 2-3); 9
+   corners in one run 0.15-0.39 s against 5.9-10.0 s, ratio 22-41.  What is left of a
+   single-corner period is numpy's per-call cost (a few dozen calls on arrays of a few modes: the
+   scan, one or two Newton evaluations, the modal state at each interval's end), not arithmetic.
 2. The load step of 21 corners (7 Vin x 3 loads) from the averaged model
    (``timeresponse.step_response``) against python-control 0.10 ``forced_response`` corner by
    corner on the same closed-loop output impedances (as tests/benchmarks/test_bench_step.py),
