@@ -207,6 +207,8 @@ class Sampler:
         self.pattern = _bit_reversed(0 if exact else dp.dither_bits)
         self.last_state = np.full(lanes.n, ON if dp.carrier == "leading-edge" else OFF)
         self.codes, self.outputs = [], []
+        #: Per period run: (switch-on, switch-off) instants from the clock edge, s (lanes,) each.
+        self.edges = []
         self.periods_run = 0
 
     # ---------------------------------------------------------------- one period
@@ -261,6 +263,7 @@ class Sampler:
         rise = np.where(rise_old < t_load, rise_old, np.maximum(t_load, rise_new))
         fall = np.where(fall_old < t_load, fall_old, np.maximum(t_load, fall_new))
         fall = np.maximum(fall, rise)
+        self.edges.append((rise, fall))
         self.register = new
         self.periods_run = k + 1
         z_next = eng.period_at(ln, z, np.full(ln.n, k * ts), rise, fall, record, waveform)
