@@ -231,6 +231,10 @@ class DesignForm(QScrollArea):
         self._value(f, "compensator.opto.r_pull", "Pull-up resistor", "Ω")
         self._value(f, "compensator.opto.r_led", "LED resistor", "Ω")
         self._value(f, "compensator.opto.c_opto", "Opto capacitance", "F", "0 to neglect its pole")
+        self._value(f, "compensator.opto.v_pullup", "Pull-up supply", "V", "Empty: 5 V")
+        self._value(f, "compensator.opto.v_pin", "Pin operating voltage", "V", "Empty: 2.5 V")
+        self._value(f, "compensator.opto.v_led", "LED forward voltage", "V", "Empty: 1.0 V")
+        self._value(f, "compensator.opto.v_shunt_min", "Shunt least cathode", "V", "Empty: 2.5 V (its reference)")
         self._parts_note = QLabel()
         self._parts_note.setWordWrap(True)
         self._parts_note.setObjectName("parts_note")
@@ -322,7 +326,7 @@ class DesignForm(QScrollArea):
             "compensator.opamp.gm": co.opamp.gm, "compensator.opamp.r_out": co.opamp.r_out,
             "operating.vin_min": min(op.vin), "operating.vin_max": max(op.vin),
         }
-        for key in ("ctr", "r_pull", "r_led", "c_opto"):
+        for key in ("ctr", "r_pull", "r_led", "c_opto", "v_pullup", "v_pin", "v_led", "v_shunt_min"):
             w = self._widgets[f"compensator.opto.{key}"]
             with QSignalBlocker(w):
                 if key in co.opto:
@@ -428,7 +432,7 @@ class DesignForm(QScrollArea):
             self._set_row_visible(f"compensator.opamp.{key}", amplifier == "op-amp")
         for key in ("gm", "r_out"):
             self._set_row_visible(f"compensator.opamp.{key}", amplifier == "transconductance")
-        for key in ("ctr", "r_pull", "r_led", "c_opto"):
+        for key in ("ctr", "r_pull", "r_led", "c_opto", "v_pullup", "v_pin", "v_led", "v_shunt_min"):
             self._set_row_visible(f"compensator.opto.{key}", amplifier == "optocoupler")
 
     def _update_parts_note(self) -> None:

@@ -176,6 +176,11 @@ BOUNDS: dict[str, Bound] = {
     "compensator.opto.r_pull": _R_PART,
     "compensator.opto.r_led": _R_PART,
     "compensator.opto.c_opto": Bound(_C_PART.lo, _C_PART.hi, "F", _C_PART.why, zero="neglected"),
+    # the optocoupler's dc bias (loopkit.networks.opto_bias; defaults 5 V, 2.5 V, 1.0 V, 2.5 V: common practice, no source)
+    "compensator.opto.v_pullup": Bound(0.5, 60.0, "V", "pull-up supplies of controller pins: 1.8 V logic to 15 V bias rails; default 5 V"),
+    "compensator.opto.v_pin": Bound(0.1, 60.0, "V", "controller feedback pins work at 0.5 V to 5 V; below v_pullup; default 2.5 V"),
+    "compensator.opto.v_led": Bound(0.5, 5.0, "V", "LED forward voltages: 1 V infrared to 3.5 V blue; default 1.0 V"),
+    "compensator.opto.v_shunt_min": Bound(0.5, 60.0, "V", "a shunt's least cathode voltage: its reference, 1.24 V to 2.5 V; default 2.5 V"),
     # --- [digital] (control.scheme = "digital")
     "digital.sample_ratio": Bound(1, 16, "", "samples per switching period: once is usual, a few times for multi-sampled PWM"),
     "digital.adc_bits": Bound(4, 24, "", "ADC resolution: 8-bit microcontrollers to 24-bit converters"),

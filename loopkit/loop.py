@@ -347,6 +347,8 @@ class LoopSession:
         findings.extend(eseries.part_warnings(parts))
         findings.extend(loop_findings(margins, self.stage, self.design.stage.fsw, targets))
         findings.extend(opamp_findings(module, parts, self.ctx, self.f_hz, margins, self.stage))
+        if hasattr(module, "bias_findings"):  # the network's dc operating point (optocoupler)
+            findings.extend(module.bias_findings(parts, self.ctx))
         return LoopResult(
             design=with_targets(self.design, targets), stage=self.stage, targets=targets, f_hz=self.f_hz,
             feasible=True,

@@ -681,7 +681,7 @@ ERRORS = [
         ("pm = 60", 'pm = 60\n[compensator.opto]\nr_pul = "10k"'),
         "compensator.opto.r_pul",
         "10k",
-        "unknown key; allowed here: c_opto, ctr, r_led, r_pull",
+        "unknown key; allowed here: c_opto, ctr, r_led, r_pull, v_led, v_pin, v_pullup, v_shunt_min",
     ),
     (
         ("pm = 60", 'pm = 60\n[compensator.placement]\nfz0 = "1k"'),

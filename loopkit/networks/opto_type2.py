@@ -40,6 +40,13 @@ mid-band gain the network can have.  A zero resistor ``Rz`` in series with
 unchanged (``R_LED`` is set by the LED and shunt bias currents, so lowering it
 is left to the designer).  ``Rz`` may be left out of ``parts`` (a short).
 
+The model is linear; whether its dc operating point exists is checked by
+:func:`bias` (:mod:`loopkit.networks.opto_bias`): holding the pin at its
+operating voltage puts a floor ``(V_pullup - V_pin)/(|vout| - V_F - V_k,min)``
+under the fast lane's gain ``CTR Rpull/R_LED``, so R_LED has a ceiling beside
+the synthesis's floor above.  :func:`bias_findings` reports a design that
+cannot bias; :func:`synthesise` says when floor and ceiling cross.
+
 The LED is taken as ideal (no dynamic resistance; add it to ``r_led`` if it
 matters) and the optocoupler's own pole as ``Rpull`` against ``c_opto``; CTR
 varies strongly with part, temperature and age, so check the loop at its
@@ -57,6 +64,7 @@ from ..rational import TWO_PI, Rational
 from ..units import format_value
 from . import NetworkContext
 from .gm_type2 import divider_bottom, part_value, type2_inputs
+from .opto_bias import BIAS_KEYS, OptoBias, bias_finding, bias_point, bias_values
 from .spice import OPAMP_SUBCKT, ac_deck, opamp_subcircuit, spice_number
 
 __all__ = [
@@ -68,9 +76,12 @@ __all__ = [
     "OPTO_KEYS",
     "POLES",
     "PRACTICAL_BOOST_DEG",
+    "REQUIRED_OPTO_KEYS",
     "SHORT_TITLE",
     "TITLE",
     "ZEROS",
+    "bias",
+    "bias_findings",
     "draw",
     "netlist",
     "poles_zeros",
@@ -96,27 +107,49 @@ DESIGNATORS = ("R1", "Cz", "Cpole")
 ZEROS = 1
 POLES = 1
 
-#: Keys of ``ctx.opto`` (the design file's ``[compensator.opto]``) and their units.
-OPTO_KEYS = {"ctr": "", "r_pull": "Ω", "r_led": "Ω", "c_opto": "F"}
+#: Keys of ``ctx.opto`` the small-signal model needs, and their units.
+REQUIRED_OPTO_KEYS = {"ctr": "", "r_pull": "Ω", "r_led": "Ω", "c_opto": "F"}
 
-#: Pull-up supply on the controller side written into the deck (dc only).
-_VDD_DECK = 5.0
+#: Keys of ``ctx.opto`` (the design file's ``[compensator.opto]``) and their units: the required ones
+#: and the optional dc-bias voltages of :mod:`loopkit.networks.opto_bias` (defaults there).
+OPTO_KEYS = {**REQUIRED_OPTO_KEYS, **BIAS_KEYS}
 
 
 def _opto(ctx: NetworkContext) -> tuple[float, float, float, float]:
     """(ctr, r_pull, r_led, c_opto), validated."""
     values = []
-    for key, unit in OPTO_KEYS.items():
+    for key, unit in REQUIRED_OPTO_KEYS.items():
         field = f"compensator.opto.{key}"
         if key not in ctx.opto:
             hint = " (0 to neglect the optocoupler's pole)" if key == "c_opto" else ""
-            raise DesignError(field, "missing", f"opto-type2 needs {', '.join(OPTO_KEYS)}{hint}")
+            raise DesignError(field, "missing", f"opto-type2 needs {', '.join(REQUIRED_OPTO_KEYS)}{hint}")
         v = float(ctx.opto[key])
         ok = v >= 0 if key == "c_opto" else v > 0
         if not (ok and math.isfinite(v)):
             raise DesignError(field, format_value(v, unit), "must be >= 0" if key == "c_opto" else "must be > 0")
         values.append(v)
     return tuple(values)
+
+
+def bias(ctx: NetworkContext) -> OptoBias:
+    """The dc operating point of the optocoupler path (:func:`loopkit.networks.opto_bias.bias_point`).
+
+    The LED is fed from the network's input, ``ctx.v_sensed`` (the output, with divider sensing).
+    """
+    ctr, r_pull, r_led, _ = _opto(ctx)
+    return bias_point(ctr, r_pull, r_led, ctx.v_sensed, bias_values(ctx.opto))
+
+
+def bias_findings(parts: dict, ctx: NetworkContext) -> list:
+    """A finding of severity "error" when the parts cannot bias (:func:`bias`), naming what to change.
+
+    ``parts`` gives the mid-band gain ``(CTR Rpull/R_LED)(1 + Rz/R1)``, so the message can say
+    when no R_LED both biases and reaches the crossover.
+    """
+    ctr, r_pull, r_led, _ = _opto(ctx)
+    k_mid = ctr * r_pull / r_led * (1.0 + _part(parts, "Rz", 0.0) / _part(parts, "R1"))
+    found = bias_finding(bias(ctx), ctr, r_pull, r_led, ctx.v_sensed, k_mid)
+    return [] if found is None else [found]
 
 
 def _part(parts: dict, name: str, default: float | None = None) -> float:
@@ -267,14 +300,29 @@ def synthesise(fc_hz, gain_at_fc, zeros_hz, poles_hz, ctx: NetworkContext, fixed
     ratio = g_mid / k_fast
     if not (ratio > 1.0):
         r_led_needed = ctr * r_pull / g_mid
+        point = bias(ctx)
+        if point.headroom_v > 0 and not (point.k_fast_min < g_mid):  # the bias floor of the fast lane is above the gain needed too
+            raise InfeasibleDesign(
+                "compensator.fc", format_value(fc_hz, "Hz"),
+                f"that crossover cannot be reached with this optocoupler and pull-up: it needs a mid-band gain of "
+                f"{20 * math.log10(g_mid):.1f} dB, but the fast lane CTR Rpull/R_LED must give at least "
+                f"{20 * math.log10(point.k_fast_min):.1f} dB for the shunt to bias (R_LED <= "
+                f"{format_value(point.r_led_max_ohm, 'Ω')}: (v_pullup - v_pin)/(|vout| - v_led - v_shunt_min)"
+                " sets that floor whatever CTR and Rpull are) and the zero resistor can only add gain",
+                reasons=(
+                    "raise fc where the power stage has less gain (the network then needs more mid-band gain)",
+                    "or lower the pull-up's headroom compensator.opto.v_pullup - v_pin",
+                    "or a lower LED or shunt voltage (compensator.opto.v_led, v_shunt_min)",
+                ),
+            )
         raise InfeasibleDesign(
             "compensator.opto.r_led", format_value(r_led, "Ω"),
             f"the fast lane through R_LED alone gives a mid-band gain CTR Rpull/R_LED = "
             f"{20 * math.log10(k_fast):.1f} dB (CTR {ctr:g}, Rpull {format_value(r_pull, 'Ω')}), more than the "
             f"{20 * math.log10(g_mid):.1f} dB this crossover needs; the zero resistor can only add gain",
             reasons=(
-                (f"raise R_LED above {format_value(r_led_needed, 'Ω')} if the LED and the shunt regulator still "
-                 "get their bias current at the lowest output voltage"),
+                (f"raise R_LED above {format_value(r_led_needed, 'Ω')} (it biases up to "
+                 f"{format_value(point.r_led_max_ohm, 'Ω')})"),
                 "or lower CTR x Rpull (optocoupler with lower CTR, smaller Rpull with a larger Cpole)",
                 "or choose a crossover where the power stage has less gain",
             ),
@@ -312,7 +360,7 @@ def netlist(parts: dict, ctx: NetworkContext, title: str = "opto-type2 compensat
         f"Rled in led_a {spice_number(r_led)}",
         "Vled led_a k DC 0",
         f"Fopto out 0 Vled {spice_number(ctr)}",
-        f"Vdd vdd 0 DC {spice_number(_VDD_DECK)}",
+        f"Vdd vdd 0 DC {spice_number(bias_values(ctx.opto)['v_pullup'])}",
         f"Rpull vdd out {spice_number(r_pull)}",
         f"Cpole out 0 {spice_number(cpole)}",
     ]
