@@ -33,3 +33,23 @@ def pytest_collection_modifyitems(config, items):
 @pytest.fixture(params=SAMPLES, ids=[p.stem for p in SAMPLES])
 def sample_path(request):
     return request.param
+
+
+@pytest.fixture
+def main_window(qtbot, tmp_path, monkeypatch):
+    """An empty main window with its own app-data folder (``tmp_path / "appdata"``), shown; closed after the
+    test without asking (the undo stack marked clean, autosave stopped).  Qt is imported here, not at the top,
+    so the tests that never touch the app do not load it."""
+    from app.viewmodel import DesignModel
+    from app.window import MainWindow
+
+    data = tmp_path / "appdata"
+    monkeypatch.setenv("LOOPKIT_APP_DIR", str(data))
+    w = MainWindow(DesignModel(), data_dir=data)
+    w.show()
+    qtbot.waitExposed(w)
+    yield w
+    w.model.undo_stack.setClean()
+    w._autosave_timer.stop()
+    w.close()
+    w.deleteLater()

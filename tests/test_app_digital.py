@@ -13,8 +13,6 @@ pytest.importorskip("pytestqt")
 pytestmark = pytest.mark.gui
 
 from app.testing import settle
-from app.viewmodel import DesignModel
-from app.window import MainWindow
 from loopkit import load_design
 from loopkit.loop import design_loop
 
@@ -23,16 +21,8 @@ DSP = ROOT / "sample_designs" / "buck_dsp_5v.toml"
 
 
 @pytest.fixture
-def window(qtbot, tmp_path, monkeypatch):
-    monkeypatch.setenv("LOOPKIT_APP_DIR", str(tmp_path / "appdata"))
-    w = MainWindow(DesignModel(), data_dir=tmp_path / "appdata")
-    w.show()
-    qtbot.waitExposed(w)
-    yield w
-    w.model.undo_stack.setClean()
-    w._autosave_timer.stop()
-    w.close()
-    w.deleteLater()
+def window(main_window):
+    return main_window
 
 
 def test_digital_design_shows_its_fields_coefficients_and_nyquist_grid(window):

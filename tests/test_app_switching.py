@@ -12,8 +12,6 @@ import pytest
 pytest.importorskip("pytestqt")
 pytestmark = [pytest.mark.gui, pytest.mark.slow]
 
-from app.viewmodel import DesignModel
-from app.window import MainWindow
 from loopkit import switching as sw
 
 SAMPLES = __import__("conftest").SAMPLES
@@ -21,16 +19,8 @@ BUCK24 = next(p for p in SAMPLES if p.stem == "buck_24v_3v3")
 
 
 @pytest.fixture
-def window(qtbot, tmp_path, monkeypatch):
-    monkeypatch.setenv("LOOPKIT_APP_DIR", str(tmp_path / "appdata"))
-    w = MainWindow(DesignModel(), data_dir=tmp_path / "appdata")
-    w.show()
-    qtbot.waitExposed(w)
-    yield w
-    w.model.undo_stack.setClean()
-    w._autosave_timer.stop()
-    w.close()
-    w.deleteLater()
+def window(main_window):
+    return main_window
 
 
 def test_switching_check_runs_off_thread_and_shows_the_library_values(window, qtbot):

@@ -12,8 +12,6 @@ Outside references:
 
 from __future__ import annotations
 
-import functools
-import warnings
 from dataclasses import replace
 from pathlib import Path
 
@@ -28,12 +26,12 @@ from loopkit.errors import DesignError
 from loopkit.loop import LoopSession
 from loopkit.montecarlo import monte_carlo, prepare_study
 from loopkit.powerstage import analyse_stage
-from loopkit.rational import TWO_PI
 from loopkit.robust import robust_synthesis
 from loopkit.rows import chunk_margins, draw_design, fixed_controller, row_loop
 from loopkit.schemes import digital as scheme
 from loopkit.sweep import vin_sweep
 from loopkit.tolerances import Spread, Tolerances
+from tests.reference.samples import assert_margins_equal_control, sample_design, sample_result
 
 SAMPLES = ["buck_dsp_5v", "inverting_mcu_minus12v"]
 
@@ -43,14 +41,7 @@ PLANT_TOLERANCES = Tolerances(entries={"inductance": Spread(percent=20.0), "dcr"
                               parts_from_series=False)
 
 
-@functools.cache
-def _design(name):
-    return load_design(f"sample_designs/{name}.toml")
-
-
-@functools.cache
-def _result(name):
-    return LoopSession(_design(name)).run()
+_design, _result = sample_design, sample_result
 
 
 def _exact(result):
@@ -85,7 +76,7 @@ def test_sweep_at_the_design_corners_equals_the_design(name):
 @pytest.mark.parametrize("name", SAMPLES)
 def test_swept_row_against_python_control(name):
     """A swept input voltage between the design's: python-control's margins of the ordinary path's loop."""
-    control = pytest.importorskip("control")
+    pytest.importorskip("control")
     design, res = _design(name), _result(name)
     lo, hi = min(design.operating.vin), max(design.operating.vin)
     vin = 0.37 * lo + 0.63 * hi
@@ -94,16 +85,7 @@ def test_swept_row_against_python_control(name):
     one = replace(design, operating=replace(design.operating, vin=(vin,)))  # an ordinary, validated design
     stage = analyse_stage(one, findings=False)
     loop = scheme.uncompensated(one, stage).sampled * c
-    for k in range(loop.n_corners):
-        ref = loop.to_control(k)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            gm, pm, _, _, wgc, _ = control.stability_margins(ref)
-        np.testing.assert_allclose(s.fc_hz[k], wgc / TWO_PI, rtol=1e-6)
-        np.testing.assert_allclose(s.pm_deg[k], pm, atol=1e-4)
-        if np.isfinite(gm) and gm > 1:
-            np.testing.assert_allclose(s.gm_db[k], 20 * np.log10(gm), atol=1e-4)
-        assert s.stable[k] == bool(np.all(np.abs(control.feedback(ref, 1).poles()) < 1))
+    assert_margins_equal_control(s, loop, f180=False)
 
 
 def test_sweep_is_vectorised_over_input_voltages():

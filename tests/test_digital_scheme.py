@@ -17,7 +17,6 @@ Outside references:
 
 import functools
 import json
-import warnings
 from dataclasses import replace
 
 import numpy as np
@@ -37,6 +36,7 @@ from loopkit.rational import TWO_PI, Rational
 from loopkit.sampled import sampled_plant
 from loopkit.schemes.digital import loop_delay_s
 from tests.reference.sampled_sim import loop_gain, simulate
+from tests.reference.samples import assert_margins_equal_control, sample_design, sample_result
 
 control = pytest.importorskip("control")
 
@@ -44,14 +44,7 @@ control = pytest.importorskip("control")
 SAMPLES = ["inverting_mcu_minus12v", "buck_dsp_5v"]
 
 
-@functools.cache
-def _design(name):
-    return loopkit.load_design(f"sample_designs/{name}.toml")
-
-
-@functools.cache
-def _result(name):
-    return LoopSession(_design(name)).run()
+_design, _result = sample_design, sample_result
 
 
 def _desc(r: Rational, k: int):
@@ -188,18 +181,7 @@ def test_closed_loop_step_equals_brute_force_simulation(name):
 @pytest.mark.parametrize("name", SAMPLES)
 def test_margins_equal_python_control(name):
     res = _result(name)
-    m = res.margins
-    for k in range(res.stage.n_corners):
-        ref = res.loop.to_control(k)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            gm, pm, _, wpc, wgc, _ = control.stability_margins(ref)
-        np.testing.assert_allclose(m.fc_hz[k], wgc / TWO_PI, rtol=1e-6)
-        np.testing.assert_allclose(m.pm_deg[k], pm, atol=1e-4)
-        if np.isfinite(gm) and gm > 1:
-            np.testing.assert_allclose(m.gm_db[k], 20 * np.log10(gm), atol=1e-4)
-            np.testing.assert_allclose(m.f180_hz[k], wpc / TWO_PI, rtol=1e-6)
-        assert m.stable[k] == bool(np.all(np.abs(control.feedback(ref, 1).poles()) < 1))
+    assert_margins_equal_control(res.margins, res.loop)
 
 
 def test_sampled_chain_equals_python_control_and_scipy_zoh():

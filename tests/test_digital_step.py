@@ -17,7 +17,6 @@ Outside references:
   ``forced_response`` on the continuous closed loop.
 """
 
-import functools
 import heapq
 from dataclasses import replace
 
@@ -26,7 +25,6 @@ import pytest
 from scipy.linalg import expm
 from scipy.signal import tf2ss
 
-import loopkit
 from loopkit.cli import main
 from loopkit.digital_loop import closed_loop_step
 from loopkit.digital_step import digital_step_response, hold_controller, plant_paths, simulate_sampled
@@ -34,20 +32,14 @@ from loopkit.errors import DesignError
 from loopkit.loop import LoopSession
 from loopkit.timeresponse import step_response
 from loopkit.units import format_value
+from tests.reference.samples import sample_design, sample_result
 
 control = pytest.importorskip("control")
 
 SAMPLES = ["buck_dsp_5v", "inverting_mcu_minus12v"]
 
 
-@functools.cache
-def _design(name):
-    return loopkit.load_design(f"sample_designs/{name}.toml")
-
-
-@functools.cache
-def _result(name):
-    return LoopSession(_design(name)).run()
+_design, _result = sample_design, sample_result
 
 
 def _desc(r, k):

@@ -15,7 +15,6 @@ Outside references:
   with the same fixed duty (which tests/test_switching_ngspice.py checks against ngspice).
 """
 
-import functools
 from dataclasses import replace
 
 import numpy as np
@@ -26,11 +25,9 @@ from loopkit.design import Digital
 from loopkit.loop import LoopSession
 from loopkit.switching import closed_loop_setup, load_step, loop_gain, open_loop_setup, steady_state
 from loopkit.switching.digital import settle
+from tests.reference.samples import sample_result
 
-
-@functools.cache
-def _result(name):
-    return LoopSession(loopkit.load_design(f"sample_designs/{name}.toml")).run()
+_result = sample_result
 
 
 def test_period_at_from_the_clock_edge_equals_a_fixed_duty_period():
