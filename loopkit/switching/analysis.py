@@ -36,6 +36,7 @@ __all__ = [
     "LoopGain",
     "SteadyState",
     "SwitchingStep",
+    "injection_windows",
     "load_step",
     "loop_gain",
     "model_limit_hz",
@@ -306,6 +307,18 @@ def snap_frequencies(f_hz, fsw_hz: float, max_den: int = 400) -> np.ndarray:
     return np.array(out)
 
 
+def injection_windows(f_hz: np.ndarray, fsw_hz: float, min_window: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per snapped frequency ``fsw p/q``: the measuring window (whole periods of both, at least ``min_window``
+    switching periods) and the periods the injected sine needs before it (two of its own periods, at least 1)."""
+    windows, settles = [], []
+    for fi in np.atleast_1d(f_hz):
+        fr = Fraction(float(fi) / fsw_hz).limit_denominator(400)
+        q, p = fr.denominator, fr.numerator
+        windows.append(q * math.ceil(min_window / q))
+        settles.append(max(2 * q / p, 1))
+    return np.array(windows), np.array(settles)
+
+
 def model_limit_hz(f_hz: np.ndarray, diff_db: np.ndarray, diff_deg: np.ndarray) -> np.ndarray:
     """First frequency (per row) where ``|diff_db| > LIMIT_DB`` or ``|diff_deg| > LIMIT_DEG``; NaN if none."""
     order = np.argsort(f_hz)
@@ -344,14 +357,8 @@ def loop_gain(setup: Setup, f_hz, amplitude_v=None, corners=None, min_window: in
         amp = np.broadcast_to(np.asarray(amplitude_v, float), (k, nf)).copy()
     fc = result.margins.fc_hz[corners] if result.margins is not None else np.full(k, np.nan)
     fc = np.where(np.isfinite(fc), fc, np.nanmin(f))
-    windows, settles = [], []
-    for fi in f:
-        fr = Fraction(fi / fsw).limit_denominator(400)
-        q, p = fr.denominator, fr.numerator
-        windows.append(q * math.ceil(min_window / q))
-        settles.append(max(2 * q / p, 1))
-    windows = np.array(windows)
-    settle = np.maximum(np.ceil(8.0 * fsw / fc)[:, None], np.array(settles)[None, :])
+    windows, settles = injection_windows(f, fsw, min_window)
+    settle = np.maximum(np.ceil(8.0 * fsw / fc)[:, None], settles[None, :])
     settle = np.minimum(settle, 4000).astype(int)
     lanes = eng.lanes(np.repeat(corners, nf), inj_amp=amp.reshape(-1), inj_f_hz=np.tile(f, k))
     start = settle.reshape(-1)

@@ -383,7 +383,7 @@ def loop_gain(setup, f_hz, amplitude_codes=None, corners=None, min_window: int =
     the controller would move the duty by more than 2 %).  Returns a
     :class:`~loopkit.switching.analysis.LoopGain` (``amplitude_v`` referred to the output).
     """
-    from .analysis import LoopGain, model_limit_hz, snap_frequencies
+    from .analysis import LoopGain, injection_windows, model_limit_hz, snap_frequencies
 
     result, dp, eng = setup.result, setup.digital, setup.engine
     corners = np.arange(setup.n_corners) if corners is None else np.atleast_1d(np.asarray(corners, int))
@@ -396,14 +396,9 @@ def loop_gain(setup, f_hz, amplitude_codes=None, corners=None, min_window: int =
         amp = np.broadcast_to(amp, (k, nf))
     else:
         amp = np.broadcast_to(np.asarray(amplitude_codes, float), (k, nf))
-    windows, extra = [], []
-    for fi in f:
-        fr = _fraction(fi / fsw)
-        q, p = fr.denominator, fr.numerator
-        windows.append(q * math.ceil(min_window / q))
-        extra.append(max(2 * q // max(p, 1), 1))
-    start = settle_periods(setup) + max(extra)
-    stop = start + np.tile(np.array(windows), k)
+    windows, extra = injection_windows(f, fsw, min_window)
+    start = settle_periods(setup) + int(np.ceil(np.max(extra)))
+    stop = start + np.tile(windows, k)
     total = int(stop.max())
     lanes = eng.lanes(np.repeat(corners, nf))
     f_lane = np.tile(f, k)
@@ -423,8 +418,3 @@ def loop_gain(setup, f_hz, amplitude_codes=None, corners=None, min_window: int =
     return LoopGain(f, t_sw, t_avg, diff_db, diff_deg, model_limit_hz(f, diff_db, diff_deg), amp * dp.lsb_out_v,
                     corners)
 
-
-def _fraction(x: float):
-    from fractions import Fraction
-
-    return Fraction(x).limit_denominator(400)
