@@ -152,7 +152,9 @@ class SwitchingDialog(BackgroundDialog):
                  if np.isfinite(limit) else f"the {model} holds within 1 dB and 5° at every frequency measured")
         lc = ss.limit_cycle
         if lc is not None:  # a digital loop as built: does it settle?
-            where += ("; it settles on one PWM value" if not lc.hunting[0] else
+            lsb = format_value(float(result.digital.adc_lsb_out_v[k]), "V")
+            where += (f"; it settles on one PWM value, anywhere within one ADC code ({lsb} at the output), so the"
+                      " step's mean need not return to its start" if not lc.hunting[0] else
                       f"; it hunts (a limit cycle): the PWM value spans {lc.u_span[0]:.0f} steps, the output"
                       f" {format_value(lc.vo_span_v[0], 'V')}")
         self.status.setText(
